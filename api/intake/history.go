@@ -1,0 +1,146 @@
+package intake
+
+import (
+	"bufio"
+	"compress/gzip"
+	"errors"
+	"fmt"
+	"io"
+	"os"
+	"strings"
+
+	"github.com/klauspost/compress/zstd"
+)
+
+// MaxLineBytes bounds one line of a history file; a longer line is skipped
+// (reported by Next as too long) without being held in memory.
+const MaxLineBytes = 1 << 20
+
+// ErrLineTooLong marks a line past MaxLineBytes.
+var ErrLineTooLong = errors.New("intake: line too long")
+
+// History reads a history file of one JSON event per line (NDJSON). A name
+// ending in .gz is read through gzip, .zst through zstd; anything else is
+// read as is. Positions are line numbers, counted from 1, in partition 0.
+//
+// Not safe for concurrent use.
+type History struct {
+	f    *os.File
+	dec  io.Closer
+	r    *bufio.Reader
+	cnt  *countingReader
+	buf  []byte
+	line int64
+	size int64
+}
+
+type countingReader struct {
+	r io.Reader
+	n int64
+}
+
+func (c *countingReader) Read(p []byte) (int, error) {
+	n, err := c.r.Read(p)
+	c.n += int64(n)
+	return n, err
+}
+
+// OpenHistory opens the history file at path.
+func OpenHistory(path string) (*History, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return nil, fmt.Errorf("intake: open history: %w", err)
+	}
+	st, err := f.Stat()
+	if err != nil {
+		f.Close()
+		return nil, fmt.Errorf("intake: open history: %w", err)
+	}
+	h := &History{f: f, size: st.Size(), cnt: &countingReader{r: f}}
+	var src io.Reader = h.cnt
+	switch {
+	case strings.HasSuffix(path, ".gz"):
+		g, err := gzip.NewReader(src)
+		if err != nil {
+			f.Close()
+			return nil, fmt.Errorf("intake: %s: %w", path, err)
+		}
+		src, h.dec = g, g
+	case strings.HasSuffix(path, ".zst"):
+		z, err := zstd.NewReader(src, zstd.WithDecoderConcurrency(1))
+		if err != nil {
+			f.Close()
+			return nil, fmt.Errorf("intake: %s: %w", path, err)
+		}
+		src, h.dec = z, z.IOReadCloser()
+	}
+	h.r = bufio.NewReaderSize(src, 64<<10)
+	return h, nil
+}
+
+// NewHistoryReader reads NDJSON from r (not compressed); Size reports 0.
+func NewHistoryReader(r io.Reader) *History {
+	h := &History{cnt: &countingReader{r: r}}
+	h.r = bufio.NewReaderSize(h.cnt, 64<<10)
+	return h
+}
+
+// Next returns the next line without its newline and its number. The slice
+// is valid until the next call. A line past MaxLineBytes is consumed and
+// reported with an error wrapping ErrLineTooLong; the end of the input is
+// io.EOF. A final line without a newline is returned as a line.
+func (h *History) Next() ([]byte, int64, error) {
+	h.buf = h.buf[:0]
+	tooLong := false
+	for {
+		chunk, err := h.r.ReadSlice('\n')
+		if len(h.buf)+len(chunk) > MaxLineBytes+1 {
+			tooLong = true
+		} else {
+			h.buf = append(h.buf, chunk...)
+		}
+		switch {
+		case err == bufio.ErrBufferFull:
+			continue
+		case err == io.EOF:
+			if len(h.buf) == 0 && !tooLong {
+				return nil, h.line, io.EOF
+			}
+		case err != nil:
+			return nil, h.line, fmt.Errorf("intake: history line %d: %w", h.line+1, err)
+		}
+		h.line++
+		if tooLong {
+			return nil, h.line, fmt.Errorf("%w: line %d is longer than %d bytes", ErrLineTooLong, h.line, MaxLineBytes)
+		}
+		return trimNewline(h.buf), h.line, nil
+	}
+}
+
+func trimNewline(b []byte) []byte {
+	if n := len(b); n > 0 && b[n-1] == '\n' {
+		b = b[:n-1]
+		if n := len(b); n > 0 && b[n-1] == '\r' {
+			b = b[:n-1]
+		}
+	}
+	return b
+}
+
+// BytesRead returns the bytes read from the file so far (compressed bytes
+// for a compressed file), and Size the file's size, for progress reports.
+func (h *History) BytesRead() int64 { return h.cnt.n }
+
+// Size returns the file's size in bytes (0 when unknown).
+func (h *History) Size() int64 { return h.size }
+
+// Close closes the file.
+func (h *History) Close() error {
+	if h.dec != nil {
+		h.dec.Close()
+	}
+	if h.f != nil {
+		return h.f.Close()
+	}
+	return nil
+}

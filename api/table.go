@@ -1,0 +1,62 @@
+package api
+
+import (
+	"fmt"
+	"io"
+	"math"
+	"slices"
+	"text/tabwriter"
+
+	"tidemark/learner"
+)
+
+// WriteTable prints a report as a table, learners sorted by their recent
+// (windowed) RMSE, best first; learners that scored nothing come last.
+func WriteTable(w io.Writer, r learner.Report) error {
+	ls := slices.Clone(r.Learners)
+	recent := func(l learner.LearnerReport) float64 {
+		if l.Recent.RMSE == nil {
+			return math.Inf(1)
+		}
+		return *l.Recent.RMSE
+	}
+	slices.SortStableFunc(ls, func(a, b learner.LearnerReport) int {
+		ra, rb := recent(a), recent(b)
+		switch {
+		case ra < rb:
+			return -1
+		case ra > rb:
+			return 1
+		}
+		return 0
+	})
+	fmt.Fprintf(w, "%d events applied, %d rejected, %d keys\n\n", r.Events, r.Rejected, r.Keys)
+	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
+	fmt.Fprintln(tw, "learner\tscored\tunscored\tmae\trmse\tbias\trecent mae\trecent rmse\tskill\tdrift\talarms\t")
+	for _, l := range ls {
+		fmt.Fprintf(tw, "%s\t%d\t%d\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%d\t\n", l.Name, l.Scored, l.Unscored,
+			num(l.MAE), num(l.RMSE), num(l.Bias), num(l.Recent.MAE), num(l.Recent.RMSE), num(l.Skill), l.Drift.State, l.Drift.Alarms)
+	}
+	if err := tw.Flush(); err != nil {
+		return err
+	}
+	_, err := fmt.Fprintf(w, "\nrecent = the last %s scored events; skill = 1 − rmse/rmse(first mean learner).\n"+
+		"Look at a learner's recent error before acting on its predictions.\n", recentSize(r))
+	return err
+}
+
+func recentSize(r learner.Report) string {
+	for _, l := range r.Learners {
+		if l.Recent.Events > 0 {
+			return fmt.Sprint(l.Recent.Events)
+		}
+	}
+	return "N"
+}
+
+func num(p *float64) string {
+	if p == nil {
+		return "–"
+	}
+	return fmt.Sprintf("%.4g", *p)
+}

@@ -1,0 +1,123 @@
+// Command tidemark learns regression models online from a stream of labelled
+// events, scores them test-then-train, and compares learners on history.
+//
+// Usage: tidemark COMMAND [flags]; tidemark help lists the commands.
+package main
+
+import (
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"strings"
+)
+
+// Exit statuses (DESIGN.md): 0 ok, 1 failure, 2 bad usage or input.
+const (
+	exitOK    = 0
+	exitFail  = 1
+	exitUsage = 2
+)
+
+// usageError marks an error that should exit with status 2.
+type usageError struct{ err error }
+
+func (u usageError) Error() string { return u.err.Error() }
+func (u usageError) Unwrap() error { return u.err }
+
+func usagef(format string, args ...any) error { return usageError{fmt.Errorf(format, args...)} }
+
+type command struct {
+	name, summary string
+	run           func(args []string, stdout, stderr io.Writer) error
+}
+
+func commands() []command {
+	return []command{
+		{"replay", "prequential comparison of learners on a recorded history file", runReplay},
+		{"synth", "write the demo scenario's history (a cold-storage warehouse)", runSynth},
+		{"demo", "run the learners over the embedded demo scenario, no setup", runDemo},
+	}
+}
+
+func main() {
+	os.Exit(run(os.Args[1:], os.Stdout, os.Stderr))
+}
+
+func run(args []string, stdout, stderr io.Writer) int {
+	if len(args) == 0 || args[0] == "help" || args[0] == "-h" || args[0] == "--help" {
+		printUsage(stdout)
+		if len(args) == 0 {
+			return exitUsage
+		}
+		return exitOK
+	}
+	for _, c := range commands() {
+		if c.name == args[0] {
+			err := c.run(args[1:], stdout, stderr)
+			switch {
+			case err == nil:
+				return exitOK
+			case errors.Is(err, flag.ErrHelp):
+				return exitOK
+			}
+			fmt.Fprintf(stderr, "tidemark %s: %v\n", c.name, err)
+			var u usageError
+			if errors.As(err, &u) {
+				return exitUsage
+			}
+			return exitFail
+		}
+	}
+	fmt.Fprintf(stderr, "tidemark: unknown command %q\n\n", args[0])
+	printUsage(stderr)
+	return exitUsage
+}
+
+func printUsage(w io.Writer) {
+	fmt.Fprintln(w, "tidemark learns regression models online from labelled events and scores them test-then-train.")
+	fmt.Fprintln(w, "\nUsage: tidemark COMMAND [flags]   (tidemark COMMAND --help lists a command's flags)\n\nCommands:")
+	for _, c := range commands() {
+		fmt.Fprintf(w, "  %-8s %s\n", c.name, c.summary)
+	}
+}
+
+// parse parses flags that may come before or after positional arguments and
+// returns the positionals. A flag error is a usage error.
+func parse(fs *flag.FlagSet, args []string) ([]string, error) {
+	var pos []string
+	for {
+		if err := fs.Parse(args); err != nil {
+			if errors.Is(err, flag.ErrHelp) {
+				return nil, err
+			}
+			return nil, usageError{err}
+		}
+		args = fs.Args()
+		if len(args) == 0 {
+			return pos, nil
+		}
+		if args[0] == "--" {
+			return append(pos, args[1:]...), nil
+		}
+		pos = append(pos, args[0])
+		args = args[1:]
+	}
+}
+
+// multi is a repeatable string flag.
+type multi []string
+
+func (m *multi) String() string     { return strings.Join(*m, " ") }
+func (m *multi) Set(s string) error { *m = append(*m, s); return nil }
+
+func newFlagSet(name, usage string, stderr io.Writer) *flag.FlagSet {
+	fs := flag.NewFlagSet(name, flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	fs.Usage = func() {
+		fmt.Fprintf(fs.Output(), "Usage: tidemark %s\n\nFlags:\n", usage)
+		fs.PrintDefaults()
+	}
+	return fs
+}

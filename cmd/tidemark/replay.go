@@ -1,0 +1,112 @@
+package main
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"os/signal"
+
+	"tidemark/api"
+	"tidemark/api/intake"
+	"tidemark/learner"
+)
+
+// engineFlags are the flags that shape the engine, shared by replay and demo.
+type engineFlags struct {
+	learners     multi
+	timeFeatures bool
+	hashBuckets  int
+	maxKeys      int
+}
+
+func (f *engineFlags) register(fs *flag.FlagSet) {
+	fs.Var(&f.learners, "learner", "learner spec `KIND[:PARAM=VALUE,...]`, repeatable (knn, rls, sliding-rls, mean)")
+	fs.BoolVar(&f.timeFeatures, "time-features", false, "add hour of day and day of week (sin/cos) from the event time")
+	fs.IntVar(&f.hashBuckets, "hash-buckets", learner.DefaultHashBuckets, "buckets for hashed categorical features")
+	fs.IntVar(&f.maxKeys, "max-keys", learner.DefaultMaxKeys, "cap on distinct keys; events for new keys past it are rejected")
+}
+
+func (f *engineFlags) config() (learner.Config, error) {
+	cfg := learner.Config{
+		Features: learner.FeatureConfig{HashBuckets: f.hashBuckets, TimeFeatures: f.timeFeatures},
+		MaxKeys:  f.maxKeys,
+	}
+	var errs []error
+	for _, text := range f.learners {
+		s, err := learner.ParseSpec(text)
+		if err != nil {
+			errs = append(errs, err)
+			continue
+		}
+		cfg.Learners = append(cfg.Learners, s)
+	}
+	if f.maxKeys < 1 {
+		errs = append(errs, fmt.Errorf("--max-keys %d: want at least 1", f.maxKeys))
+	}
+	if f.hashBuckets < 1 {
+		errs = append(errs, fmt.Errorf("--hash-buckets %d: want at least 1", f.hashBuckets))
+	}
+	if err := errors.Join(errs...); err != nil {
+		return cfg, err
+	}
+	return cfg, cfg.Validate()
+}
+
+func runReplay(args []string, stdout, stderr io.Writer) error {
+	fs := newFlagSet("replay", "replay --history FILE --learner SPEC... [--json] [--strict] [--per-key]", stderr)
+	var ef engineFlags
+	ef.register(fs)
+	history := fs.String("history", "", "history `FILE`: NDJSON events, plain, .gz or .zst")
+	asJSON := fs.Bool("json", false, "print the report as one JSON object")
+	strict := fs.Bool("strict", false, "stop at the first rejected line (exit status 2)")
+	perKey := fs.Bool("per-key", false, "include each key's metrics (JSON) or a table per key")
+	pos, err := parse(fs, args)
+	if err != nil {
+		return err
+	}
+	if len(pos) > 0 {
+		return usagef("unexpected argument %q (the history is given with --history)", pos[0])
+	}
+	if *history == "" {
+		return usagef("--history FILE is required")
+	}
+	if len(ef.learners) == 0 {
+		return usagef("give at least one --learner SPEC, e.g. --learner knn:k=10,window=2000 --learner rls:forget=0.995 --learner mean")
+	}
+	cfg, err := ef.config()
+	if err != nil {
+		return usageError{err}
+	}
+	h, err := intake.OpenHistory(*history)
+	if err != nil {
+		return usageError{err}
+	}
+	defer h.Close()
+	eng, err := learner.NewEngine(cfg)
+	if err != nil {
+		return usageError{err}
+	}
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
+	defer stop()
+	err = api.Replay(ctx, h, eng, api.ReplayConfig{Strict: *strict, Log: stderr})
+	if errors.Is(err, api.ErrStrict) {
+		return usageError{err}
+	}
+	if err != nil {
+		return err
+	}
+	return writeReport(stdout, eng.Report(*perKey), *asJSON)
+}
+
+func writeReport(w io.Writer, r learner.Report, asJSON bool) error {
+	if asJSON {
+		enc := json.NewEncoder(w)
+		enc.SetIndent("", "  ")
+		return enc.Encode(r)
+	}
+	return api.WriteTable(w, r)
+}

@@ -1,0 +1,140 @@
+package learner
+
+import (
+	"encoding/binary"
+	"fmt"
+	"math"
+)
+
+// encoder appends a deterministic little-endian encoding: fixed-width
+// integers and IEEE-754 bit patterns, length-prefixed strings and slices. No
+// map is ever iterated while encoding.
+type encoder struct{ b []byte }
+
+func (w *encoder) u8(v uint8)    { w.b = append(w.b, v) }
+func (w *encoder) u32(v uint32)  { w.b = binary.LittleEndian.AppendUint32(w.b, v) }
+func (w *encoder) i64(v int64)   { w.b = binary.LittleEndian.AppendUint64(w.b, uint64(v)) }
+func (w *encoder) f64(v float64) { w.b = binary.LittleEndian.AppendUint64(w.b, math.Float64bits(v)) }
+func (w *encoder) int(v int)     { w.i64(int64(v)) }
+func (w *encoder) bool(v bool) {
+	if v {
+		w.u8(1)
+	} else {
+		w.u8(0)
+	}
+}
+func (w *encoder) str(s string) { w.u32(uint32(len(s))); w.b = append(w.b, s...) }
+func (w *encoder) f64s(v []float64) {
+	w.int(len(v))
+	for _, x := range v {
+		w.f64(x)
+	}
+}
+
+// decoder reads what encoder wrote. The first failure sticks: later reads
+// return zero values and err reports the offset of the first problem, so
+// callers check once at the end.
+type decoder struct {
+	b   []byte
+	off int
+	err error
+}
+
+func (r *decoder) fail(what string) {
+	if r.err == nil {
+		r.err = fmt.Errorf("%w: %s at byte %d", ErrCorruptState, what, r.off)
+	}
+}
+
+func (r *decoder) take(n int) []byte {
+	if r.err != nil {
+		return nil
+	}
+	if n < 0 || n > len(r.b)-r.off {
+		r.fail("truncated")
+		return nil
+	}
+	p := r.b[r.off : r.off+n]
+	r.off += n
+	return p
+}
+
+func (r *decoder) u8() uint8 {
+	if p := r.take(1); p != nil {
+		return p[0]
+	}
+	return 0
+}
+func (r *decoder) u32() uint32 {
+	if p := r.take(4); p != nil {
+		return binary.LittleEndian.Uint32(p)
+	}
+	return 0
+}
+func (r *decoder) i64() int64 {
+	if p := r.take(8); p != nil {
+		return int64(binary.LittleEndian.Uint64(p))
+	}
+	return 0
+}
+func (r *decoder) f64() float64 { return math.Float64frombits(uint64(r.i64())) }
+func (r *decoder) bool() bool {
+	switch r.u8() {
+	case 0:
+		return false
+	case 1:
+		return true
+	}
+	r.fail("bad bool")
+	return false
+}
+
+// count reads a length and checks it against lo..hi and against the bytes
+// left at elem bytes per element, so a corrupt length cannot make a decoder
+// allocate more than the input could hold.
+func (r *decoder) count(hi int, elem int) int {
+	n := r.i64()
+	if r.err != nil {
+		return 0
+	}
+	if n < 0 || n > int64(hi) || (elem > 0 && n > int64((len(r.b)-r.off)/elem)) {
+		r.fail(fmt.Sprintf("length %d out of range", n))
+		return 0
+	}
+	return int(n)
+}
+
+func (r *decoder) int() int {
+	v := r.i64()
+	if v < math.MinInt32 || v > math.MaxInt32<<16 {
+		r.fail("integer out of range")
+		return 0
+	}
+	return int(v)
+}
+
+func (r *decoder) str(max int) string {
+	n := r.u32()
+	if int64(n) > int64(max) {
+		r.fail("string too long")
+		return ""
+	}
+	return string(r.take(int(n)))
+}
+
+func (r *decoder) f64sInto(dst []float64) {
+	n := r.count(len(dst), 8)
+	if n != len(dst) {
+		r.fail("vector length mismatch")
+		return
+	}
+	for i := range dst {
+		dst[i] = r.f64()
+	}
+}
+
+func (r *decoder) expect(v int, what string) {
+	if got := r.int(); got != v && r.err == nil {
+		r.fail(fmt.Sprintf("%s is %d, want %d", what, got, v))
+	}
+}

@@ -1,0 +1,143 @@
+package learner
+
+import "math"
+
+// Defaults of DriftConfig. δ and λ are in units of the standard deviation of
+// the watched series (see PageHinkley), so they do not depend on the target's
+// units. With δ = 0.5 a rise in the mean absolute error of half a standard
+// deviation or more is tracked; λ = 25 keeps the chance of a false alarm on a
+// stationary stream negligible (the statistic of a random walk with drift −δ
+// exceeds λ with probability about exp(−2δλ) = e⁻²⁵ per excursion, a
+// Brownian-motion approximation) while a shift of 3σ alarms in about
+// 25/2.5 = 10 events. MinEvents scored events are needed before any alarm.
+const (
+	DefaultDriftDelta  = 0.5
+	DefaultDriftLambda = 25
+	DefaultDriftMin    = 30
+)
+
+// DriftConfig configures Page–Hinkley drift watch. Zero fields take defaults.
+type DriftConfig struct {
+	Delta     float64 // δ, tolerated rise per event, in standard deviations. Default: DefaultDriftDelta.
+	Lambda    float64 // λ, alarm threshold, in standard deviations. Default: DefaultDriftLambda.
+	MinEvents int     // warm-up before alarms. Default: DefaultDriftMin.
+	Raw       bool    // use δ and λ in the series' own units (no standardisation).
+}
+
+func (c DriftConfig) withDefaults() DriftConfig {
+	if c.Delta <= 0 {
+		c.Delta = DefaultDriftDelta
+	}
+	if c.Lambda <= 0 {
+		c.Lambda = DefaultDriftLambda
+	}
+	if c.MinEvents <= 0 {
+		c.MinEvents = DefaultDriftMin
+	}
+	return c
+}
+
+// DriftState is a drift detector's verdict.
+type DriftState int
+
+// Drift states.
+const (
+	Stable  DriftState = iota
+	Warning            // the statistic passed λ/2
+	Drift              // an alarm fired within the last MinEvents events
+)
+
+func (s DriftState) String() string {
+	switch s {
+	case Warning:
+		return "warning"
+	case Drift:
+		return "drift"
+	}
+	return "stable"
+}
+
+// PageHinkley detects a rise in the mean of a series (Page 1954, "Continuous
+// inspection schemes", Biometrika 41:100–115; in the form of Mouss et al.
+// 2004 and Gama et al. 2013). For inputs x₁, x₂, … with running mean x̄ₜ:
+//
+//	mₜ = Σ_{i≤t} (xᵢ − x̄ᵢ − δ),  Mₜ = min_{i≤t} mᵢ,  PHₜ = mₜ − Mₜ
+//
+// and it alarms when PHₜ > λ. Unless Raw is set, each term is divided by the
+// running standard deviation σ of the inputs seen before it, so δ and λ are
+// in standard deviations. After an alarm the statistic restarts from scratch.
+// The engine feeds it each learner's absolute prequential error.
+type PageHinkley struct {
+	cfg     DriftConfig
+	n       int64
+	mean    float64
+	m2      float64
+	cum     float64
+	min     float64
+	since   int64 // events since the last alarm (or since the start)
+	alarms  int64
+	alarmed bool
+}
+
+func newPageHinkley(cfg DriftConfig) PageHinkley {
+	return PageHinkley{cfg: cfg.withDefaults(), since: math.MaxInt32}
+}
+
+// Add feeds one value and reports whether it raised an alarm.
+func (p *PageHinkley) Add(x float64) bool {
+	sd := 1.0
+	if !p.cfg.Raw && p.n >= 2 {
+		sd = math.Sqrt(p.m2 / float64(p.n-1))
+	}
+	p.n++
+	d := x - p.mean
+	p.mean += d / float64(p.n)
+	p.m2 += d * (x - p.mean)
+	p.since++
+	if !p.cfg.Raw && (p.n < 2 || sd == 0) {
+		return false // no scale yet
+	}
+	p.cum += (x-p.mean)/sd - p.cfg.Delta
+	p.min = math.Min(p.min, p.cum)
+	if p.n >= int64(p.cfg.MinEvents) && p.cum-p.min > p.cfg.Lambda {
+		p.alarms++
+		p.n, p.mean, p.m2, p.cum, p.min = 0, 0, 0, 0, 0
+		p.since, p.alarmed = 0, true
+		return true
+	}
+	return false
+}
+
+// Statistic returns PHₜ = mₜ − Mₜ.
+func (p *PageHinkley) Statistic() float64 { return p.cum - p.min }
+
+// Alarms returns the number of alarms raised.
+func (p *PageHinkley) Alarms() int64 { return p.alarms }
+
+// State returns drift within MinEvents events of the last alarm, warning while
+// the statistic is above λ/2, and stable otherwise.
+func (p *PageHinkley) State() DriftState {
+	switch {
+	case p.alarmed && p.since <= int64(p.cfg.MinEvents):
+		return Drift
+	case p.Statistic() > p.cfg.Lambda/2:
+		return Warning
+	}
+	return Stable
+}
+
+func (p *PageHinkley) encode(w *encoder) {
+	w.i64(p.n)
+	w.f64(p.mean)
+	w.f64(p.m2)
+	w.f64(p.cum)
+	w.f64(p.min)
+	w.i64(p.since)
+	w.i64(p.alarms)
+	w.bool(p.alarmed)
+}
+
+func (p *PageHinkley) decode(r *decoder) {
+	p.n, p.mean, p.m2, p.cum, p.min = r.i64(), r.f64(), r.f64(), r.f64(), r.f64()
+	p.since, p.alarms, p.alarmed = r.i64(), r.i64(), r.bool()
+}

@@ -1,0 +1,304 @@
+package learner
+
+import (
+	"crypto/sha256"
+	"errors"
+	"fmt"
+	"math"
+	"slices"
+	"strings"
+)
+
+// DefaultMaxKeys is the cap on distinct keys when Config.MaxKeys is zero.
+const DefaultMaxKeys = 10_000
+
+// Position is where an event sits in its stream: a partition and an offset
+// within it (a Kafka partition and offset; a journal's sequence number; a
+// history file's line number, partition 0). It is the only clock of the
+// engine's state.
+type Position struct {
+	Partition int32 `json:"partition"`
+	Offset    int64 `json:"offset"`
+}
+
+func (p Position) String() string { return fmt.Sprintf("%d:%d", p.Partition, p.Offset) }
+
+// Config configures an Engine.
+type Config struct {
+	Learners []Spec        // at least one; names unique
+	Features FeatureConfig // schema, hashing, time features
+	MaxKeys  int           // distinct keys; events for new keys beyond it are rejected. Default: DefaultMaxKeys.
+	Score    ScoreConfig
+	Drift    DriftConfig
+}
+
+// Validate reports every problem with c at once. It changes nothing.
+func (c *Config) Validate() error {
+	var errs []error
+	if len(c.Learners) == 0 {
+		errs = append(errs, fmt.Errorf("%w: no learner configured; give at least one spec", ErrInvalidSpec))
+	}
+	seen := map[string]bool{}
+	for _, s := range c.Learners {
+		if seen[s.Name] {
+			errs = append(errs, fmt.Errorf("%w: two learners are named %q; rename one with name=", ErrInvalidSpec, s.Name))
+		}
+		seen[s.Name] = true
+	}
+	if c.MaxKeys < 0 {
+		errs = append(errs, fmt.Errorf("%w: max keys %d is negative", ErrInvalidSpec, c.MaxKeys))
+	}
+	if c.Features.HashBuckets < 0 || c.Features.HashBuckets > 1<<16 {
+		errs = append(errs, fmt.Errorf("%w: hash buckets %d: want 1 to 65536", ErrInvalidSpec, c.Features.HashBuckets))
+	}
+	if _, _, err := NewSchema(c.Features); err != nil {
+		errs = append(errs, err)
+	}
+	return errors.Join(errs...)
+}
+
+// Alarm is where a drift alarm fired.
+type Alarm struct {
+	Position Position `json:"position"`
+	Key      string   `json:"key"`
+	Time     int64    `json:"-"`
+}
+
+// Engine applies each event to every learner of its key — predict, score,
+// train — and keeps the prequential scores, drift watch and stream positions.
+// Its state after events 1..n is a pure function of (Config, events 1..n):
+// it reads no clock and iterates no map where order matters.
+//
+// Each distinct key gets its own learners on first sight. The engine keeps a
+// high-water mark per partition and ignores an event whose position the state
+// already covers, so a source that delivers at least once is applied exactly
+// once.
+//
+// An Engine is not safe for concurrent use: one goroutine owns it; readers
+// work on a copy (Decode the bytes of Encode into a new Engine).
+type Engine struct {
+	cfg      Config
+	schema   *Schema
+	needTime string // the first learner that needs event time, or ""
+	baseline int    // index of the first mean learner, or −1
+	keys     map[string]*keyState
+	totals   []total
+	hwm      map[int32]int64
+
+	applied, rejected, duplicates, ignored int64
+	alarms                                 int64
+
+	x []float64
+}
+
+type total struct {
+	score     Scorer
+	alarms    int64
+	lastAlarm *Alarm
+}
+
+type keyState struct {
+	key       string
+	partition int32
+	learners  []Learner
+	scores    []Scorer
+	drift     []PageHinkley
+}
+
+// NewEngine validates cfg, fills its defaults and returns an empty engine.
+func NewEngine(cfg Config) (*Engine, error) {
+	if err := cfg.Validate(); err != nil {
+		return nil, err
+	}
+	if cfg.MaxKeys == 0 {
+		cfg.MaxKeys = DefaultMaxKeys
+	}
+	cfg.Score = cfg.Score.withDefaults()
+	cfg.Drift = cfg.Drift.withDefaults()
+	e := &Engine{cfg: cfg, baseline: -1, keys: map[string]*keyState{}, hwm: map[int32]int64{}}
+	e.schema, _, _ = NewSchema(cfg.Features)
+	for i := range cfg.Learners {
+		s := &cfg.Learners[i]
+		if s.NeedsTime() && e.needTime == "" {
+			e.needTime = s.Name
+		}
+		if s.Kind == KindMean && e.baseline < 0 {
+			e.baseline = i
+		}
+		e.totals = append(e.totals, total{score: newScorer(cfg.Score.Recent, cfg.Score.Fading)})
+	}
+	if cfg.Features.TimeFeatures && e.needTime == "" {
+		e.needTime = "time features"
+	}
+	return e, nil
+}
+
+// Config returns the engine's configuration with defaults filled in.
+func (e *Engine) Config() Config { return e.cfg }
+
+// Schema returns the feature schema, or nil before the first valid event.
+func (e *Engine) Schema() *Schema { return e.schema }
+
+// Applied returns the number of events trained on.
+func (e *Engine) Applied() int64 { return e.applied }
+
+// Rejected returns the number of events refused (by Apply or Skip).
+func (e *Engine) Rejected() int64 { return e.rejected }
+
+// Alarms returns the number of drift alarms raised so far, over all learners
+// and keys; a caller that compares it before and after Apply learns that the
+// event raised one.
+func (e *Engine) Alarms() int64 { return e.alarms }
+
+// Covers reports whether the state already covers pos.
+func (e *Engine) Covers(pos Position) bool {
+	hw, ok := e.hwm[pos.Partition]
+	return ok && pos.Offset <= hw
+}
+
+// Positions returns the high-water mark of every partition seen, sorted by partition.
+func (e *Engine) Positions() []Position {
+	out := make([]Position, 0, len(e.hwm))
+	for p, o := range e.hwm {
+		out = append(out, Position{p, o})
+	}
+	slices.SortFunc(out, func(a, b Position) int { return int(a.Partition) - int(b.Partition) })
+	return out
+}
+
+// Skip records that the event at pos was refused before it reached the engine
+// (it did not decode): the position is covered and the event counted as
+// rejected. A position already covered is ignored.
+func (e *Engine) Skip(pos Position) {
+	if e.Covers(pos) {
+		return
+	}
+	e.hwm[pos.Partition] = pos.Offset
+	e.rejected++
+}
+
+// Apply applies the event at pos: for every learner of its key, predict,
+// score the prediction against the target, then train. It returns false with
+// a nil error when the state already covers pos (a redelivery), and false with
+// an error wrapping ErrRejected when the event does not fit (a schema feature
+// missing or mistyped, no time where one is needed, a new key past the cap);
+// a rejected event is counted, covers its position, and trains nothing. ev
+// must have passed DecodeEvent or ValidateEvent.
+//
+// Apply allocates nothing for an event of a known key once the schema is set.
+func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
+	if e.Covers(pos) {
+		e.duplicates++
+		return false, nil
+	}
+	e.hwm[pos.Partition] = pos.Offset
+	schema := e.schema
+	if schema == nil {
+		schema = SchemaOf(ev, e.cfg.Features)
+	}
+	if len(e.x) != schema.Dim() {
+		e.x = make([]float64, schema.Dim())
+	}
+	ignored, err := schema.Vector(e.x, ev)
+	if err != nil {
+		e.rejected++
+		return false, err
+	}
+	if e.needTime != "" && !ev.HasTime {
+		e.rejected++
+		return false, fmt.Errorf("%w: time is missing and %s needs it", ErrRejected, e.needTime)
+	}
+	ks := e.keys[ev.Key]
+	if ks == nil {
+		if len(e.keys) >= e.cfg.MaxKeys {
+			e.rejected++
+			return false, fmt.Errorf("%w: key %q would be key number %d, past the cap of %d", ErrRejected, truncate(ev.Key), len(e.keys)+1, e.cfg.MaxKeys)
+		}
+		e.schema = schema
+		ks = e.newKey(ev.Key, pos.Partition)
+		e.keys[ev.Key] = ks
+	}
+	e.schema = schema
+	e.ignored += int64(ignored)
+	y := ev.Target
+	for i, l := range ks.learners {
+		if ev.HasTime {
+			l.Advance(ev.Time)
+		}
+		if pred, ok := l.Predict(e.x); ok {
+			ks.scores[i].Score(y, pred)
+			e.totals[i].score.Score(y, pred)
+			if ks.drift[i].Add(math.Abs(y - pred)) {
+				e.alarms++
+				t := &e.totals[i]
+				t.alarms++
+				if t.lastAlarm == nil {
+					t.lastAlarm = &Alarm{}
+				}
+				*t.lastAlarm = Alarm{Position: pos, Key: ks.key, Time: ev.Time}
+			}
+		} else {
+			ks.scores[i].Unscore()
+			e.totals[i].score.Unscore()
+		}
+		l.Learn(e.x, y, ev.Time)
+	}
+	e.applied++
+	return true, nil
+}
+
+func (e *Engine) newKey(key string, partition int32) *keyState {
+	ks := &keyState{key: key, partition: partition}
+	d := e.schema.Dim()
+	for i := range e.cfg.Learners {
+		ks.learners = append(ks.learners, New(&e.cfg.Learners[i], d))
+		ks.scores = append(ks.scores, newScorer(e.cfg.Score.KeyRecent, e.cfg.Score.Fading))
+		ks.drift = append(ks.drift, newPageHinkley(e.cfg.Drift))
+	}
+	return ks
+}
+
+// Predict answers for one row of features of the given key with the named
+// learner, without changing any state but the learner's scratch space. The
+// row's features are matched against the schema as in Apply (the target is
+// ignored). It returns the prediction and the number of events that learner
+// has trained on for the key.
+func (e *Engine) Predict(key, learner string, ev *Event) (float64, int64, error) {
+	i := slices.IndexFunc(e.cfg.Learners, func(s Spec) bool { return s.Name == learner })
+	if i < 0 {
+		return 0, 0, fmt.Errorf("%w: %q", ErrUnknownLearner, learner)
+	}
+	ks := e.keys[key]
+	if ks == nil || e.schema == nil {
+		return 0, 0, fmt.Errorf("%w: %q has no events yet", ErrUnknownKey, key)
+	}
+	x := make([]float64, e.schema.Dim())
+	if _, err := e.schema.Vector(x, ev); err != nil {
+		return 0, 0, err
+	}
+	l := ks.learners[i]
+	y, ok := l.Predict(x)
+	if !ok {
+		return 0, l.Trained(), fmt.Errorf("%w: learner %q has trained on %d events of key %q", ErrNotReady, learner, l.Trained(), key)
+	}
+	return y, l.Trained(), nil
+}
+
+// sortedKeys returns the key states ordered by (partition, key).
+func (e *Engine) sortedKeys() []*keyState {
+	out := make([]*keyState, 0, len(e.keys))
+	for _, ks := range e.keys {
+		out = append(out, ks)
+	}
+	slices.SortFunc(out, func(a, b *keyState) int {
+		if a.partition != b.partition {
+			return int(a.partition) - int(b.partition)
+		}
+		return strings.Compare(a.key, b.key)
+	})
+	return out
+}
+
+// Digest returns the SHA-256 of the engine's encoded state: two engines with
+// the same configuration that applied the same events have the same digest.
+func (e *Engine) Digest() [32]byte { return sha256.Sum256(e.Encode(nil)) }

@@ -1,0 +1,221 @@
+package learner
+
+import (
+	"bytes"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"testing"
+)
+
+func mustEngine(t testing.TB, cfg Config, specs ...string) *Engine {
+	t.Helper()
+	for _, s := range specs {
+		sp, err := ParseSpec(s)
+		if err != nil {
+			t.Fatal(err)
+		}
+		cfg.Learners = append(cfg.Learners, sp)
+	}
+	e, err := NewEngine(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return e
+}
+
+func ev(key string, tm int64, y float64, x ...float64) *Event {
+	e := &Event{Key: key, Time: tm, HasTime: tm != 0, Target: y}
+	for i, v := range x {
+		e.Features = append(e.Features, Feature{Name: fmt.Sprintf("x%d", i), Num: v})
+	}
+	return e
+}
+
+// TestEngineMeanWindowByHand: mean:window=3 on targets 1..6, per key, by hand.
+// Predictions before training: –, 1, 1.5, 2, 3, 4; errors 1, 1.5, 2, 2, 2;
+// MAE = 8.5/5 = 1.7, RMSE = √(15.25/5), bias 1.7 (all errors positive).
+// Key "b" gets the same targets interleaved, so its metrics are the same and
+// the overall ones too (each error twice).
+func TestEngineMeanWindowByHand(t *testing.T) {
+	e := mustEngine(t, Config{}, "mean:window=3")
+	off := int64(0)
+	for y := 1.0; y <= 6; y++ {
+		for _, k := range []string{"a", "b"} {
+			off++
+			if ok, err := e.Apply(Position{0, off}, ev(k, 0, y, 0)); !ok || err != nil {
+				t.Fatal(ok, err)
+			}
+		}
+	}
+	r := e.Report(true)
+	l := r.Learners[0]
+	if l.Scored != 10 || l.Unscored != 2 || math.Abs(*l.MAE-1.7) > handTol || math.Abs(*l.RMSE-math.Sqrt(3.05)) > handTol || math.Abs(*l.Bias-1.7) > handTol {
+		t.Errorf("overall %+v mae %v rmse %v", l.Metrics, *l.MAE, *l.RMSE)
+	}
+	for _, k := range l.Keys {
+		if k.Scored != 5 || math.Abs(*k.MAE-1.7) > handTol {
+			t.Errorf("key %s: scored %d mae %v", k.Key, k.Scored, *k.MAE)
+		}
+	}
+}
+
+func TestEngineDuplicatesAndRejections(t *testing.T) {
+	e := mustEngine(t, Config{MaxKeys: 2}, "mean", "rls:half_life=1h")
+	if _, err := e.Apply(Position{0, 1}, ev("a", 1e9, 1, 0)); err != nil {
+		t.Fatal(err)
+	}
+	if ok, err := e.Apply(Position{0, 1}, ev("a", 2e9, 1, 0)); ok || err != nil {
+		t.Errorf("redelivered position: applied %v err %v, want ignored", ok, err)
+	}
+	if _, err := e.Apply(Position{0, 2}, ev("b", 0, 1, 0)); !errors.Is(err, ErrRejected) {
+		t.Errorf("no time with half_life: %v, want ErrRejected", err)
+	}
+	if _, err := e.Apply(Position{0, 3}, ev("b", 3e9, 1, 0)); err != nil {
+		t.Fatal(err)
+	}
+	_, err := e.Apply(Position{0, 4}, ev("c", 4e9, 1, 0))
+	if !errors.Is(err, ErrRejected) {
+		t.Errorf("third key past cap 2: %v, want ErrRejected", err)
+	}
+	if _, err := e.Apply(Position{0, 5}, ev("a", 5e9, 1)); !errors.Is(err, ErrRejected) {
+		t.Errorf("missing feature: %v, want ErrRejected", err)
+	}
+	e.Skip(Position{1, 0})
+	r := e.Report(false)
+	if r.Events != 2 || r.Rejected != 4 || r.Duplicates != 1 || r.Keys != 2 {
+		t.Errorf("report %+v", r)
+	}
+	if !e.Covers(Position{0, 5}) || e.Covers(Position{0, 6}) || !e.Covers(Position{1, 0}) {
+		t.Errorf("positions %v", e.Positions())
+	}
+}
+
+// stream returns a keyed stream with numeric and categorical features.
+func stream(n int, seed uint64) []*Event {
+	rng := rand.New(rand.NewPCG(seed, 1))
+	var out []*Event
+	tm := int64(1_700_000_000e9)
+	for i := 0; i < n; i++ {
+		tm += int64(rng.IntN(600)+1) * 1e9
+		a, b := rng.NormFloat64(), rng.Float64()*10
+		shift := []string{"day", "night", "late"}[rng.IntN(3)]
+		key := []string{"north", "south", "east"}[i%3]
+		y := 3*a - b + rng.NormFloat64()
+		if i > n/2 {
+			y += 5 * a
+		}
+		out = append(out, &Event{Key: key, Time: tm, HasTime: true, Target: y, Features: []Feature{
+			{Name: "a", Num: a}, {Name: "b", Num: b}, {Name: "shift", Str: shift, IsStr: true}}})
+	}
+	return out
+}
+
+var allKinds = []string{
+	"knn:k=5,window=200", "knn:k=3,window=6h,weight=inverse", "rls:forget=0.99",
+	"rls:half_life=12h,degree=2", "sliding-rls:window=100", "sliding-rls:window=3h", "mean", "mean:window=50",
+}
+
+func TestEngineEncodeDecodeRoundTrip(t *testing.T) {
+	events := stream(3000, 4)
+	a := mustEngine(t, Config{Features: FeatureConfig{HashBuckets: 4, TimeFeatures: true}}, allKinds...)
+	b := mustEngine(t, Config{Features: FeatureConfig{HashBuckets: 4, TimeFeatures: true}}, allKinds...)
+	for i, ev := range events[:1500] {
+		a.Apply(Position{0, int64(i)}, ev)
+	}
+	state := a.Encode(nil)
+	if err := b.Decode(state); err != nil {
+		t.Fatal(err)
+	}
+	if !bytes.Equal(b.Encode(nil), state) {
+		t.Fatal("decode then encode changed the bytes")
+	}
+	for i, ev := range events[1500:] {
+		a.Apply(Position{0, int64(1500 + i)}, ev)
+		b.Apply(Position{0, int64(1500 + i)}, ev)
+	}
+	if a.Digest() != b.Digest() {
+		t.Error("engines diverged after a round trip")
+	}
+	ra, rb := a.Report(true), b.Report(true)
+	if ja, jb := mustJSON(t, ra), mustJSON(t, rb); ja != jb {
+		t.Error("reports differ after a round trip")
+	}
+	for _, l := range ra.Learners {
+		if l.Scored == 0 {
+			t.Errorf("%s scored nothing", l.Name)
+		}
+	}
+}
+
+func TestEngineDecodeRefusesOtherConfig(t *testing.T) {
+	a := mustEngine(t, Config{}, "rls", "mean")
+	a.Apply(Position{0, 1}, ev("", 0, 1, 2))
+	b := mustEngine(t, Config{}, "rls:forget=0.9", "mean")
+	if err := b.Decode(a.Encode(nil)); !errors.Is(err, ErrInvalidSpec) {
+		t.Errorf("decode under other specs: %v, want ErrInvalidSpec", err)
+	}
+}
+
+// TestEngineDecodeTruncated: every truncation of a small state is an error,
+// never a panic.
+func TestEngineDecodeTruncated(t *testing.T) {
+	small := []string{"knn:k=3,window=10", "knn:window=1h", "rls:half_life=1h", "sliding-rls:window=10", "mean:window=5", "mean"}
+	cfg := Config{Features: FeatureConfig{HashBuckets: 2}, Score: ScoreConfig{Recent: 8, KeyRecent: 4}}
+	a := mustEngine(t, cfg, small...)
+	for i, ev := range stream(40, 9) {
+		a.Apply(Position{0, int64(i)}, ev)
+	}
+	state := a.Encode(nil)
+	b := mustEngine(t, cfg, small...)
+	for n := 0; n < len(state); n++ {
+		if err := b.Decode(state[:n]); err == nil {
+			t.Fatalf("truncated to %d of %d bytes: decoded without error", n, len(state))
+		}
+	}
+}
+
+// TestHotPathAllocatesNothing: once a key's learners exist, Apply (predict,
+// score, train) allocates nothing, for every kind.
+func TestHotPathAllocatesNothing(t *testing.T) {
+	for _, spec := range allKinds {
+		e := mustEngine(t, Config{Features: FeatureConfig{HashBuckets: 4}}, spec)
+		events := stream(4000, 2)
+		for i, ev := range events[:3000] {
+			e.Apply(Position{0, int64(i)}, ev)
+		}
+		i := 3000
+		allocs := testing.AllocsPerRun(500, func() {
+			e.Apply(Position{0, int64(i)}, events[i])
+			i++
+		})
+		if allocs != 0 {
+			t.Errorf("%s: %v allocations per event, want 0", spec, allocs)
+		}
+	}
+}
+
+func ExampleEngine() {
+	spec, _ := ParseSpec("rls:p0=inf")
+	e, _ := NewEngine(Config{Learners: []Spec{spec}})
+	// y = 2 + 3x, exactly: RLS finds it after two events.
+	for i, x := range []float64{0, 1, 2, 3} {
+		ev := &Event{Target: 2 + 3*x, Features: []Feature{{Name: "x", Num: x}}}
+		e.Apply(Position{Offset: int64(i)}, ev)
+	}
+	y, n, _ := e.Predict("", "rls:p0=inf", &Event{Features: []Feature{{Name: "x", Num: 10}}})
+	r := e.Report(false)
+	fmt.Printf("predict(10) = %.6g after %d events; scored %d, mae %.3g\n", y, n, r.Learners[0].Scored, *r.Learners[0].MAE)
+	// Output: predict(10) = 32 after 4 events; scored 2, mae 4.44e-16
+}
+
+func mustJSON(t *testing.T, v any) string {
+	t.Helper()
+	b, err := json.Marshal(v)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return string(b)
+}

@@ -1,0 +1,246 @@
+package learner
+
+import (
+	"math"
+
+	"tidemark/window"
+)
+
+// KNN is k-nearest-neighbour regression over a sliding window of recent
+// events (Fix & Hodges 1951; Cover & Hart 1967).
+//
+// Prediction for a query q is the mean target of the k window events nearest
+// to q in Euclidean distance
+//
+//	dist(x, q) = sqrt( Σⱼ ((xⱼ − qⱼ)/sⱼ)² )
+//
+// where sⱼ = 1 with scale=none, and with scale=zscore sⱼ is the population
+// standard deviation of feature j over the window's current contents (1 when
+// that deviation is zero: a constant feature then counts in raw units,
+// common practice). With weight=inverse the targets are weighted by 1/dist
+// (Shepard 1968, "A two-dimensional interpolation function for irregularly-
+// spaced data", Proc. ACM national conference); when some neighbours are at
+// distance 0 the prediction is the mean of those alone. If the window holds
+// fewer than k events all of them are used; equal distances are broken in
+// favour of the more recent event. Targets are summed nearest first.
+//
+// The window is a count, a span of event time, or all events up to a memory
+// cap (see rows). The per-feature running moments are updated by Welford's
+// add and remove as events enter and leave, and rebuilt from the window's
+// contents after every window-length of evictions so that rounding cannot
+// accumulate.
+//
+// Cost: Predict O(n·d + n·k) worst case for n events in the window, usually
+// O(n·d) since few candidates enter the k best; Learn O(d) amortised.
+type KNN struct {
+	cfg     KNNConfig
+	d       int
+	w       rows
+	moms    []window.Moments
+	evicted int // evictions since the moments were last rebuilt
+	trained int64
+
+	inv  []float64  // scratch: 1/sⱼ² for the current predict
+	best []neighbor // scratch: the k best, nearest first
+}
+
+type neighbor struct {
+	dist2 float64
+	y     float64
+}
+
+var _ Learner = (*KNN)(nil)
+
+func newKNN(cfg KNNConfig, d int) *KNN {
+	return &KNN{
+		cfg:  cfg,
+		d:    d,
+		w:    newRows(d, cfg.Window, cfg.Max),
+		moms: make([]window.Moments, d),
+		inv:  make([]float64, d),
+		best: make([]neighbor, 0, cfg.K),
+	}
+}
+
+// Advance implements Learner.
+func (m *KNN) Advance(t int64) {
+	m.w.advance(t)
+	for s, ok := m.w.popExpired(); ok; s, ok = m.w.popExpired() {
+		m.forget(s)
+	}
+}
+
+// Trained implements Learner.
+func (m *KNN) Trained() int64 { return m.trained }
+
+// Len returns the number of events in the window.
+func (m *KNN) Len() int { return m.w.len() }
+
+// Predict implements Learner.
+func (m *KNN) Predict(q []float64) (float64, bool) {
+	if len(q) != m.d {
+		panic(badDim)
+	}
+	n := m.w.len()
+	if n == 0 {
+		return 0, false
+	}
+	zscore := m.cfg.Scale == ScaleZScore
+	if zscore {
+		for j := range m.inv {
+			v := m.moms[j].PopVariance()
+			if v > 0 {
+				m.inv[j] = 1 / v
+			} else {
+				m.inv[j] = 1
+			}
+		}
+	}
+	k := m.cfg.K
+	best := m.best[:0]
+	worst := math.Inf(1)
+	d := m.d
+	size := m.w.idx.Size()
+	s := m.w.idx.Slot(n - 1) // newest first, so that ties keep the more recent
+	for c := 0; c < n; c++ {
+		row := m.w.x[s*d : s*d+d]
+		var sum float64
+		if zscore {
+			for j, v := range row {
+				diff := v - q[j]
+				sum += diff * diff * m.inv[j]
+			}
+		} else {
+			for j, v := range row {
+				diff := v - q[j]
+				sum += diff * diff
+			}
+		}
+		if sum < worst || len(best) < k {
+			best = insertNeighbor(best, k, neighbor{sum, m.w.y[s]})
+			if len(best) == k {
+				worst = best[k-1].dist2
+			}
+		}
+		if s--; s < 0 {
+			s = size - 1
+		}
+	}
+	m.best = best
+	if m.cfg.Weight == WeightInverse {
+		return inverseWeighted(best), true
+	}
+	var sum float64
+	for _, b := range best {
+		sum += b.y
+	}
+	return sum / float64(len(best)), true
+}
+
+// insertNeighbor inserts nb into best (sorted by distance, at most k long)
+// after every entry at the same distance: those were seen first, so they are
+// more recent.
+func insertNeighbor(best []neighbor, k int, nb neighbor) []neighbor {
+	i := len(best)
+	for i > 0 && best[i-1].dist2 > nb.dist2 {
+		i--
+	}
+	if len(best) < k {
+		best = append(best, neighbor{})
+	} else if i == k {
+		return best
+	}
+	copy(best[i+1:], best[i:len(best)-1])
+	best[i] = nb
+	return best
+}
+
+func inverseWeighted(best []neighbor) float64 {
+	if best[0].dist2 == 0 {
+		var sum float64
+		n := 0
+		for _, b := range best {
+			if b.dist2 != 0 {
+				break
+			}
+			sum += b.y
+			n++
+		}
+		return sum / float64(n)
+	}
+	var num, den float64
+	for _, b := range best {
+		w := 1 / math.Sqrt(b.dist2)
+		num += w * b.y
+		den += w
+	}
+	return num / den
+}
+
+// Learn implements Learner.
+func (m *KNN) Learn(x []float64, y float64, t int64) {
+	if len(x) != m.d {
+		panic(badDim)
+	}
+	m.Advance(t)
+	if s, ok := m.w.makeRoom(); ok {
+		m.forget(s)
+	}
+	m.w.push(x, y, t)
+	if m.cfg.Scale == ScaleZScore {
+		for j, v := range x {
+			m.moms[j].Add(v)
+		}
+		if m.evicted >= max(m.w.idx.Size(), 1) {
+			m.rebuild()
+		}
+	}
+	m.trained++
+}
+
+// forget removes the row in slot s (just popped) from the running moments.
+func (m *KNN) forget(s int) {
+	if m.cfg.Scale != ScaleZScore {
+		return
+	}
+	for j, v := range m.w.row(s) {
+		m.moms[j].Remove(v)
+	}
+	m.evicted++
+}
+
+// rebuild recomputes the moments from the window's contents.
+func (m *KNN) rebuild() {
+	for j := range m.moms {
+		m.moms[j].Reset()
+	}
+	for i := 0; i < m.w.len(); i++ {
+		for j, v := range m.w.row(m.w.idx.Slot(i)) {
+			m.moms[j].Add(v)
+		}
+	}
+	m.evicted = 0
+}
+
+func (m *KNN) encode(w *encoder) {
+	w.i64(m.trained)
+	w.int(m.evicted)
+	m.w.encode(w)
+	for i := range m.moms {
+		n, mean, m2 := m.moms[i].State()
+		w.i64(n)
+		w.f64(mean)
+		w.f64(m2)
+	}
+}
+
+func (m *KNN) decode(r *decoder) error {
+	m.trained = r.i64()
+	m.evicted = r.int()
+	m.w.decode(r)
+	for i := range m.moms {
+		n, mean, m2 := r.i64(), r.f64(), r.f64()
+		m.moms[i].SetState(n, mean, m2)
+	}
+	return r.err
+}

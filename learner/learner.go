@@ -1,0 +1,51 @@
+package learner
+
+// Learner is one online regression model. For every event the Engine calls,
+// in this order: Advance(t) when the event has a time, Predict(x) — whose
+// answer is scored against the target before the learner sees it — and then
+// Learn(x, y, t). x has the dimension the learner was built for, in schema
+// order; a wrong length panics (a programmer error).
+//
+// Implementations are not safe for concurrent use: Predict uses scratch space
+// held by the learner. The Engine owns its learners on one goroutine; readers
+// work on snapshots (copies made with Clone or decoded from state bytes).
+type Learner interface {
+	// Advance moves the learner's event clock to t (Unix nanoseconds),
+	// evicting what a time window no longer covers. Learners without a time
+	// window ignore it.
+	Advance(t int64)
+	// Predict returns the prediction for x and whether the learner is ready
+	// (see Ready in DESIGN.md: enough events trained for every coefficient,
+	// or a non-empty window).
+	Predict(x []float64) (y float64, ok bool)
+	// Learn trains on one labelled event at time t (0 when the event has no
+	// time and the learner does not need one).
+	Learn(x []float64, y float64, t int64)
+	// Trained returns the number of events trained on.
+	Trained() int64
+
+	encode(w *encoder)
+	decode(r *decoder) error
+}
+
+// Coefficients is implemented by learners with a linear model: it returns the
+// current coefficient vector (intercept first when there is one). dst is
+// reused when long enough.
+type Coefficients interface {
+	Coefficients(dst []float64) []float64
+}
+
+// New builds the learner of spec s for d-dimensional feature vectors.
+func New(s *Spec, d int) Learner {
+	switch s.Kind {
+	case KindKNN:
+		return newKNN(s.KNN, d)
+	case KindRLS:
+		return newRLS(s.RLS, d)
+	case KindSlidingRLS:
+		return newSliding(s.Sliding, d)
+	case KindMean:
+		return newMean(s.Mean)
+	}
+	panic("learner: unknown kind " + s.Kind.String())
+}

@@ -1,0 +1,96 @@
+package learner
+
+import "time"
+
+// Report is a snapshot of every learner's prequential metrics; it is the
+// object `tidemark replay --json` prints and GET /v1/learners serves.
+type Report struct {
+	Events          int64           `json:"events"` // events applied (trained on)
+	Rejected        int64           `json:"rejected"`
+	Duplicates      int64           `json:"duplicates"`
+	IgnoredFeatures int64           `json:"ignored_features"`
+	Keys            int             `json:"keys"`
+	Positions       []Position      `json:"positions"`
+	Learners        []LearnerReport `json:"learners"`
+}
+
+// LearnerReport is one learner's metrics, overall and (optionally) per key.
+type LearnerReport struct {
+	Name string `json:"name"`
+	Spec string `json:"spec"`
+	Kind string `json:"kind"`
+	Metrics
+	// Skill is 1 − rmse/rmse_baseline against the first mean learner
+	// configured; nil without one or before both have scored.
+	Skill *float64    `json:"skill"`
+	Drift DriftReport `json:"drift"`
+	Keys  []KeyReport `json:"keys,omitempty"`
+}
+
+// KeyReport is a learner's metrics on one key.
+type KeyReport struct {
+	Key string `json:"key"`
+	Metrics
+	Skill *float64 `json:"skill"`
+	Drift string   `json:"drift"`
+}
+
+// DriftReport is a learner's drift watch: the most severe state over its
+// keys, the number of alarms and where the last fired.
+type DriftReport struct {
+	State     string       `json:"state"`
+	Alarms    int64        `json:"alarms"`
+	LastAlarm *AlarmReport `json:"last_alarm"`
+}
+
+// AlarmReport locates an alarm.
+type AlarmReport struct {
+	Position Position `json:"position"`
+	Key      string   `json:"key"`
+	Time     string   `json:"time,omitempty"`
+}
+
+// Report builds the report; withKeys adds per-key metrics.
+func (e *Engine) Report(withKeys bool) Report {
+	r := Report{Events: e.applied, Rejected: e.rejected, Duplicates: e.duplicates, IgnoredFeatures: e.ignored,
+		Keys: len(e.keys), Positions: e.Positions()}
+	keys := e.sortedKeys()
+	for i := range e.cfg.Learners {
+		s := &e.cfg.Learners[i]
+		t := &e.totals[i]
+		lr := LearnerReport{Name: s.Name, Spec: s.Text, Kind: s.Kind.String(), Metrics: t.score.Metrics()}
+		if e.baseline >= 0 {
+			lr.Skill = skill(&t.score, &e.totals[e.baseline].score)
+		}
+		state := Stable
+		for _, ks := range keys {
+			state = max(state, ks.drift[i].State())
+			if withKeys {
+				kr := KeyReport{Key: ks.key, Metrics: ks.scores[i].Metrics(), Drift: ks.drift[i].State().String()}
+				if e.baseline >= 0 {
+					kr.Skill = skill(&ks.scores[i], &ks.scores[e.baseline])
+				}
+				lr.Keys = append(lr.Keys, kr)
+			}
+		}
+		lr.Drift = DriftReport{State: state.String(), Alarms: t.alarms}
+		if a := t.lastAlarm; a != nil {
+			lr.Drift.LastAlarm = &AlarmReport{Position: a.Position, Key: a.Key}
+			if a.Time != 0 {
+				lr.Drift.LastAlarm.Time = time.Unix(0, a.Time).UTC().Format(time.RFC3339Nano)
+			}
+		}
+		r.Learners = append(r.Learners, lr)
+	}
+	return r
+}
+
+// skill is 1 − rmse/rmse_baseline, or nil when either has no score or the
+// baseline's error is zero.
+func skill(s, base *Scorer) *float64 {
+	m, b := s.Metrics(), base.Metrics()
+	if m.RMSE == nil || b.RMSE == nil || *b.RMSE == 0 {
+		return nil
+	}
+	return ptr(1 - *m.RMSE / *b.RMSE)
+}

@@ -1,0 +1,137 @@
+package learner
+
+import "tidemark/window"
+
+// rows is the window of labelled rows a windowed learner keeps: d features,
+// a target and an event time per row, rows stored contiguously in slot order
+// (slot s occupies x[s*d:(s+1)*d]) so that a scan over the window streams
+// through memory. Its bookkeeping is a window.Index.
+//
+// Bounds: a Count window holds the last Count rows, storage allocated up
+// front; a Span window holds rows no older than newest − Span (newest = the
+// latest event time seen), and an All window every row, both up to max rows,
+// storage doubling from a small start.
+type rows struct {
+	d      int
+	x      []float64
+	y      []float64
+	t      []int64
+	idx    window.Index
+	span   int64
+	limit  int // hard cap on rows held
+	newest int64
+	seen   bool
+}
+
+const rowsInitial = 64
+
+func newRows(d int, w Window, max int) rows {
+	r := rows{d: d, span: int64(w.Span), limit: max}
+	size := min(max, rowsInitial)
+	if w.Count > 0 {
+		r.limit, size = w.Count, w.Count
+	}
+	r.alloc(size)
+	return r
+}
+
+func (r *rows) alloc(size int) {
+	r.x, r.y, r.t = make([]float64, size*r.d), make([]float64, size), make([]int64, size)
+	r.idx = window.NewIndex(size)
+}
+
+func (r *rows) len() int { return r.idx.Len() }
+
+// row returns the features in slot s.
+func (r *rows) row(s int) []float64 { return r.x[s*r.d : (s+1)*r.d : (s+1)*r.d] }
+
+// advance moves the clock to t when it is later than the newest time seen.
+func (r *rows) advance(t int64) {
+	if !r.seen || t > r.newest {
+		r.newest, r.seen = t, true
+	}
+}
+
+// popExpired removes the oldest row if a time window no longer covers it and
+// returns its slot, readable until the next push.
+func (r *rows) popExpired() (slot int, ok bool) {
+	if r.span == 0 || r.idx.Len() == 0 {
+		return 0, false
+	}
+	s := r.idx.Slot(0)
+	if r.t[s] >= r.newest-r.span {
+		return 0, false
+	}
+	return r.idx.Pop(), true
+}
+
+// makeRoom ensures there is a free slot for one more row: it grows storage
+// while below the cap, and otherwise evicts the oldest row, returning its slot.
+func (r *rows) makeRoom() (slot int, ok bool) {
+	if !r.idx.Full() {
+		return 0, false
+	}
+	if n := r.idx.Size(); n < r.limit {
+		r.grow(min(2*n, r.limit))
+		return 0, false
+	}
+	return r.idx.Pop(), true
+}
+
+func (r *rows) grow(size int) {
+	old := *r
+	r.alloc(size)
+	for i := 0; i < old.idx.Len(); i++ {
+		s := old.idx.Slot(i)
+		copy(r.row(i), old.row(s))
+		r.y[i], r.t[i] = old.y[s], old.t[s]
+	}
+	r.idx.Restore(size, old.idx.Len())
+}
+
+// push stores a row in the slot makeRoom freed and returns that slot.
+func (r *rows) push(x []float64, y float64, t int64) int {
+	s := r.idx.Push()
+	copy(r.row(s), x)
+	r.y[s], r.t[s] = y, t
+	return s
+}
+
+func (r *rows) encode(w *encoder) {
+	w.int(r.d)
+	w.i64(r.newest)
+	w.bool(r.seen)
+	n := r.idx.Len()
+	w.int(n)
+	for i := 0; i < n; i++ {
+		s := r.idx.Slot(i)
+		for _, v := range r.row(s) {
+			w.f64(v)
+		}
+		w.f64(r.y[s])
+		w.i64(r.t[s])
+	}
+}
+
+func (r *rows) decode(dec *decoder) {
+	dec.expect(r.d, "row dimension")
+	r.newest = dec.i64()
+	r.seen = dec.bool()
+	n := dec.count(r.limit, 8*(r.d+2))
+	if dec.err != nil {
+		return
+	}
+	size := r.idx.Size()
+	for size < n {
+		size = min(2*size, r.limit)
+	}
+	r.alloc(size)
+	for i := 0; i < n; i++ {
+		for j := range r.row(i) {
+			r.row(i)[j] = dec.f64()
+		}
+		r.y[i] = dec.f64()
+		r.t[i] = dec.i64()
+	}
+	r.idx.Restore(size, n)
+}

@@ -1,0 +1,111 @@
+package learner
+
+import (
+	"math"
+	"math/rand/v2"
+	"testing"
+)
+
+const handTol = 1e-12 // hand computations: exact decimals, a few ulps of rounding
+
+// TestScorerSixEvents checks prequential metrics on six events computed by
+// hand, errors e = target − prediction = 2, −1, 0, 4, −3, 1:
+//
+//	MAE  = (2+1+0+4+3+1)/6 = 11/6
+//	RMSE = √((4+1+0+16+9+1)/6) = √(31/6)
+//	bias = (2−1+0+4−3+1)/6 = 0.5
+//	fading, α = 0.9 (Gama et al. 2013): S = 2, 2.8, 2.52, 6.268, 8.6412, 8.77708
+//	  and B = 1, 1.9, 2.71, 3.439, 4.0951, 4.68559, so MAE_α = 8.77708/4.68559;
+//	  for e²: S = 4, 4.6, 4.14, 19.726, 26.7534, 25.07806, RMSE_α = √(25.07806/4.68559)
+//	recent window of 4 (errors 0, 4, −3, 1): MAE 2, RMSE √6.5, bias 0.5
+func TestScorerSixEvents(t *testing.T) {
+	s := newScorer(4, 0.9)
+	targets := []float64{10, 12, 9, 15, 7, 11}
+	preds := []float64{8, 13, 9, 11, 10, 10}
+	for i := range targets {
+		s.Score(targets[i], preds[i])
+	}
+	s.Unscore()
+	m := s.Metrics()
+	checks := []struct {
+		name      string
+		got, want float64
+	}{
+		{"mae", *m.MAE, 11.0 / 6},
+		{"rmse", *m.RMSE, math.Sqrt(31.0 / 6)},
+		{"bias", *m.Bias, 0.5},
+		{"fading mae", *m.Fading.MAE, 8.77708 / 4.68559},
+		{"fading rmse", *m.Fading.RMSE, math.Sqrt(25.07806 / 4.68559)},
+		{"recent mae", *m.Recent.MAE, 2},
+		{"recent rmse", *m.Recent.RMSE, math.Sqrt(6.5)},
+		{"recent bias", *m.Recent.Bias, 0.5},
+	}
+	for _, c := range checks {
+		if math.Abs(c.got-c.want) > handTol*math.Max(1, math.Abs(c.want)) {
+			t.Errorf("%s = %.15g, hand computation %.15g", c.name, c.got, c.want)
+		}
+	}
+	if m.Scored != 6 || m.Unscored != 1 || m.Recent.Events != 4 {
+		t.Errorf("scored %d unscored %d recent %d, want 6, 1, 4", m.Scored, m.Unscored, m.Recent.Events)
+	}
+}
+
+// TestPageHinkleyHand: raw inputs 1, 1, 1, 5, 5 with δ = 0.1, λ = 3, by hand:
+//
+//	t  x  x̄     mₜ = mₜ₋₁ + x − x̄ − δ   Mₜ     PH
+//	1  1  1     −0.1                    −0.1   0
+//	2  1  1     −0.2                    −0.2   0
+//	3  1  1     −0.3                    −0.3   0
+//	4  5  2      2.6                    −0.3   2.9  (> λ/2: warning)
+//	5  5  2.6    4.9                    −0.3   5.2  (> λ: alarm)
+func TestPageHinkleyHand(t *testing.T) {
+	p := newPageHinkley(DriftConfig{Delta: 0.1, Lambda: 3, MinEvents: 1, Raw: true})
+	xs := []float64{1, 1, 1, 5}
+	for i, x := range xs {
+		if p.Add(x) {
+			t.Fatalf("alarm at event %d, want none before event 5", i+1)
+		}
+	}
+	if got := p.Statistic(); math.Abs(got-2.9) > handTol {
+		t.Errorf("PH after event 4 = %.15g, hand computation 2.9", got)
+	}
+	if p.State() != Warning {
+		t.Errorf("state %v after event 4, want warning", p.State())
+	}
+	if !p.Add(5) {
+		t.Fatalf("no alarm at event 5 (PH would be 5.2 > 3)")
+	}
+	if p.State() != Drift || p.Alarms() != 1 {
+		t.Errorf("state %v alarms %d, want drift and 1", p.State(), p.Alarms())
+	}
+}
+
+func TestPageHinkleyGaussianShift(t *testing.T) {
+	rng := rand.New(rand.NewPCG(2026, 12))
+	p := newPageHinkley(DriftConfig{})
+	for i := 0; i < 1000; i++ {
+		if p.Add(rng.NormFloat64()) {
+			t.Fatalf("false alarm at event %d before the shift", i)
+		}
+	}
+	for i := 0; i < 100; i++ {
+		if p.Add(3 + rng.NormFloat64()) {
+			t.Logf("3σ shift detected %d events after it", i+1)
+			return
+		}
+	}
+	t.Fatal("no alarm within 100 events of a 3σ shift")
+}
+
+func TestPageHinkleyStationaryNoAlarm(t *testing.T) {
+	for seed := uint64(1); seed <= 3; seed++ {
+		rng := rand.New(rand.NewPCG(seed, 1))
+		p := newPageHinkley(DriftConfig{})
+		for i := 0; i < 100_000; i++ {
+			// absolute values of a Gaussian: the shape of a stable model's |error|
+			if p.Add(math.Abs(rng.NormFloat64())) {
+				t.Fatalf("seed %d: false alarm at event %d", seed, i)
+			}
+		}
+	}
+}
