@@ -103,13 +103,13 @@ func (s *Scorer) Unscore() { s.Unscored++ }
 // Metrics is a snapshot of a Scorer. Error fields are nil when nothing has
 // been scored, so that JSON shows null rather than a made-up zero.
 type Metrics struct {
-	Scored   int64    `json:"scored"`
-	Unscored int64    `json:"unscored"`
-	MAE      *float64 `json:"mae"`
-	RMSE     *float64 `json:"rmse"`
-	Bias     *float64 `json:"bias"`
-	Recent   RecentMetrics  `json:"recent"`
-	Fading   Fading   `json:"fading"`
+	Scored   int64         `json:"scored"`
+	Unscored int64         `json:"unscored"`
+	MAE      *float64      `json:"mae"`
+	RMSE     *float64      `json:"rmse"`
+	Bias     *float64      `json:"bias"`
+	Recent   RecentMetrics `json:"recent"`
+	Fading   Fading        `json:"fading"`
 }
 
 // RecentMetrics is the error over the recent window of scored events.
