@@ -40,18 +40,9 @@ func WriteTable(w io.Writer, r learner.Report) error {
 	if err := tw.Flush(); err != nil {
 		return err
 	}
-	_, err := fmt.Fprintf(w, "\nrecent = the last %s scored events; skill = 1 − rmse/rmse(first mean learner).\n"+
-		"Look at a learner's recent error before acting on its predictions.\n", recentSize(r))
+	_, err := fmt.Fprintf(w, "\nrecent = the last %d scored events; skill = 1 − rmse/rmse(first mean learner).\n"+
+		"Look at a learner's recent error before acting on its predictions.\n", r.RecentWindow)
 	return err
-}
-
-func recentSize(r learner.Report) string {
-	for _, l := range r.Learners {
-		if l.Recent.Events > 0 {
-			return fmt.Sprint(l.Recent.Events)
-		}
-	}
-	return "N"
 }
 
 func num(p *float64) string {

@@ -101,18 +101,20 @@ func (m *KNN) Predict(q []float64) (float64, bool) {
 	worst := math.Inf(1)
 	d := m.d
 	size := m.w.idx.Size()
+	q = q[:d:d]
+	inv := m.inv[:d:d]
 	s := m.w.idx.Slot(n - 1) // newest first, so that ties keep the more recent
 	for c := 0; c < n; c++ {
-		row := m.w.x[s*d : s*d+d]
+		row := m.w.x[s*d : s*d+d : s*d+d]
 		var sum float64
 		if zscore {
-			for j, v := range row {
-				diff := v - q[j]
-				sum += diff * diff * m.inv[j]
+			for j := range row {
+				diff := row[j] - q[j]
+				sum += diff * diff * inv[j]
 			}
 		} else {
-			for j, v := range row {
-				diff := v - q[j]
+			for j := range row {
+				diff := row[j] - q[j]
 				sum += diff * diff
 			}
 		}

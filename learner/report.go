@@ -10,6 +10,7 @@ type Report struct {
 	Duplicates      int64           `json:"duplicates"`
 	IgnoredFeatures int64           `json:"ignored_features"`
 	Keys            int             `json:"keys"`
+	RecentWindow    int             `json:"recent_window"` // scored events in each learner's "recent" metrics
 	Positions       []Position      `json:"positions"`
 	Learners        []LearnerReport `json:"learners"`
 }
@@ -53,7 +54,7 @@ type AlarmReport struct {
 // Report builds the report; withKeys adds per-key metrics.
 func (e *Engine) Report(withKeys bool) Report {
 	r := Report{Events: e.applied, Rejected: e.rejected, Duplicates: e.duplicates, IgnoredFeatures: e.ignored,
-		Keys: len(e.keys), Positions: e.Positions()}
+		Keys: len(e.keys), RecentWindow: e.cfg.Score.Recent, Positions: e.Positions()}
 	keys := e.sortedKeys()
 	for i := range e.cfg.Learners {
 		s := &e.cfg.Learners[i]
