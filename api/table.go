@@ -40,6 +40,21 @@ func WriteTable(w io.Writer, r learner.Report) error {
 	if err := tw.Flush(); err != nil {
 		return err
 	}
+	for _, l := range ls {
+		if len(l.Keys) == 0 {
+			continue
+		}
+		fmt.Fprintf(w, "\n%s, per key\n", l.Name)
+		tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
+		fmt.Fprintln(tw, "key\tscored\tunscored\tmae\trmse\tbias\trecent rmse\tskill\tdrift\t")
+		for _, k := range l.Keys {
+			fmt.Fprintf(tw, "%s\t%d\t%d\t%s\t%s\t%s\t%s\t%s\t%s\t\n", k.Key, k.Scored, k.Unscored,
+				num(k.MAE), num(k.RMSE), num(k.Bias), num(k.Recent.RMSE), num(k.Skill), k.Drift)
+		}
+		if err := tw.Flush(); err != nil {
+			return err
+		}
+	}
 	_, err := fmt.Fprintf(w, "\nrecent = the last %d scored events; skill = 1 − rmse/rmse(first mean learner).\n"+
 		"Look at a learner's recent error before acting on its predictions.\n", r.RecentWindow)
 	return err

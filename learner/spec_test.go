@@ -2,6 +2,7 @@ package learner
 
 import (
 	"errors"
+	"fmt"
 	"math"
 	"strings"
 	"testing"
@@ -168,4 +169,14 @@ func TestSchemaVector(t *testing.T) {
 	if n, err := s.Vector(x, &extra); err != nil || n != 2 {
 		t.Errorf("extra features: ignored %d err %v, want 2 and nil", n, err)
 	}
+}
+
+func ExampleParseSpec() {
+	s, _ := ParseSpec("knn:k=5,window=6h,name=near")
+	fmt.Println(s.Name, s.Kind, s.KNN.K, s.KNN.Window, s.NeedsTime())
+	_, err := ParseSpec("rls:forget=2")
+	fmt.Println(err)
+	// Output:
+	// near knn 5 6h0m0s true
+	// learner: invalid spec: spec "rls:forget=2": forget=2: want a number in (0, 1]
 }

@@ -9,6 +9,7 @@ import (
 	"io"
 	"os"
 	"os/signal"
+	"strings"
 
 	"tidemark/api"
 	"tidemark/api/intake"
@@ -21,19 +22,24 @@ type engineFlags struct {
 	timeFeatures bool
 	hashBuckets  int
 	maxKeys      int
+	numeric      string
+	categorical  string
 }
 
 func (f *engineFlags) register(fs *flag.FlagSet) {
 	fs.Var(&f.learners, "learner", "learner spec `KIND[:PARAM=VALUE,...]`, repeatable (knn, rls, sliding-rls, mean)")
 	fs.BoolVar(&f.timeFeatures, "time-features", false, "add hour of day and day of week (sin/cos) from the event time")
 	fs.IntVar(&f.hashBuckets, "hash-buckets", learner.DefaultHashBuckets, "buckets for hashed categorical features")
+	fs.StringVar(&f.numeric, "numeric", "", "fix the schema's numeric features, comma-separated (default: from the first valid event)")
+	fs.StringVar(&f.categorical, "categorical", "", "fix the schema's categorical (string) features, comma-separated")
 	fs.IntVar(&f.maxKeys, "max-keys", learner.DefaultMaxKeys, "cap on distinct keys; events for new keys past it are rejected")
 }
 
 func (f *engineFlags) config() (learner.Config, error) {
 	cfg := learner.Config{
-		Features: learner.FeatureConfig{HashBuckets: f.hashBuckets, TimeFeatures: f.timeFeatures},
-		MaxKeys:  f.maxKeys,
+		Features: learner.FeatureConfig{HashBuckets: f.hashBuckets, TimeFeatures: f.timeFeatures,
+			Numeric: splitList(f.numeric), Categorical: splitList(f.categorical)},
+		MaxKeys: f.maxKeys,
 	}
 	var errs []error
 	for _, text := range f.learners {
@@ -54,6 +60,16 @@ func (f *engineFlags) config() (learner.Config, error) {
 		return cfg, err
 	}
 	return cfg, cfg.Validate()
+}
+
+func splitList(s string) []string {
+	var out []string
+	for _, v := range strings.Split(s, ",") {
+		if v = strings.TrimSpace(v); v != "" {
+			out = append(out, v)
+		}
+	}
+	return out
 }
 
 func runReplay(args []string, stdout, stderr io.Writer) error {
