@@ -2,6 +2,7 @@ package learner
 
 import (
 	"crypto/sha256"
+	"encoding/hex"
 	"errors"
 	"fmt"
 	"math"
@@ -299,6 +300,32 @@ func (e *Engine) sortedKeys() []*keyState {
 	return out
 }
 
-// Digest returns the SHA-256 of the engine's encoded state: two engines with
-// the same configuration that applied the same events have the same digest.
-func (e *Engine) Digest() [32]byte { return sha256.Sum256(e.Encode(nil)) }
+// Digest returns the hex SHA-256 of a canonical description of the
+// configuration (learner names and canonical specs, features, key cap,
+// scoring and drift settings, defaults filled in). A checkpoint records it so
+// that a resume under another configuration is refused.
+func (c Config) Digest() string {
+	c.Score = c.Score.withDefaults()
+	c.Drift = c.Drift.withDefaults()
+	if c.MaxKeys == 0 {
+		c.MaxKeys = DefaultMaxKeys
+	}
+	h := sha256.New()
+	for _, s := range c.Learners {
+		fmt.Fprintf(h, "learner %q %s\n", s.Name, s.Canonical())
+	}
+	f := c.Features
+	fmt.Fprintf(h, "numeric %q\ncategorical %q\nbuckets %d\ntime %t\n", f.Numeric, f.Categorical, bucketsOf(f), f.TimeFeatures)
+	fmt.Fprintf(h, "max_keys %d\nscore %d %d %g\ndrift %g %g %d %t\n", c.MaxKeys, c.Score.Recent, c.Score.KeyRecent, c.Score.Fading,
+		c.Drift.Delta, c.Drift.Lambda, c.Drift.MinEvents, c.Drift.Raw)
+	return hex.EncodeToString(h.Sum(nil))
+}
+
+// Describe returns the learner specs as written, for messages.
+func (c Config) Describe() string {
+	var names []string
+	for _, s := range c.Learners {
+		names = append(names, s.Text)
+	}
+	return strings.Join(names, " ")
+}

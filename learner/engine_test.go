@@ -219,3 +219,40 @@ func mustJSON(t *testing.T, v any) string {
 	}
 	return string(b)
 }
+
+// TestEngineSectionsRestoreOnePartition: the state of one partition decodes
+// without the others, and its keys predict as before.
+func TestEngineSectionsRestoreOnePartition(t *testing.T) {
+	cfg := Config{Features: FeatureConfig{HashBuckets: 2}}
+	a := mustEngine(t, cfg, "rls:forget=0.99", "knn:k=3,window=50")
+	for i, ev := range stream(600, 8) {
+		part := int32(i % 3) // keys north, south, east land in partitions 0, 1, 2
+		a.Apply(Position{part, int64(i)}, ev)
+	}
+	secs := a.Sections()
+	if len(secs) != 4 || !secs[0].Global || secs[2].Partition != 1 {
+		t.Fatalf("sections %d, want global + 3 partitions", len(secs))
+	}
+	b := mustEngine(t, cfg, "rls:forget=0.99", "knn:k=3,window=50")
+	if err := b.DecodeSections([]Section{secs[0], secs[2]}); err != nil {
+		t.Fatal(err)
+	}
+	q := &Event{Features: []Feature{{Name: "a", Num: 0.5}, {Name: "b", Num: 3}, {Name: "shift", Str: "day", IsStr: true}}}
+	for _, l := range []string{"rls:forget=0.99", "knn:k=3,window=50"} {
+		ya, _, err1 := a.Predict("south", l, q)
+		yb, _, err2 := b.Predict("south", l, q)
+		if err1 != nil || err2 != nil || ya != yb {
+			t.Errorf("%s: partition-only restore predicts %v (%v), full %v (%v)", l, yb, err2, ya, err1)
+		}
+	}
+	if _, _, err := b.Predict("north", "rls:forget=0.99", q); !errors.Is(err, ErrUnknownKey) {
+		t.Errorf("key of an unrestored partition: %v, want ErrUnknownKey", err)
+	}
+	if a.Config().Digest() != b.Config().Digest() {
+		t.Error("same configuration, different digests")
+	}
+	c := mustEngine(t, cfg, "rls:forget=0.98", "knn:k=3,window=50")
+	if c.Config().Digest() == a.Config().Digest() {
+		t.Error("different configurations, same digest")
+	}
+}

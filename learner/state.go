@@ -1,33 +1,51 @@
 package learner
 
 import (
+	"crypto/sha256"
 	"fmt"
 	"slices"
 )
 
 // The engine's state encoding. Every integer is little-endian of fixed width,
 // every float its IEEE-754 bits, strings and lists length-prefixed; keys are
-// written sorted by (partition, key) and partitions sorted, so the bytes are
-// a deterministic function of the state. Layout:
+// written sorted and partitions in ascending order, so the bytes are a
+// deterministic function of the state.
 //
-//	magic "TMST", u32 state version
-//	learner count, and each learner's canonical spec (checked on decode)
-//	schema: numeric names, categorical names, buckets, time flag (or absent)
-//	counters: applied, rejected, duplicates, ignored features, alarms
-//	partitions: count, then (partition, high-water offset) pairs
-//	per learner overall: scorer, alarm count, last alarm (or absent)
-//	keys: count, then per key: name, partition, and per learner its model
-//	state, scorer and drift detector
+// The state is cut into sections so that one stream partition's learners can
+// be read without decoding the others:
+//
+//	global section: magic "TMSG", u32 state version; learner count and each
+//	  learner's canonical spec (checked on decode); schema (or absent);
+//	  counters applied, rejected, duplicates, ignored features, alarms; per
+//	  learner overall: scorer, alarm count, last alarm (or absent)
+//	partition section, one per partition seen, ascending: magic "TMSP",
+//	  partition, high-water offset; key count, then per key (sorted): name,
+//	  and per learner its model state, scorer and drift detector
+//
+// The state digest is the SHA-256 of the sections' bytes concatenated in
+// that order (global first). Encode wraps the sections in a container
+// (u32 count, then per section a partition flag, partition and length).
 const (
-	stateMagic   = "TMST"
-	stateVersion = 1
-	maxNames     = MaxFeatures
+	globalMagic    = "TMSG"
+	partitionMagic = "TMSP"
+	stateVersion   = 1
+	maxNames       = MaxFeatures
+	maxSections    = 1 << 20
 )
 
-// Encode appends the engine's state to dst and returns it.
-func (e *Engine) Encode(dst []byte) []byte {
-	w := &encoder{b: dst}
-	w.b = append(w.b, stateMagic...)
+// Section is one independently decodable part of the engine's state: the
+// global part, or one stream partition's keys and high-water mark.
+type Section struct {
+	Global    bool
+	Partition int32 // meaningful when !Global
+	Bytes     []byte
+}
+
+// Sections encodes the state: the global section first, then one per
+// partition in ascending order.
+func (e *Engine) Sections() []Section {
+	w := &encoder{}
+	w.b = append(w.b, globalMagic...)
 	w.u32(stateVersion)
 	w.int(len(e.cfg.Learners))
 	for i := range e.cfg.Learners {
@@ -45,12 +63,6 @@ func (e *Engine) Encode(dst []byte) []byte {
 	w.i64(e.duplicates)
 	w.i64(e.ignored)
 	w.i64(e.alarms)
-	pos := e.Positions()
-	w.int(len(pos))
-	for _, p := range pos {
-		w.u32(uint32(p.Partition))
-		w.i64(p.Offset)
-	}
 	for i := range e.totals {
 		t := &e.totals[i]
 		t.score.encode(w)
@@ -63,18 +75,201 @@ func (e *Engine) Encode(dst []byte) []byte {
 			w.i64(t.lastAlarm.Time)
 		}
 	}
+	out := []Section{{Global: true, Bytes: w.b}}
 	keys := e.sortedKeys()
-	w.int(len(keys))
-	for _, ks := range keys {
-		w.str(ks.key)
-		w.u32(uint32(ks.partition))
-		for i, l := range ks.learners {
-			l.encode(w)
-			ks.scores[i].encode(w)
-			ks.drift[i].encode(w)
+	for _, p := range e.Positions() {
+		w := &encoder{}
+		w.b = append(w.b, partitionMagic...)
+		w.u32(uint32(p.Partition))
+		w.i64(p.Offset)
+		i := 0
+		for i < len(keys) && keys[i].partition < p.Partition {
+			i++
 		}
+		j := i
+		for j < len(keys) && keys[j].partition == p.Partition {
+			j++
+		}
+		w.int(j - i)
+		for _, ks := range keys[i:j] {
+			w.str(ks.key)
+			for n, l := range ks.learners {
+				l.encode(w)
+				ks.scores[n].encode(w)
+				ks.drift[n].encode(w)
+			}
+		}
+		out = append(out, Section{Partition: p.Partition, Bytes: w.b})
+	}
+	return out
+}
+
+// Encode appends the whole state, its sections in a container, to dst.
+func (e *Engine) Encode(dst []byte) []byte {
+	w := &encoder{b: dst}
+	secs := e.Sections()
+	w.u32(uint32(len(secs)))
+	for _, s := range secs {
+		w.bool(s.Global)
+		w.u32(uint32(s.Partition))
+		w.int(len(s.Bytes))
+		w.b = append(w.b, s.Bytes...)
 	}
 	return w.b
+}
+
+// Digest returns the state digest: SHA-256 over the sections' bytes in
+// order. Two engines with the same configuration that applied the same
+// events have the same digest.
+func (e *Engine) Digest() [32]byte { return DigestSections(e.Sections()) }
+
+// DigestSections is the state digest of encoded sections.
+func DigestSections(secs []Section) [32]byte {
+	h := sha256.New()
+	for _, s := range secs {
+		h.Write(s.Bytes)
+	}
+	var d [32]byte
+	h.Sum(d[:0])
+	return d
+}
+
+// Decode replaces the state of e by the state Encode wrote into b; see
+// DecodeSections.
+func (e *Engine) Decode(b []byte) error {
+	r := &decoder{b: b}
+	n := int(r.u32())
+	if r.err == nil && (n < 1 || n > maxSections || n > len(b)/13) {
+		r.fail("bad section count")
+	}
+	var secs []Section
+	for i := 0; i < n && r.err == nil; i++ {
+		s := Section{Global: r.bool(), Partition: int32(r.u32())}
+		s.Bytes = r.take(r.count(len(b), 1))
+		secs = append(secs, s)
+	}
+	if r.err == nil && r.off != len(b) {
+		r.fail("trailing bytes")
+	}
+	if r.err != nil {
+		return r.err
+	}
+	return e.DecodeSections(secs)
+}
+
+// DecodeSections replaces the state of e, which must have been built with
+// the same learner configuration, by the state in secs: the global section
+// first, then every partition section. On error e is unchanged; the error
+// wraps ErrCorruptState, or ErrInvalidSpec when the learners in the state
+// differ from e's.
+func (e *Engine) DecodeSections(secs []Section) error {
+	if len(secs) == 0 || !secs[0].Global {
+		return fmt.Errorf("%w: the global section must come first", ErrCorruptState)
+	}
+	fresh, err := NewEngine(e.cfg)
+	if err != nil {
+		return err
+	}
+	if err := fresh.decodeGlobal(secs[0].Bytes); err != nil {
+		return err
+	}
+	for _, s := range secs[1:] {
+		if s.Global {
+			return fmt.Errorf("%w: two global sections", ErrCorruptState)
+		}
+		if err := fresh.decodePartition(s); err != nil {
+			return err
+		}
+	}
+	*e = *fresh
+	return nil
+}
+
+func (e *Engine) decodeGlobal(b []byte) error {
+	r := &decoder{b: b}
+	if string(r.take(len(globalMagic))) != globalMagic {
+		return fmt.Errorf("%w: bad magic in the global section", ErrCorruptState)
+	}
+	if v := r.u32(); v != stateVersion {
+		return fmt.Errorf("%w: state version %d, this build reads %d", ErrCorruptState, v, stateVersion)
+	}
+	n := r.count(1<<16, 4)
+	if r.err == nil && n != len(e.cfg.Learners) {
+		return fmt.Errorf("%w: the state has %d learners, the configuration %d", ErrInvalidSpec, n, len(e.cfg.Learners))
+	}
+	for i := 0; i < n && r.err == nil; i++ {
+		if got, want := r.str(1<<12), e.cfg.Learners[i].Canonical(); r.err == nil && got != want {
+			return fmt.Errorf("%w: learner %d is %s in the state but %s in the configuration", ErrInvalidSpec, i+1, got, want)
+		}
+	}
+	if r.bool() {
+		s := &Schema{Numeric: decodeNames(r), Categorical: decodeNames(r), Buckets: r.int(), Time: r.bool()}
+		if r.err == nil && (s.Buckets < 0 || s.Buckets > 1<<16 || (s.Buckets == 0) != (len(s.Categorical) == 0) ||
+			!slices.IsSorted(s.Numeric) || !slices.IsSorted(s.Categorical)) {
+			r.fail("bad schema")
+		}
+		if e.schema != nil && r.err == nil && !sameSchema(e.schema, s) {
+			return fmt.Errorf("%w: the state's feature schema differs from the configured one", ErrInvalidSpec)
+		}
+		e.schema = s
+	}
+	e.applied, e.rejected, e.duplicates, e.ignored, e.alarms = r.i64(), r.i64(), r.i64(), r.i64(), r.i64()
+	for i := range e.totals {
+		t := &e.totals[i]
+		t.score.decode(r)
+		t.alarms = r.i64()
+		if r.bool() {
+			t.lastAlarm = &Alarm{Position: Position{int32(r.u32()), r.i64()}, Key: r.str(MaxKeyBytes), Time: r.i64()}
+		}
+	}
+	if r.err == nil && r.off != len(b) {
+		r.fail("trailing bytes in the global section")
+	}
+	return r.err
+}
+
+func (e *Engine) decodePartition(s Section) error {
+	r := &decoder{b: s.Bytes}
+	if string(r.take(len(partitionMagic))) != partitionMagic {
+		return fmt.Errorf("%w: bad magic in the section of partition %d", ErrCorruptState, s.Partition)
+	}
+	part := int32(r.u32())
+	if r.err == nil && part != s.Partition {
+		return fmt.Errorf("%w: section of partition %d holds partition %d", ErrCorruptState, s.Partition, part)
+	}
+	if _, dup := e.hwm[part]; dup {
+		return fmt.Errorf("%w: partition %d appears twice", ErrCorruptState, part)
+	}
+	e.hwm[part] = r.i64()
+	nk := r.count(e.cfg.MaxKeys-len(e.keys), 8)
+	if nk > 0 && e.schema == nil {
+		r.fail("keys without a schema")
+	}
+	prev := ""
+	for i := 0; i < nk && r.err == nil; i++ {
+		key := r.str(MaxKeyBytes)
+		if _, dup := e.keys[key]; dup || (i > 0 && key <= prev) {
+			r.fail("keys out of order or repeated")
+			break
+		}
+		prev = key
+		ks := e.newKey(key, part)
+		for j, l := range ks.learners {
+			if err := l.decode(r); err != nil {
+				break
+			}
+			ks.scores[j].decode(r)
+			ks.drift[j].decode(r)
+		}
+		e.keys[key] = ks
+	}
+	if r.err == nil && r.off != len(s.Bytes) {
+		r.fail("trailing bytes")
+	}
+	if r.err != nil {
+		return fmt.Errorf("partition %d: %w", s.Partition, r.err)
+	}
+	return nil
 }
 
 func encodeNames(w *encoder, names []string) {
@@ -91,86 +286,6 @@ func decodeNames(r *decoder) []string {
 		out = append(out, r.str(MaxNameBytes))
 	}
 	return out
-}
-
-// Decode replaces the state of e, which must have been built with the same
-// learner configuration, by the state encoded in b. On error e is unchanged;
-// the error wraps ErrCorruptState, or ErrInvalidSpec when the learners in b
-// differ from e's.
-func (e *Engine) Decode(b []byte) error {
-	fresh, err := NewEngine(e.cfg)
-	if err != nil {
-		return err
-	}
-	r := &decoder{b: b}
-	if string(r.take(len(stateMagic))) != stateMagic {
-		return fmt.Errorf("%w: bad magic", ErrCorruptState)
-	}
-	if v := r.u32(); v != stateVersion {
-		return fmt.Errorf("%w: state version %d, this build reads %d", ErrCorruptState, v, stateVersion)
-	}
-	n := r.count(1<<16, 4)
-	if r.err == nil && n != len(e.cfg.Learners) {
-		return fmt.Errorf("%w: state has %d learners, configuration has %d", ErrInvalidSpec, n, len(e.cfg.Learners))
-	}
-	for i := 0; i < n && r.err == nil; i++ {
-		if got, want := r.str(1<<12), e.cfg.Learners[i].Canonical(); r.err == nil && got != want {
-			return fmt.Errorf("%w: learner %d is %s in the state, %s in the configuration", ErrInvalidSpec, i+1, got, want)
-		}
-	}
-	if r.bool() {
-		s := &Schema{Numeric: decodeNames(r), Categorical: decodeNames(r), Buckets: r.int(), Time: r.bool()}
-		if r.err == nil && (s.Buckets < 0 || s.Buckets > 1<<16 || (s.Buckets == 0) != (len(s.Categorical) == 0) ||
-			!slices.IsSorted(s.Numeric) || !slices.IsSorted(s.Categorical)) {
-			r.fail("bad schema")
-		}
-		if fresh.schema != nil && r.err == nil && !sameSchema(fresh.schema, s) {
-			return fmt.Errorf("%w: the state's feature schema differs from the configured one", ErrInvalidSpec)
-		}
-		fresh.schema = s
-	}
-	fresh.applied, fresh.rejected, fresh.duplicates, fresh.ignored, fresh.alarms = r.i64(), r.i64(), r.i64(), r.i64(), r.i64()
-	np := r.count(1<<20, 12)
-	for i := 0; i < np && r.err == nil; i++ {
-		fresh.hwm[int32(r.u32())] = r.i64()
-	}
-	for i := range fresh.totals {
-		t := &fresh.totals[i]
-		t.score.decode(r)
-		t.alarms = r.i64()
-		if r.bool() {
-			t.lastAlarm = &Alarm{Position: Position{int32(r.u32()), r.i64()}, Key: r.str(MaxKeyBytes), Time: r.i64()}
-		}
-	}
-	nk := r.count(fresh.cfg.MaxKeys, 8)
-	if nk > 0 && fresh.schema == nil {
-		r.fail("keys without a schema")
-	}
-	for i := 0; i < nk && r.err == nil; i++ {
-		key := r.str(MaxKeyBytes)
-		part := int32(r.u32())
-		if _, dup := fresh.keys[key]; dup {
-			r.fail("key twice")
-			break
-		}
-		ks := fresh.newKey(key, part)
-		for j, l := range ks.learners {
-			if err := l.decode(r); err != nil {
-				break
-			}
-			ks.scores[j].decode(r)
-			ks.drift[j].decode(r)
-		}
-		fresh.keys[key] = ks
-	}
-	if r.err == nil && r.off != len(b) {
-		r.fail("trailing bytes")
-	}
-	if r.err != nil {
-		return r.err
-	}
-	*e = *fresh
-	return nil
 }
 
 func sameSchema(a, b *Schema) bool {

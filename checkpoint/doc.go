@@ -1,0 +1,55 @@
+// Package checkpoint is tidemark's checkpoint file format and the versioned,
+// verified store of checkpoints on disk. It knows the engine's state only as
+// opaque, already deterministic section bytes.
+//
+// # File format, version 1
+//
+// All integers are little-endian.
+//
+//	offset  size   field
+//	0       8      magic "TMCKPT\r\n" (the CR LF catches text-mode mangling)
+//	8       4      format version, 1
+//	12      8      total file length in bytes, trailer included
+//	20      4      manifest length M
+//	24      M      manifest: UTF-8 JSON, the Manifest type
+//	24+M    4      section count S (at least 1)
+//	...     53·S   section table, one entry per section, in state order:
+//	                 u8 kind (0 global, 1 partition), u32 partition,
+//	                 u64 raw length, u64 stored length, 32-byte SHA-256 of the raw bytes
+//	...            the sections' bodies, in table order, each one zstd frame
+//	                 (RFC 8878) of its stored length
+//	L−4     4      CRC-32C (Castagnoli) of bytes 0..L−5
+//
+// The state digest state_sha256 in the manifest is the SHA-256 of the raw
+// section bytes concatenated in table order; it equals the engine's own state
+// digest, so two runs over the same events give checkpoints with the same
+// state_sha256 whatever their creation times. Each section is compressed on
+// its own, so one stream partition's state can be read without decompressing
+// the others (Store.LoadSections).
+//
+// # Verification
+//
+// A file is loaded only if every check passes, in this order: the magic; the
+// declared length equals the file's (a torn write is caught here); the CRC;
+// the format version; the manifest parses; the section table fits the file
+// exactly; the total raw length is within StoreConfig.MaxRawBytes (a guard
+// against decompression bombs, checked before anything is decompressed); each
+// body decompresses to exactly its raw length; each section's SHA-256; and the
+// state digest. A failing file yields an error wrapping ErrCorrupt (and a more
+// precise sentinel where there is one) with the file name and byte offset; it
+// is never loaded and never modified, and Store.Latest offers the newest
+// version that passes.
+//
+// # Store
+//
+// Files are named ckpt-<version, 20 digits>.tdmk so that names sort by
+// version. Versions increase by one from the newest file present. A write goes
+// to a temporary file (".tmp-" in its name), is synced, renamed into place, and
+// the directory is synced: a crash leaves either the old set or the new file,
+// never a partial one under a checkpoint name. Temporary files left by a crash
+// are ignored and removed when the store opens. A pin is an empty file
+// ckpt-<version>.pin. Retention keeps the newest StoreConfig.Retain versions and
+// every pinned one. The directory is created 0700 and files 0600.
+//
+// A Store is safe for concurrent use.
+package checkpoint

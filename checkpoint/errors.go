@@ -1,0 +1,20 @@
+package checkpoint
+
+import "errors"
+
+// Sentinel errors; match with errors.Is.
+var (
+	// ErrCorrupt: a checkpoint file fails a check. More precise sentinels
+	// below are wrapped alongside it.
+	ErrCorrupt = errors.New("checkpoint: corrupt")
+	// ErrChecksum: the CRC or a SHA-256 does not match.
+	ErrChecksum = errors.New("checkpoint: checksum mismatch")
+	// ErrTruncated: the file is shorter (or longer) than it declares.
+	ErrTruncated = errors.New("checkpoint: truncated")
+	// ErrUnsupportedVersion: a format version this build does not read.
+	ErrUnsupportedVersion = errors.New("checkpoint: unsupported format version")
+	// ErrTooLarge: the decoded state would exceed the configured limit.
+	ErrTooLarge = errors.New("checkpoint: state too large")
+	// ErrNotFound: no checkpoint of that version, or none at all.
+	ErrNotFound = errors.New("checkpoint: not found")
+)

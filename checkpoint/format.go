@@ -1,0 +1,240 @@
+package checkpoint
+
+import (
+	"bytes"
+	"crypto/sha256"
+	"encoding/binary"
+	"encoding/hex"
+	"encoding/json"
+	"fmt"
+	"hash/crc32"
+	"time"
+)
+
+// FormatVersion is the file format this build writes.
+const FormatVersion = 1
+
+const (
+	magic        = "TMCKPT\r\n"
+	headerLen    = 24
+	entryLen     = 53
+	trailerLen   = 4
+	maxManifest  = 16 << 20
+	maxSections  = 1 << 20
+	kindGlobal   = 0
+	kindPartiton = 1
+)
+
+var castagnoli = crc32.MakeTable(crc32.Castagnoli)
+
+// Reason says why a checkpoint was taken.
+type Reason string
+
+// Reasons.
+const (
+	Periodic Reason = "periodic"
+	Manual   Reason = "manual"
+	Shutdown Reason = "shutdown"
+	PreDrift Reason = "pre-drift"
+	Final    Reason = "final"
+)
+
+// ParseReason parses a reason name.
+func ParseReason(s string) (Reason, error) {
+	switch r := Reason(s); r {
+	case Periodic, Manual, Shutdown, PreDrift, Final:
+		return r, nil
+	}
+	return "", fmt.Errorf("checkpoint: unknown reason %q (want periodic, manual, shutdown, pre-drift or final)", s)
+}
+
+// Position is a stream position the state covers: the high-water offset of
+// one partition.
+type Position struct {
+	Partition int32 `json:"partition"`
+	Offset    int64 `json:"offset"`
+}
+
+// Metric is a learner's headline score at checkpoint time.
+type Metric struct {
+	Name   string   `json:"name"`
+	Scored int64    `json:"scored"`
+	MAE    *float64 `json:"mae"`
+	RMSE   *float64 `json:"rmse"`
+}
+
+// Manifest describes a checkpoint. Version and StateSHA256, RawBytes are set
+// by the Store when it writes; the caller fills in the rest.
+type Manifest struct {
+	Version      uint64          `json:"version"`
+	Parent       uint64          `json:"parent"` // the version this state descends from; 0 for none
+	Created      time.Time       `json:"created"`
+	Reason       Reason          `json:"reason"`
+	Positions    []Position      `json:"positions"`
+	Events       int64           `json:"events"` // events the state has applied
+	ConfigSHA256 string          `json:"config_sha256"`
+	StateSHA256  string          `json:"state_sha256"`
+	RawBytes     int64           `json:"raw_bytes"`
+	Metrics      []Metric        `json:"metrics,omitempty"`
+	Source       json.RawMessage `json:"source,omitempty"` // the intake's own record, e.g. a history prefix digest
+}
+
+// Section is one part of the engine's state, as the engine encoded it.
+type Section struct {
+	Global    bool
+	Partition int32
+	Bytes     []byte
+}
+
+// stateDigest is SHA-256 over the sections' bytes in order.
+func stateDigest(secs []Section) string {
+	h := sha256.New()
+	for _, s := range secs {
+		h.Write(s.Bytes)
+	}
+	return hex.EncodeToString(h.Sum(nil))
+}
+
+// encodeFile builds a checkpoint file. compress appends the zstd frame of src
+// to dst.
+func encodeFile(m *Manifest, secs []Section, compress func(src, dst []byte) []byte) ([]byte, error) {
+	if len(secs) == 0 {
+		return nil, fmt.Errorf("checkpoint: no sections to write")
+	}
+	m.StateSHA256 = stateDigest(secs)
+	m.RawBytes = 0
+	for _, s := range secs {
+		m.RawBytes += int64(len(s.Bytes))
+	}
+	man, err := json.Marshal(m)
+	if err != nil {
+		return nil, fmt.Errorf("checkpoint: manifest: %w", err)
+	}
+	bodies := make([][]byte, len(secs))
+	for i, s := range secs {
+		bodies[i] = compress(s.Bytes, nil)
+	}
+	b := make([]byte, 0, headerLen+len(man)+4+entryLen*len(secs))
+	b = append(b, magic...)
+	b = binary.LittleEndian.AppendUint32(b, FormatVersion)
+	b = binary.LittleEndian.AppendUint64(b, 0) // length, patched below
+	b = binary.LittleEndian.AppendUint32(b, uint32(len(man)))
+	b = append(b, man...)
+	b = binary.LittleEndian.AppendUint32(b, uint32(len(secs)))
+	for i, s := range secs {
+		kind := byte(kindPartiton)
+		if s.Global {
+			kind = kindGlobal
+		}
+		b = append(b, kind)
+		b = binary.LittleEndian.AppendUint32(b, uint32(s.Partition))
+		b = binary.LittleEndian.AppendUint64(b, uint64(len(s.Bytes)))
+		b = binary.LittleEndian.AppendUint64(b, uint64(len(bodies[i])))
+		sum := sha256.Sum256(s.Bytes)
+		b = append(b, sum[:]...)
+	}
+	for _, body := range bodies {
+		b = append(b, body...)
+	}
+	binary.LittleEndian.PutUint64(b[12:20], uint64(len(b)+trailerLen))
+	b = binary.LittleEndian.AppendUint32(b, crc32.Checksum(b, castagnoli))
+	return b, nil
+}
+
+// entry is a parsed section table entry.
+type entry struct {
+	global    bool
+	partition int32
+	raw       uint64
+	stored    uint64
+	sum       [32]byte
+	offset    int // of the body in the file
+}
+
+// parsed is a verified file before decompression.
+type parsed struct {
+	manifest Manifest
+	entries  []entry
+}
+
+// corrupt wraps ErrCorrupt, and a precise sentinel when given, with the file and offset.
+func corrupt(file string, off int, precise error, format string, args ...any) error {
+	msg := fmt.Sprintf(format, args...)
+	if precise != nil {
+		return fmt.Errorf("%s: byte %d: %s: %w: %w", file, off, msg, ErrCorrupt, precise)
+	}
+	return fmt.Errorf("%s: byte %d: %s: %w", file, off, msg, ErrCorrupt)
+}
+
+// parseFile checks everything but the section bodies' contents.
+func parseFile(file string, b []byte, maxRaw int64) (*parsed, error) {
+	if len(b) < headerLen+trailerLen || !bytes.Equal(b[:8], []byte(magic)) {
+		if len(b) >= 8 && !bytes.Equal(b[:8], []byte(magic)) {
+			return nil, corrupt(file, 0, nil, "not a tidemark checkpoint (bad magic)")
+		}
+		return nil, corrupt(file, len(b), ErrTruncated, "file of %d bytes is shorter than a header", len(b))
+	}
+	if n := binary.LittleEndian.Uint64(b[12:20]); n != uint64(len(b)) {
+		return nil, corrupt(file, len(b), ErrTruncated, "file is %d bytes but declares %d", len(b), n)
+	}
+	body := b[:len(b)-trailerLen]
+	if got, want := crc32.Checksum(body, castagnoli), binary.LittleEndian.Uint32(b[len(b)-trailerLen:]); got != want {
+		return nil, corrupt(file, len(b)-trailerLen, ErrChecksum, "CRC-32C %08x, file says %08x", got, want)
+	}
+	if v := binary.LittleEndian.Uint32(b[8:12]); v != FormatVersion {
+		return nil, corrupt(file, 8, ErrUnsupportedVersion, "format version %d, this build reads %d", v, FormatVersion)
+	}
+	off := 20
+	ml := int(binary.LittleEndian.Uint32(b[off:]))
+	off += 4
+	if ml > maxManifest || ml > len(body)-off-4 {
+		return nil, corrupt(file, 20, nil, "manifest length %d does not fit", ml)
+	}
+	p := &parsed{}
+	dec := json.NewDecoder(bytes.NewReader(b[off : off+ml]))
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(&p.manifest); err != nil {
+		return nil, corrupt(file, off, nil, "manifest: %v", err)
+	}
+	off += ml
+	n := int(binary.LittleEndian.Uint32(b[off:]))
+	off += 4
+	if n < 1 || n > maxSections || n > (len(body)-off)/entryLen {
+		return nil, corrupt(file, off-4, nil, "section count %d does not fit", n)
+	}
+	bodyOff := off + n*entryLen
+	var raw uint64
+	for i := 0; i < n; i++ {
+		e := entry{
+			global:    b[off] == kindGlobal,
+			partition: int32(binary.LittleEndian.Uint32(b[off+1:])),
+			raw:       binary.LittleEndian.Uint64(b[off+5:]),
+			stored:    binary.LittleEndian.Uint64(b[off+13:]),
+			offset:    bodyOff,
+		}
+		if b[off] > kindPartiton || (i == 0) != e.global {
+			return nil, corrupt(file, off, nil, "section %d has kind %d (the global section comes first, once)", i, b[off])
+		}
+		copy(e.sum[:], b[off+21:off+53])
+		if e.stored > uint64(len(body)-bodyOff) {
+			return nil, corrupt(file, off+13, nil, "section %d stored length %d does not fit", i, e.stored)
+		}
+		raw += e.raw
+		if e.raw > uint64(maxRaw) || raw > uint64(maxRaw) {
+			return nil, corrupt(file, off+5, ErrTooLarge, "state of more than %d bytes (limit %d)", raw, maxRaw)
+		}
+		bodyOff += int(e.stored)
+		p.entries = append(p.entries, e)
+		off += entryLen
+	}
+	if bodyOff != len(body) {
+		return nil, corrupt(file, bodyOff, nil, "%d bytes after the last section", len(body)-bodyOff)
+	}
+	if int64(raw) != p.manifest.RawBytes {
+		return nil, corrupt(file, 24, nil, "manifest says %d raw bytes, sections hold %d", p.manifest.RawBytes, raw)
+	}
+	if d, err := hex.DecodeString(p.manifest.StateSHA256); err != nil || len(d) != sha256.Size {
+		return nil, corrupt(file, 24, nil, "manifest state_sha256 %q is not a SHA-256", p.manifest.StateSHA256)
+	}
+	return p, nil
+}

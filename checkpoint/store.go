@@ -1,0 +1,396 @@
+package checkpoint
+
+import (
+	"crypto/rand"
+	"crypto/sha256"
+	"encoding/hex"
+	"errors"
+	"fmt"
+	"io/fs"
+	"path/filepath"
+	"slices"
+	"strconv"
+	"strings"
+	"sync"
+	"time"
+
+	"github.com/klauspost/compress/zstd"
+)
+
+// Defaults of StoreConfig.
+const (
+	DefaultRetain      = 20
+	DefaultMaxRawBytes = 1 << 30 // 1 GiB of decoded state
+)
+
+// StoreConfig configures a Store. Zero fields take the defaults.
+type StoreConfig struct {
+	Dir         string           // the directory; created 0700 if missing. Required.
+	Retain      int              // newest versions kept, besides pinned ones. Default: DefaultRetain.
+	MaxRawBytes int64            // limit on a checkpoint's decoded state. Default: DefaultMaxRawBytes.
+	FS          FS               // Default: OSFS.
+	Now         func() time.Time // clock for Manifest.Created. Default: time.Now.
+}
+
+// Validate reports every problem with c. It changes nothing.
+func (c *StoreConfig) Validate() error {
+	var errs []error
+	if c.Dir == "" {
+		errs = append(errs, errors.New("checkpoint: no directory given"))
+	}
+	if c.Retain < 0 {
+		errs = append(errs, fmt.Errorf("checkpoint: retain %d is negative", c.Retain))
+	}
+	if c.MaxRawBytes < 0 {
+		errs = append(errs, fmt.Errorf("checkpoint: max raw bytes %d is negative", c.MaxRawBytes))
+	}
+	return errors.Join(errs...)
+}
+
+func (c *StoreConfig) setDefaults() {
+	if c.Retain == 0 {
+		c.Retain = DefaultRetain
+	}
+	if c.MaxRawBytes == 0 {
+		c.MaxRawBytes = DefaultMaxRawBytes
+	}
+	if c.FS == nil {
+		c.FS = OSFS{}
+	}
+	if c.Now == nil {
+		c.Now = time.Now
+	}
+}
+
+// Info describes a stored checkpoint: the fields `checkpoints list --json`
+// and GET /v1/checkpoints print.
+type Info struct {
+	Version     uint64     `json:"version"`
+	Parent      uint64     `json:"parent"`
+	Created     time.Time  `json:"created"`
+	Position    []Position `json:"position"`
+	Events      int64      `json:"events"`
+	StateSHA256 string     `json:"state_sha256"`
+	Bytes       int64      `json:"bytes"`
+	RawBytes    int64      `json:"raw_bytes"`
+	Reason      Reason     `json:"reason"`
+	Pinned      bool       `json:"pinned"`
+	File        string     `json:"file"`
+	Error       string     `json:"error,omitempty"` // set, and nothing else trusted, when the file fails a check
+}
+
+// Checkpoint is a loaded, fully verified checkpoint.
+type Checkpoint struct {
+	Manifest Manifest
+	Sections []Section
+	Info     Info
+}
+
+// Store is a directory of versioned checkpoints. See the package doc for the
+// guarantees. Safe for concurrent use.
+type Store struct {
+	cfg StoreConfig
+	mu  sync.Mutex
+	enc *zstd.Encoder
+	dec *zstd.Decoder
+}
+
+// OpenStore opens (creating if need be) the store in cfg.Dir and removes
+// temporary files a crash left behind.
+func OpenStore(cfg StoreConfig) (*Store, error) {
+	if err := cfg.Validate(); err != nil {
+		return nil, err
+	}
+	cfg.setDefaults()
+	if err := cfg.FS.MkdirAll(cfg.Dir); err != nil {
+		return nil, fmt.Errorf("checkpoint: %w", err)
+	}
+	enc, err := zstd.NewWriter(nil, zstd.WithEncoderConcurrency(1), zstd.WithEncoderLevel(zstd.SpeedDefault))
+	if err != nil {
+		return nil, fmt.Errorf("checkpoint: %w", err)
+	}
+	dec, err := zstd.NewReader(nil, zstd.WithDecoderConcurrency(1), zstd.WithDecoderMaxMemory(uint64(cfg.MaxRawBytes)))
+	if err != nil {
+		return nil, fmt.Errorf("checkpoint: %w", err)
+	}
+	s := &Store{cfg: cfg, enc: enc, dec: dec}
+	names, err := cfg.FS.ReadDir(cfg.Dir)
+	if err != nil {
+		return nil, fmt.Errorf("checkpoint: %w", err)
+	}
+	for _, n := range names {
+		if strings.HasPrefix(n, filePrefix) && strings.Contains(n, tmpMark) {
+			cfg.FS.Remove(filepath.Join(cfg.Dir, n)) // a crash's leftover; failing to remove it is harmless
+		}
+	}
+	return s, nil
+}
+
+// Close releases the compressors.
+func (s *Store) Close() error {
+	s.dec.Close()
+	return s.enc.Close()
+}
+
+// Dir returns the store's directory.
+func (s *Store) Dir() string { return s.cfg.Dir }
+
+const (
+	filePrefix = "ckpt-"
+	fileSuffix = ".tdmk"
+	pinSuffix  = ".pin"
+	tmpMark    = ".tmp-"
+)
+
+// FileName returns the file name of a version.
+func FileName(v uint64) string { return fmt.Sprintf("%s%020d%s", filePrefix, v, fileSuffix) }
+
+func pinName(v uint64) string { return fmt.Sprintf("%s%020d%s", filePrefix, v, pinSuffix) }
+
+func parseName(name, suffix string) (uint64, bool) {
+	digits, ok := strings.CutPrefix(name, filePrefix)
+	if !ok {
+		return 0, false
+	}
+	digits, ok = strings.CutSuffix(digits, suffix)
+	if !ok || len(digits) != 20 {
+		return 0, false
+	}
+	v, err := strconv.ParseUint(digits, 10, 64)
+	return v, err == nil
+}
+
+// scan returns the versions present (ascending) and the pinned set.
+func (s *Store) scan() ([]uint64, map[uint64]bool, error) {
+	names, err := s.cfg.FS.ReadDir(s.cfg.Dir)
+	if err != nil {
+		return nil, nil, fmt.Errorf("checkpoint: %w", err)
+	}
+	var vs []uint64
+	pins := map[uint64]bool{}
+	for _, n := range names {
+		if v, ok := parseName(n, fileSuffix); ok {
+			vs = append(vs, v)
+		} else if v, ok := parseName(n, pinSuffix); ok {
+			pins[v] = true
+		}
+	}
+	slices.Sort(vs)
+	return vs, pins, nil
+}
+
+// Write stores a new checkpoint of the given sections and returns its info.
+// It assigns the version (one past the newest present), the created time
+// (unless set), the state digest and raw size. On any failure — a full disk
+// included — earlier versions are untouched, no partial file is left under
+// a checkpoint name, and the error says what failed.
+func (s *Store) Write(m Manifest, secs []Section) (Info, error) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	vs, pins, err := s.scan()
+	if err != nil {
+		return Info{}, err
+	}
+	m.Version = 1
+	if len(vs) > 0 {
+		m.Version = vs[len(vs)-1] + 1
+	}
+	if m.Created.IsZero() {
+		m.Created = s.cfg.Now().UTC()
+	}
+	if _, err := ParseReason(string(m.Reason)); err != nil {
+		return Info{}, err
+	}
+	b, err := encodeFile(&m, secs, s.enc.EncodeAll)
+	if err != nil {
+		return Info{}, err
+	}
+	name := FileName(m.Version)
+	final := filepath.Join(s.cfg.Dir, name)
+	var rnd [6]byte
+	rand.Read(rnd[:])
+	tmp := final + tmpMark + hex.EncodeToString(rnd[:])
+	if err := s.writeFile(tmp, b); err != nil {
+		s.cfg.FS.Remove(tmp)
+		return Info{}, fmt.Errorf("checkpoint: write version %d: %w", m.Version, err)
+	}
+	if err := s.cfg.FS.Rename(tmp, final); err != nil {
+		s.cfg.FS.Remove(tmp)
+		return Info{}, fmt.Errorf("checkpoint: write version %d: %w", m.Version, err)
+	}
+	if err := s.cfg.FS.SyncDir(s.cfg.Dir); err != nil {
+		return Info{}, fmt.Errorf("checkpoint: write version %d: sync directory: %w", m.Version, err)
+	}
+	vs = append(vs, m.Version)
+	s.retain(vs, pins)
+	return info(&m, name, int64(len(b)), pins[m.Version]), nil
+}
+
+func (s *Store) writeFile(path string, b []byte) error {
+	f, err := s.cfg.FS.Create(path)
+	if err != nil {
+		return err
+	}
+	if _, err := f.Write(b); err != nil {
+		f.Close()
+		return err
+	}
+	if err := f.Sync(); err != nil {
+		f.Close()
+		return err
+	}
+	return f.Close()
+}
+
+// retain removes versions older than the newest Retain that are not pinned.
+// Removal failures are left for the next write to retry.
+func (s *Store) retain(vs []uint64, pins map[uint64]bool) {
+	if len(vs) <= s.cfg.Retain {
+		return
+	}
+	removed := false
+	for _, v := range vs[:len(vs)-s.cfg.Retain] {
+		if pins[v] {
+			continue
+		}
+		if s.cfg.FS.Remove(filepath.Join(s.cfg.Dir, FileName(v))) == nil {
+			removed = true
+		}
+	}
+	if removed {
+		s.cfg.FS.SyncDir(s.cfg.Dir)
+	}
+}
+
+func info(m *Manifest, name string, size int64, pinned bool) Info {
+	return Info{Version: m.Version, Parent: m.Parent, Created: m.Created, Position: m.Positions, Events: m.Events,
+		StateSHA256: m.StateSHA256, Bytes: size, RawBytes: m.RawBytes, Reason: m.Reason, Pinned: pinned, File: name}
+}
+
+// Load reads and verifies version v completely. A file that fails any check
+// returns an error wrapping ErrCorrupt; a missing one ErrNotFound.
+func (s *Store) Load(v uint64) (*Checkpoint, error) {
+	return s.load(v, nil)
+}
+
+// LoadSections is Load that decompresses only the global section and the
+// sections of the given partitions; the others are checked by the file CRC
+// but not decompressed.
+func (s *Store) LoadSections(v uint64, partitions []int32) (*Checkpoint, error) {
+	if partitions == nil {
+		partitions = []int32{}
+	}
+	return s.load(v, partitions)
+}
+
+func (s *Store) load(v uint64, only []int32) (*Checkpoint, error) {
+	name := FileName(v)
+	b, err := s.cfg.FS.ReadFile(filepath.Join(s.cfg.Dir, name))
+	if errors.Is(err, fs.ErrNotExist) {
+		return nil, fmt.Errorf("%w: version %d (%s)", ErrNotFound, v, name)
+	}
+	if err != nil {
+		return nil, fmt.Errorf("checkpoint: %w", err)
+	}
+	p, err := parseFile(name, b, s.cfg.MaxRawBytes)
+	if err != nil {
+		return nil, err
+	}
+	if p.manifest.Version != v {
+		return nil, corrupt(name, 24, nil, "file of version %d holds version %d", v, p.manifest.Version)
+	}
+	c := &Checkpoint{Manifest: p.manifest}
+	for i, e := range p.entries {
+		if only != nil && !e.global && !slices.Contains(only, e.partition) {
+			continue
+		}
+		raw, err := s.dec.DecodeAll(b[e.offset:e.offset+int(e.stored)], make([]byte, 0, e.raw))
+		if err != nil {
+			return nil, corrupt(name, e.offset, nil, "section %d does not decompress: %v", i, err)
+		}
+		if uint64(len(raw)) != e.raw {
+			return nil, corrupt(name, e.offset, nil, "section %d decompresses to %d bytes, table says %d", i, len(raw), e.raw)
+		}
+		if sha256.Sum256(raw) != e.sum {
+			return nil, corrupt(name, e.offset, ErrChecksum, "section %d SHA-256 mismatch", i)
+		}
+		c.Sections = append(c.Sections, Section{Global: e.global, Partition: e.partition, Bytes: raw})
+	}
+	if only == nil && stateDigest(c.Sections) != p.manifest.StateSHA256 {
+		return nil, corrupt(name, 24, ErrChecksum, "state digest does not match state_sha256")
+	}
+	_, pins, err := s.scan()
+	if err != nil {
+		return nil, err
+	}
+	c.Info = info(&c.Manifest, name, int64(len(b)), pins[v])
+	return c, nil
+}
+
+// List returns every checkpoint in the store, oldest first, each verified as
+// Load does; a file that fails has only Version, File and Error set.
+func (s *Store) List() ([]Info, error) {
+	vs, _, err := s.scan()
+	if err != nil {
+		return nil, err
+	}
+	out := make([]Info, 0, len(vs))
+	for _, v := range vs {
+		c, err := s.Load(v)
+		if err != nil {
+			out = append(out, Info{Version: v, File: FileName(v), Error: err.Error()})
+			continue
+		}
+		out = append(out, c.Info)
+	}
+	return out, nil
+}
+
+// Latest loads the newest checkpoint that passes every check. Newer files
+// that fail are skipped (left in place) and reported in skipped. With no good
+// checkpoint the error wraps ErrNotFound.
+func (s *Store) Latest() (c *Checkpoint, skipped []error, err error) {
+	vs, _, err := s.scan()
+	if err != nil {
+		return nil, nil, err
+	}
+	for i := len(vs) - 1; i >= 0; i-- {
+		c, err := s.Load(vs[i])
+		if err == nil {
+			return c, skipped, nil
+		}
+		skipped = append(skipped, err)
+	}
+	return nil, skipped, fmt.Errorf("%w: no good checkpoint in %s", ErrNotFound, s.cfg.Dir)
+}
+
+// Pin protects version v from retention.
+func (s *Store) Pin(v uint64) error {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	vs, pins, err := s.scan()
+	if err != nil {
+		return err
+	}
+	if !slices.Contains(vs, v) {
+		return fmt.Errorf("%w: version %d", ErrNotFound, v)
+	}
+	if pins[v] {
+		return nil
+	}
+	if err := s.writeFile(filepath.Join(s.cfg.Dir, pinName(v)), nil); err != nil {
+		return fmt.Errorf("checkpoint: pin version %d: %w", v, err)
+	}
+	return s.cfg.FS.SyncDir(s.cfg.Dir)
+}
+
+// Unpin lets retention remove version v again.
+func (s *Store) Unpin(v uint64) error {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	err := s.cfg.FS.Remove(filepath.Join(s.cfg.Dir, pinName(v)))
+	if err != nil && !errors.Is(err, fs.ErrNotExist) {
+		return fmt.Errorf("checkpoint: unpin version %d: %w", v, err)
+	}
+	return s.cfg.FS.SyncDir(s.cfg.Dir)
+}
