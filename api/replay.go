@@ -3,11 +3,16 @@ package api
 import (
 	"bytes"
 	"context"
+	"crypto/sha256"
+	"encoding/hex"
+	"encoding/json"
 	"errors"
 	"fmt"
+	"hash"
 	"io"
 
 	"tidemark/api/intake"
+	"tidemark/checkpoint"
 	"tidemark/learner"
 )
 
@@ -15,40 +20,97 @@ import (
 // before it only counts them.
 const DefaultRejectLog = 20
 
-// ErrStrict is returned by Replay in strict mode at the first rejected line.
-var ErrStrict = errors.New("api: rejected line in strict mode")
+// Errors of Replay.
+var (
+	// ErrStrict: a rejected line in strict mode.
+	ErrStrict = errors.New("api: rejected line in strict mode")
+	// ErrResume: a checkpoint cannot be resumed on this history or configuration.
+	ErrResume = errors.New("api: cannot resume")
+)
 
 // ReplayConfig configures Replay.
 type ReplayConfig struct {
 	// Strict stops at the first rejected line with an error wrapping ErrStrict.
 	Strict bool
 	// Log receives one line per rejected event, the first RejectLog of them,
-	// then a count at the end. Nil discards them.
+	// then a count at the end, and notes on checkpoints. Nil discards them.
 	Log io.Writer
 	// RejectLog is the number of rejections logged one by one. Default: DefaultRejectLog.
 	RejectLog int
+	// Checkpoints, when set, receives a checkpoint every Every lines (0: none
+	// but the last), one at the end of the history (reason final) and one
+	// when ctx ends the replay early (reason shutdown).
+	Checkpoints *checkpoint.Store
+	Every       int64
+	// Resume restores the newest good checkpoint in Checkpoints and continues
+	// after the line it covers. It refuses (ErrResume) when the checkpoint was
+	// taken under another configuration or over a history this one does not
+	// extend. With no checkpoint at all the replay starts from the beginning.
+	Resume bool
+}
+
+// historySource is the manifest's record of a replay's position in its
+// history: the number of lines consumed and the SHA-256 of those lines, so
+// that a resume can prove the history it continues is the same one.
+type historySource struct {
+	Kind         string   `json:"kind"` // "history"
+	Lines        int64    `json:"lines"`
+	PrefixSHA256 string   `json:"prefix_sha256"`
+	Learners     []string `json:"learners"`
+}
+
+// replayer is one run of Replay.
+type replayer struct {
+	cfg     ReplayConfig
+	eng     *learner.Engine
+	prefix  hash.Hash
+	lines   int64
+	parent  uint64
+	resume  *historySource // the checkpoint resumed from, until its prefix is verified
+	logged  int
+	rejects int
 }
 
 // Replay runs every line of h through eng, test-then-train, in order. Each
-// line's position is its line number in partition 0; positions the engine
-// already covers (after a restore) are skipped by the engine. It returns when
-// the history ends, ctx is done, or (strict) at the first rejection.
+// line's position is its line number in partition 0; a line the engine's state
+// already covers is not applied again. It returns when the history ends, ctx
+// is done, or (strict) at the first rejection.
 func Replay(ctx context.Context, h *intake.History, eng *learner.Engine, cfg ReplayConfig) error {
 	if cfg.RejectLog == 0 {
 		cfg.RejectLog = DefaultRejectLog
 	}
-	logged, rejected := 0, 0
-	reject := func(line int64, err error) error {
-		rejected++
-		if cfg.Strict {
-			return fmt.Errorf("%w: line %d: %v", ErrStrict, line, err)
+	r := &replayer{cfg: cfg, eng: eng, prefix: sha256.New()}
+	if cfg.Resume {
+		if cfg.Checkpoints == nil {
+			return fmt.Errorf("%w: no checkpoint directory given", ErrResume)
 		}
-		if cfg.Log != nil && logged < cfg.RejectLog {
-			fmt.Fprintf(cfg.Log, "line %d: %v\n", line, err)
-			logged++
+		if err := r.restore(); err != nil {
+			return err
 		}
-		return nil
 	}
+	err := r.run(ctx, h)
+	if r.resume != nil && err == nil {
+		return fmt.Errorf("%w: the history has %d lines but the checkpoint covers %d; it is not the history the checkpoint was taken on",
+			ErrResume, r.lines, r.resume.Lines)
+	}
+	if cfg.Log != nil && r.rejects > r.logged {
+		fmt.Fprintf(cfg.Log, "%d rejected lines in all (%d shown)\n", r.rejects, r.logged)
+	}
+	if cfg.Checkpoints == nil || r.resume != nil {
+		return err
+	}
+	switch {
+	case err == nil:
+		return r.checkpoint(checkpoint.Final)
+	case ctx.Err() != nil && errors.Is(err, ctx.Err()):
+		if cerr := r.checkpoint(checkpoint.Shutdown); cerr != nil {
+			return errors.Join(err, cerr)
+		}
+	}
+	return err
+}
+
+func (r *replayer) run(ctx context.Context, h *intake.History) error {
 	var ev learner.Event
 	for n := 0; ; n++ {
 		if n%4096 == 0 && ctx.Err() != nil {
@@ -56,40 +118,156 @@ func Replay(ctx context.Context, h *intake.History, eng *learner.Engine, cfg Rep
 		}
 		line, no, err := h.Next()
 		if err == io.EOF {
-			break
+			return nil
+		}
+		tooLong := errors.Is(err, intake.ErrLineTooLong)
+		if err != nil && !tooLong {
+			return err
+		}
+		r.lines = no
+		if tooLong {
+			r.prefix.Write([]byte("\x00line too long\n"))
+		} else {
+			r.prefix.Write(line)
+			r.prefix.Write([]byte{'\n'})
 		}
 		pos := learner.Position{Partition: 0, Offset: no}
-		if errors.Is(err, intake.ErrLineTooLong) {
-			eng.Skip(pos)
-			if err := reject(no, err); err != nil {
-				return err
+		if r.resume != nil {
+			if no < r.resume.Lines {
+				continue
 			}
+			if got := hex.EncodeToString(r.prefix.Sum(nil)); got != r.resume.PrefixSHA256 {
+				return fmt.Errorf("%w: the first %d lines of this history differ from those the checkpoint covered "+
+					"(SHA-256 %s, checkpoint %s); it does not extend that history", ErrResume, no, got[:12], r.resume.PrefixSHA256[:12])
+			}
+			r.resume = nil
 			continue
+		}
+		switch {
+		case r.eng.Covers(pos):
+		case tooLong:
+			r.eng.Skip(pos)
+			err = r.reject(no, err)
+		case len(bytes.TrimSpace(line)) == 0:
+			// a blank line carries no event
+		default:
+			if derr := learner.DecodeEvent(line, &ev); derr != nil {
+				r.eng.Skip(pos)
+				err = r.reject(no, derr)
+			} else if _, aerr := r.eng.Apply(pos, &ev); aerr != nil {
+				err = r.reject(no, aerr)
+			}
 		}
 		if err != nil {
 			return err
 		}
-		if len(bytes.TrimSpace(line)) == 0 {
-			continue // blank lines carry no event
-		}
-		if eng.Covers(pos) {
-			continue
-		}
-		if err := learner.DecodeEvent(line, &ev); err != nil {
-			eng.Skip(pos)
-			if err := reject(no, err); err != nil {
-				return err
-			}
-			continue
-		}
-		if _, err := eng.Apply(pos, &ev); err != nil {
-			if err := reject(no, err); err != nil {
+		if r.cfg.Checkpoints != nil && r.cfg.Every > 0 && no%r.cfg.Every == 0 {
+			if err := r.checkpoint(checkpoint.Periodic); err != nil {
 				return err
 			}
 		}
 	}
-	if cfg.Log != nil && rejected > logged {
-		fmt.Fprintf(cfg.Log, "%d rejected lines in all (%d shown)\n", rejected, logged)
+}
+
+func (r *replayer) reject(line int64, err error) error {
+	r.rejects++
+	if r.cfg.Strict {
+		return fmt.Errorf("%w: line %d: %v", ErrStrict, line, err)
+	}
+	if r.cfg.Log != nil && r.logged < r.cfg.RejectLog {
+		fmt.Fprintf(r.cfg.Log, "line %d: %v\n", line, err)
+		r.logged++
 	}
 	return nil
+}
+
+func (r *replayer) learnerSpecs() []string {
+	var out []string
+	for _, s := range r.eng.Config().Learners {
+		out = append(out, s.Text)
+	}
+	return out
+}
+
+// checkpoint writes the engine's state and the history position.
+func (r *replayer) checkpoint(reason checkpoint.Reason) error {
+	src, _ := json.Marshal(historySource{Kind: "history", Lines: r.lines,
+		PrefixSHA256: hex.EncodeToString(r.prefix.Sum(nil)), Learners: r.learnerSpecs()})
+	m := Manifest(r.eng, reason, r.parent)
+	m.Source = src
+	info, err := r.cfg.Checkpoints.Write(m, ToCheckpoint(r.eng.Sections()))
+	if err != nil {
+		return err
+	}
+	r.parent = info.Version
+	return nil
+}
+
+// restore loads the newest good checkpoint into the engine.
+func (r *replayer) restore() error {
+	c, skipped, err := r.cfg.Checkpoints.Latest()
+	for _, s := range skipped {
+		if r.cfg.Log != nil {
+			fmt.Fprintf(r.cfg.Log, "skipping a checkpoint that fails its checks: %v\n", s)
+		}
+	}
+	if errors.Is(err, checkpoint.ErrNotFound) {
+		if r.cfg.Log != nil {
+			fmt.Fprintf(r.cfg.Log, "no checkpoint in %s to resume from; starting at the first line\n", r.cfg.Checkpoints.Dir())
+		}
+		return nil
+	}
+	if err != nil {
+		return err
+	}
+	var src historySource
+	if err := json.Unmarshal(c.Manifest.Source, &src); err != nil || src.Kind != "history" {
+		return fmt.Errorf("%w: checkpoint %d was not taken by a replay of a history file", ErrResume, c.Manifest.Version)
+	}
+	if want := r.eng.Config().Digest(); c.Manifest.ConfigSHA256 != want {
+		return fmt.Errorf("%w: checkpoint %d was taken with learners %q; now %q (or other settings differ); "+
+			"resume with the same --learner flags and settings, or use another checkpoint directory",
+			ErrResume, c.Manifest.Version, src.Learners, r.learnerSpecs())
+	}
+	if err := r.eng.DecodeSections(FromCheckpoint(c.Sections)); err != nil {
+		return fmt.Errorf("checkpoint %d: %w", c.Manifest.Version, err)
+	}
+	if r.cfg.Log != nil {
+		fmt.Fprintf(r.cfg.Log, "resuming from checkpoint %d after line %d (%d events applied)\n", c.Manifest.Version, src.Lines, c.Manifest.Events)
+	}
+	r.parent = c.Manifest.Version
+	if src.Lines > 0 {
+		r.resume = &src
+	}
+	return nil
+}
+
+// Manifest fills a checkpoint manifest from the engine's state.
+func Manifest(eng *learner.Engine, reason checkpoint.Reason, parent uint64) checkpoint.Manifest {
+	m := checkpoint.Manifest{Parent: parent, Reason: reason, Events: eng.Applied(), ConfigSHA256: eng.Config().Digest()}
+	for _, p := range eng.Positions() {
+		m.Positions = append(m.Positions, checkpoint.Position{Partition: p.Partition, Offset: p.Offset})
+	}
+	for _, l := range eng.Report(false).Learners {
+		m.Metrics = append(m.Metrics, checkpoint.Metric{Name: l.Name, Scored: l.Scored, MAE: l.MAE, RMSE: l.RMSE})
+	}
+	return m
+}
+
+// ToCheckpoint converts the engine's sections to the checkpoint's type.
+func ToCheckpoint(secs []learner.Section) []checkpoint.Section {
+	out := make([]checkpoint.Section, len(secs))
+	for i, s := range secs {
+		out[i] = checkpoint.Section{Global: s.Global, Partition: s.Partition, Bytes: s.Bytes}
+	}
+	return out
+}
+
+// FromCheckpoint converts checkpoint sections to the engine's type.
+func FromCheckpoint(secs []checkpoint.Section) []learner.Section {
+	out := make([]learner.Section, len(secs))
+	for i, s := range secs {
+		out[i] = learner.Section{Global: s.Global, Partition: s.Partition, Bytes: s.Bytes}
+	}
+	return out
 }

@@ -36,6 +36,7 @@ type command struct {
 func commands() []command {
 	return []command{
 		{"replay", "prequential comparison of learners on a recorded history file", runReplay},
+		{"checkpoints", "list, show, verify, pin or unpin the checkpoints in a directory", runCheckpoints},
 		{"synth", "write the demo scenario's history (a cold-storage warehouse)", runSynth},
 		{"demo", "run the learners over the embedded demo scenario, no setup", runDemo},
 	}
@@ -79,7 +80,7 @@ func printUsage(w io.Writer) {
 	fmt.Fprintln(w, "tidemark learns regression models online from labelled events and scores them test-then-train.")
 	fmt.Fprintln(w, "\nUsage: tidemark COMMAND [flags]   (tidemark COMMAND --help lists a command's flags)\n\nCommands:")
 	for _, c := range commands() {
-		fmt.Fprintf(w, "  %-8s %s\n", c.name, c.summary)
+		fmt.Fprintf(w, "  %-12s %s\n", c.name, c.summary)
 	}
 }
 

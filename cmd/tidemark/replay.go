@@ -13,6 +13,7 @@ import (
 
 	"tidemark/api"
 	"tidemark/api/intake"
+	"tidemark/checkpoint"
 	"tidemark/learner"
 )
 
@@ -73,13 +74,16 @@ func splitList(s string) []string {
 }
 
 func runReplay(args []string, stdout, stderr io.Writer) error {
-	fs := newFlagSet("replay", "replay --history FILE --learner SPEC... [--json] [--strict] [--per-key]", stderr)
+	fs := newFlagSet("replay", "replay --history FILE --learner SPEC... [--json] [--strict] [--per-key]\n        [--checkpoints DIR [--every N] [--resume]]", stderr)
 	var ef engineFlags
 	ef.register(fs)
 	history := fs.String("history", "", "history `FILE`: NDJSON events, plain, .gz or .zst")
 	asJSON := fs.Bool("json", false, "print the report as one JSON object")
 	strict := fs.Bool("strict", false, "stop at the first rejected line (exit status 2)")
 	perKey := fs.Bool("per-key", false, "include each key's metrics (JSON) or a table per key")
+	ckDir := fs.String("checkpoints", "", "write checkpoints to `DIR` (one at the end, and every --every lines)")
+	every := fs.Int64("every", 0, "with --checkpoints, also write a checkpoint every `N` lines")
+	resume := fs.Bool("resume", false, "with --checkpoints, restore the newest good checkpoint and continue after the line it covers")
 	pos, err := parse(fs, args)
 	if err != nil {
 		return err
@@ -93,9 +97,22 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 	if len(ef.learners) == 0 {
 		return usagef("give at least one --learner SPEC, e.g. --learner knn:k=10,window=2000 --learner rls:forget=0.995 --learner mean")
 	}
+	if (*every != 0 || *resume) && *ckDir == "" {
+		return usagef("--every and --resume need --checkpoints DIR")
+	}
+	if *every < 0 {
+		return usagef("--every %d: want a positive number of lines", *every)
+	}
 	cfg, err := ef.config()
 	if err != nil {
 		return usageError{err}
+	}
+	var store *checkpoint.Store
+	if *ckDir != "" {
+		if store, err = checkpoint.OpenStore(checkpoint.StoreConfig{Dir: *ckDir}); err != nil {
+			return err
+		}
+		defer store.Close()
 	}
 	h, err := intake.OpenHistory(*history)
 	if err != nil {
@@ -108,8 +125,8 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 	}
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
 	defer stop()
-	err = api.Replay(ctx, h, eng, api.ReplayConfig{Strict: *strict, Log: stderr})
-	if errors.Is(err, api.ErrStrict) {
+	err = api.Replay(ctx, h, eng, api.ReplayConfig{Strict: *strict, Log: stderr, Checkpoints: store, Every: *every, Resume: *resume})
+	if errors.Is(err, api.ErrStrict) || errors.Is(err, api.ErrResume) {
 		return usageError{err}
 	}
 	if err != nil {

@@ -1,0 +1,179 @@
+package main
+
+import (
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"strconv"
+	"strings"
+	"text/tabwriter"
+	"time"
+
+	"tidemark/checkpoint"
+)
+
+const checkpointsUsage = `checkpoints list DIR [--json]
+       tidemark checkpoints show DIR VERSION [--json]
+       tidemark checkpoints verify DIR [VERSION]
+       tidemark checkpoints pin|unpin DIR VERSION`
+
+func runCheckpoints(args []string, stdout, stderr io.Writer) error {
+	fs := newFlagSet("checkpoints", checkpointsUsage, stderr)
+	asJSON := fs.Bool("json", false, "print JSON (list, show)")
+	pos, err := parse(fs, args)
+	if err != nil {
+		return err
+	}
+	if len(pos) < 2 {
+		return usagef("want a subcommand and a directory; usage: tidemark %s", checkpointsUsage)
+	}
+	sub, dir, rest := pos[0], pos[1], pos[2:]
+	version := func() (uint64, error) {
+		if len(rest) != 1 {
+			return 0, usagef("%s wants exactly one VERSION", sub)
+		}
+		v, err := strconv.ParseUint(rest[0], 10, 64)
+		if err != nil || v == 0 {
+			return 0, usagef("version %q: want a positive integer", rest[0])
+		}
+		return v, nil
+	}
+	store, err := checkpoint.OpenStore(checkpoint.StoreConfig{Dir: dir})
+	if err != nil {
+		return err
+	}
+	defer store.Close()
+	switch sub {
+	case "list":
+		if len(rest) > 0 {
+			return usagef("list takes no VERSION")
+		}
+		list, err := store.List()
+		if err != nil {
+			return err
+		}
+		if *asJSON {
+			return writeJSON(stdout, list)
+		}
+		return writeCheckpointTable(stdout, list)
+	case "show":
+		v, err := version()
+		if err != nil {
+			return err
+		}
+		c, err := store.Load(v)
+		if err != nil {
+			return err
+		}
+		if *asJSON {
+			return writeJSON(stdout, struct {
+				checkpoint.Info
+				Manifest checkpoint.Manifest `json:"manifest"`
+			}{c.Info, c.Manifest})
+		}
+		return writeCheckpointShow(stdout, c)
+	case "verify":
+		var list []checkpoint.Info
+		if len(rest) > 0 {
+			v, err := version()
+			if err != nil {
+				return err
+			}
+			c, err := store.Load(v)
+			if errors.Is(err, checkpoint.ErrNotFound) {
+				return err
+			}
+			info := checkpoint.Info{Version: v, File: checkpoint.FileName(v)}
+			if err != nil {
+				info.Error = err.Error()
+			} else {
+				info = c.Info
+			}
+			list = []checkpoint.Info{info}
+		} else if list, err = store.List(); err != nil {
+			return err
+		}
+		if len(list) == 0 {
+			return fmt.Errorf("no checkpoints in %s", dir)
+		}
+		var bad []string
+		for _, in := range list {
+			if in.Error != "" {
+				fmt.Fprintf(stdout, "version %d: FAILED: %s\n", in.Version, in.Error)
+				bad = append(bad, strconv.FormatUint(in.Version, 10))
+			} else {
+				fmt.Fprintf(stdout, "version %d: ok (state_sha256 %s, %d events)\n", in.Version, in.StateSHA256, in.Events)
+			}
+		}
+		if len(bad) > 0 {
+			return fmt.Errorf("%d of %d checkpoints fail verification: version %s", len(bad), len(list), strings.Join(bad, ", "))
+		}
+		return nil
+	case "pin", "unpin":
+		v, err := version()
+		if err != nil {
+			return err
+		}
+		if sub == "pin" {
+			return store.Pin(v)
+		}
+		return store.Unpin(v)
+	}
+	return usagef("unknown subcommand %q (want list, show, verify, pin or unpin)", sub)
+}
+
+func writeJSON(w io.Writer, v any) error {
+	enc := json.NewEncoder(w)
+	enc.SetIndent("", "  ")
+	return enc.Encode(v)
+}
+
+func positions(ps []checkpoint.Position) string {
+	var s []string
+	for _, p := range ps {
+		s = append(s, fmt.Sprintf("%d:%d", p.Partition, p.Offset))
+	}
+	return strings.Join(s, " ")
+}
+
+func writeCheckpointTable(w io.Writer, list []checkpoint.Info) error {
+	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
+	fmt.Fprintln(tw, "version\tcreated\treason\tevents\tposition\tbytes\traw bytes\tpinned\tstate_sha256")
+	for _, in := range list {
+		if in.Error != "" {
+			fmt.Fprintf(tw, "%d\tCORRUPT: %s\n", in.Version, in.Error)
+			continue
+		}
+		pin := ""
+		if in.Pinned {
+			pin = "pinned"
+		}
+		fmt.Fprintf(tw, "%d\t%s\t%s\t%d\t%s\t%d\t%d\t%s\t%s\n", in.Version, in.Created.Format(time.RFC3339), in.Reason,
+			in.Events, positions(in.Position), in.Bytes, in.RawBytes, pin, in.StateSHA256[:16])
+	}
+	return tw.Flush()
+}
+
+func writeCheckpointShow(w io.Writer, c *checkpoint.Checkpoint) error {
+	m := c.Manifest
+	fmt.Fprintf(w, "version       %d (parent %d)\nfile          %s\ncreated       %s\nreason        %s\n", m.Version, m.Parent, c.Info.File, m.Created.Format(time.RFC3339), m.Reason)
+	fmt.Fprintf(w, "events        %d\nposition      %s\nstate_sha256  %s\nconfig_sha256 %s\n", m.Events, positions(m.Positions), m.StateSHA256, m.ConfigSHA256)
+	fmt.Fprintf(w, "bytes         %d (raw %d, ratio %.2f)\npinned        %t\n", c.Info.Bytes, m.RawBytes, float64(m.RawBytes)/float64(max(c.Info.Bytes, 1)), c.Info.Pinned)
+	if len(m.Source) > 0 {
+		fmt.Fprintf(w, "source        %s\n", m.Source)
+	}
+	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
+	fmt.Fprintln(tw, "\nlearner\tscored\tmae\trmse")
+	for _, l := range m.Metrics {
+		fmt.Fprintf(tw, "%s\t%d\t%s\t%s\n", l.Name, l.Scored, fnum(l.MAE), fnum(l.RMSE))
+	}
+	return tw.Flush()
+}
+
+func fnum(p *float64) string {
+	if p == nil {
+		return "–"
+	}
+	return strconv.FormatFloat(*p, 'g', 6, 64)
+}
