@@ -292,12 +292,27 @@ func (s *Store) load(v uint64, only []int32) (*Checkpoint, error) {
 	if err != nil {
 		return nil, fmt.Errorf("checkpoint: %w", err)
 	}
-	p, err := parseFile(name, b, s.cfg.MaxRawBytes)
+	c, err := s.decode(name, b, only)
 	if err != nil {
 		return nil, err
 	}
-	if p.manifest.Version != v {
-		return nil, corrupt(name, 24, nil, "file of version %d holds version %d", v, p.manifest.Version)
+	if c.Manifest.Version != v {
+		return nil, corrupt(name, 24, nil, "file of version %d holds version %d", v, c.Manifest.Version)
+	}
+	_, pins, err := s.scan()
+	if err != nil {
+		return nil, err
+	}
+	c.Info = info(&c.Manifest, name, int64(len(b)), pins[v])
+	return c, nil
+}
+
+// decode verifies a checkpoint file's bytes and decompresses its sections
+// (only those of the given partitions, with the global one, when only is not nil).
+func (s *Store) decode(name string, b []byte, only []int32) (*Checkpoint, error) {
+	p, err := parseFile(name, b, s.cfg.MaxRawBytes)
+	if err != nil {
+		return nil, err
 	}
 	c := &Checkpoint{Manifest: p.manifest}
 	for i, e := range p.entries {
@@ -319,11 +334,6 @@ func (s *Store) load(v uint64, only []int32) (*Checkpoint, error) {
 	if only == nil && stateDigest(c.Sections) != p.manifest.StateSHA256 {
 		return nil, corrupt(name, 24, ErrChecksum, "state digest does not match state_sha256")
 	}
-	_, pins, err := s.scan()
-	if err != nil {
-		return nil, err
-	}
-	c.Info = info(&c.Manifest, name, int64(len(b)), pins[v])
 	return c, nil
 }
 

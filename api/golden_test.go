@@ -1,0 +1,91 @@
+package api
+
+import (
+	"bytes"
+	"context"
+	"encoding/hex"
+	"encoding/json"
+	"flag"
+	"os"
+	"path/filepath"
+	"testing"
+	"time"
+
+	"tidemark/api/intake"
+	"tidemark/bench/synth"
+	"tidemark/checkpoint"
+	"tidemark/learner"
+)
+
+var update = flag.Bool("update", false, "rewrite the golden checkpoint in testdata (only when the format version changes)")
+
+const goldenDir = "../testdata/checkpoint-v1"
+
+var goldenSpecs = []string{"knn:k=3,window=50", "rls:forget=0.99", "sliding-rls:window=40", "mean:window=20"}
+
+func goldenEngine(t *testing.T) *learner.Engine {
+	t.Helper()
+	cfg := learner.Config{Features: learner.FeatureConfig{HashBuckets: 2}, Score: learner.ScoreConfig{Recent: 50, KeyRecent: 10}}
+	for _, s := range goldenSpecs {
+		sp, err := learner.ParseSpec(s)
+		if err != nil {
+			t.Fatal(err)
+		}
+		cfg.Learners = append(cfg.Learners, sp)
+	}
+	eng, err := learner.NewEngine(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return eng
+}
+
+// TestGoldenCheckpointV1 loads the format-version-1 checkpoint kept in
+// testdata. Every later build must still load it, decode its state and report
+// the metrics recorded beside it. With -update it is rewritten from a replay
+// of the first 200 lines of the demo scenario (seed 3).
+func TestGoldenCheckpointV1(t *testing.T) {
+	if *update {
+		os.RemoveAll(goldenDir)
+		store, err := checkpoint.OpenStore(checkpoint.StoreConfig{Dir: goldenDir,
+			Now: func() time.Time { return time.Date(2026, 12, 1, 0, 0, 0, 0, time.UTC) }})
+		if err != nil {
+			t.Fatal(err)
+		}
+		var buf bytes.Buffer
+		synth.Write(&buf, synth.Config{Days: 1, Seed: 3})
+		lines := bytes.SplitAfter(buf.Bytes(), []byte("\n"))
+		eng := goldenEngine(t)
+		h := intake.NewHistoryReader(bytes.NewReader(bytes.Join(lines[:200], nil)))
+		if err := Replay(context.Background(), h, eng, ReplayConfig{Checkpoints: store}); err != nil {
+			t.Fatal(err)
+		}
+		store.Close()
+		rep, _ := json.MarshalIndent(eng.Report(true), "", "  ")
+		os.WriteFile(filepath.Join(goldenDir, "report.json"), rep, 0o644)
+	}
+	store, err := checkpoint.OpenStore(checkpoint.StoreConfig{Dir: goldenDir})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer store.Close()
+	c, err := store.Load(1)
+	if err != nil {
+		t.Fatalf("the golden version-1 checkpoint no longer loads: %v", err)
+	}
+	eng := goldenEngine(t)
+	if err := eng.DecodeSections(FromCheckpoint(c.Sections)); err != nil {
+		t.Fatalf("its state no longer decodes: %v", err)
+	}
+	if d := eng.Digest(); c.Manifest.StateSHA256 != hex.EncodeToString(d[:]) {
+		t.Errorf("decoded state digest %x, manifest %s", d, c.Manifest.StateSHA256)
+	}
+	want, err := os.ReadFile(filepath.Join(goldenDir, "report.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	got, _ := json.MarshalIndent(eng.Report(true), "", "  ")
+	if !bytes.Equal(got, want) {
+		t.Errorf("the golden checkpoint reports other metrics than recorded:\n%s", got)
+	}
+}

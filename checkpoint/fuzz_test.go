@@ -1,0 +1,52 @@
+package checkpoint
+
+import (
+	"errors"
+	"os"
+	"path/filepath"
+	"testing"
+)
+
+// FuzzDecode feeds arbitrary bytes to the checkpoint decoder: it must return
+// an error or a verified checkpoint, never panic, hang or allocate beyond the
+// decoded-size limit. Seeds: the golden version-1 file and its hostile copies
+// in testdata.
+func FuzzDecode(f *testing.F) {
+	for _, pattern := range []string{"../testdata/checkpoint-v1/*.tdmk", "../testdata/checkpoint-hostile/*.tdmk"} {
+		paths, _ := filepath.Glob(pattern)
+		for _, p := range paths {
+			b, err := os.ReadFile(p)
+			if err != nil {
+				f.Fatal(err)
+			}
+			f.Add(b)
+		}
+	}
+	s, err := OpenStore(StoreConfig{Dir: f.TempDir(), MaxRawBytes: 8 << 20})
+	if err != nil {
+		f.Fatal(err)
+	}
+	f.Fuzz(func(t *testing.T, b []byte) {
+		c, err := s.decode("fuzz", b, nil)
+		if err == nil && c.Manifest.StateSHA256 != stateDigest(c.Sections) {
+			t.Fatal("a checkpoint decoded whose state digest does not match")
+		}
+		if err != nil && !errors.Is(err, ErrCorrupt) {
+			t.Fatalf("error %v does not wrap ErrCorrupt", err)
+		}
+	})
+}
+
+func TestHostileCopiesRefused(t *testing.T) {
+	s := openTest(t, StoreConfig{})
+	paths, _ := filepath.Glob("../testdata/checkpoint-hostile/*.tdmk")
+	if len(paths) < 4 {
+		t.Fatalf("found %d hostile copies in testdata", len(paths))
+	}
+	for _, p := range paths {
+		b, _ := os.ReadFile(p)
+		if _, err := s.decode(filepath.Base(p), b, nil); !errors.Is(err, ErrCorrupt) {
+			t.Errorf("%s: %v, want ErrCorrupt", p, err)
+		}
+	}
+}
