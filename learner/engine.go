@@ -87,7 +87,7 @@ type Engine struct {
 	hwm      map[int32]int64
 
 	applied, rejected, duplicates, ignored int64
-	alarms                                 int64
+	alarms, skipped                        int64
 
 	x []float64
 }
@@ -259,31 +259,91 @@ func (e *Engine) newKey(key string, partition int32) *keyState {
 	return ks
 }
 
+// Prediction is the answer of one learner for one row.
+type Prediction struct {
+	Value   float64
+	Trained int64 // events this learner has trained on for the key
+	Scored  int64 // of those, events it was scored on (prequentially)
+	// RecentRMSE is the learner's RMSE over the key's recent scored events,
+	// nil before any; services derive an approximate interval from it.
+	RecentRMSE *float64
+}
+
 // Predict answers for one row of features of the given key with the named
 // learner, without changing any state but the learner's scratch space. The
 // row's features are matched against the schema as in Apply (the target is
-// ignored). It returns the prediction and the number of events that learner
-// has trained on for the key.
-func (e *Engine) Predict(key, learner string, ev *Event) (float64, int64, error) {
+// ignored).
+func (e *Engine) Predict(key, learner string, ev *Event) (Prediction, error) {
 	i := slices.IndexFunc(e.cfg.Learners, func(s Spec) bool { return s.Name == learner })
 	if i < 0 {
-		return 0, 0, fmt.Errorf("%w: %q", ErrUnknownLearner, learner)
+		return Prediction{}, fmt.Errorf("%w: %q (configured: %s)", ErrUnknownLearner, learner, e.cfg.Names())
 	}
 	ks := e.keys[key]
 	if ks == nil || e.schema == nil {
-		return 0, 0, fmt.Errorf("%w: %q has no events yet", ErrUnknownKey, key)
+		return Prediction{}, fmt.Errorf("%w: key %q has no events yet", ErrUnknownKey, key)
 	}
 	x := make([]float64, e.schema.Dim())
 	if _, err := e.schema.Vector(x, ev); err != nil {
-		return 0, 0, err
+		return Prediction{}, err
 	}
 	l := ks.learners[i]
+	m := ks.scores[i].Metrics()
+	p := Prediction{Trained: l.Trained(), Scored: m.Scored, RecentRMSE: m.Recent.RMSE}
+	// Predicting does not move a time window: only training does. A row's
+	// time only feeds the time features.
 	y, ok := l.Predict(x)
 	if !ok {
-		return 0, l.Trained(), fmt.Errorf("%w: learner %q has trained on %d events of key %q", ErrNotReady, learner, l.Trained(), key)
+		return p, fmt.Errorf("%w: learner %q has trained on %d events of key %q", ErrNotReady, learner, l.Trained(), key)
 	}
-	return y, l.Trained(), nil
+	p.Value = y
+	return p, nil
 }
+
+// Names returns the learner names, comma-separated, for messages.
+func (c Config) Names() string {
+	var names []string
+	for _, s := range c.Learners {
+		names = append(names, s.Name)
+	}
+	return strings.Join(names, ", ")
+}
+
+// Pass covers pos without applying its event and without counting it as
+// rejected: a restore that skips a bad burst passes over its events. The
+// count is reported as skipped.
+func (e *Engine) Pass(pos Position) {
+	if e.Covers(pos) {
+		return
+	}
+	e.hwm[pos.Partition] = pos.Offset
+	e.skipped++
+}
+
+// CoverUpTo raises each partition's high-water mark to the given position
+// without applying anything: after restoring an older state, the events
+// between it and ps are forgotten, not replayed (restore "from_now").
+func (e *Engine) CoverUpTo(ps []Position) {
+	for _, p := range ps {
+		if !e.Covers(p) {
+			e.hwm[p.Partition] = p.Offset
+		}
+	}
+}
+
+// Clone returns an independent copy of the engine, for publishing to readers.
+func (e *Engine) Clone() *Engine {
+	c, err := NewEngine(e.cfg)
+	if err != nil {
+		panic("learner: clone of a valid engine failed: " + err.Error())
+	}
+	if err := c.DecodeSections(e.Sections()); err != nil {
+		panic("learner: clone of a valid engine failed: " + err.Error())
+	}
+	return c
+}
+
+// Key reports whether the key has learners yet.
+func (e *Engine) Key(key string) bool { return e.keys[key] != nil }
 
 // sortedKeys returns the key states ordered by (partition, key).
 func (e *Engine) sortedKeys() []*keyState {

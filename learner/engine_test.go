@@ -205,9 +205,9 @@ func ExampleEngine() {
 		ev := &Event{Target: 2 + 3*x, Features: []Feature{{Name: "x", Num: x}}}
 		e.Apply(Position{Offset: int64(i)}, ev)
 	}
-	y, n, _ := e.Predict("", "rls:p0=inf", &Event{Features: []Feature{{Name: "x", Num: 10}}})
+	p, _ := e.Predict("", "rls:p0=inf", &Event{Features: []Feature{{Name: "x", Num: 10}}})
 	r := e.Report(false)
-	fmt.Printf("predict(10) = %.6g after %d events; scored %d, mae %.3g\n", y, n, r.Learners[0].Scored, *r.Learners[0].MAE)
+	fmt.Printf("predict(10) = %.6g after %d events; scored %d, mae %.3g\n", p.Value, p.Trained, r.Learners[0].Scored, *r.Learners[0].MAE)
 	// Output: predict(10) = 32 after 4 events; scored 2, mae 4.44e-16
 }
 
@@ -239,13 +239,13 @@ func TestEngineSectionsRestoreOnePartition(t *testing.T) {
 	}
 	q := &Event{Features: []Feature{{Name: "a", Num: 0.5}, {Name: "b", Num: 3}, {Name: "shift", Str: "day", IsStr: true}}}
 	for _, l := range []string{"rls:forget=0.99", "knn:k=3,window=50"} {
-		ya, _, err1 := a.Predict("south", l, q)
-		yb, _, err2 := b.Predict("south", l, q)
-		if err1 != nil || err2 != nil || ya != yb {
+		ya, err1 := a.Predict("south", l, q)
+		yb, err2 := b.Predict("south", l, q)
+		if err1 != nil || err2 != nil || ya.Value != yb.Value {
 			t.Errorf("%s: partition-only restore predicts %v (%v), full %v (%v)", l, yb, err2, ya, err1)
 		}
 	}
-	if _, _, err := b.Predict("north", "rls:forget=0.99", q); !errors.Is(err, ErrUnknownKey) {
+	if _, err := b.Predict("north", "rls:forget=0.99", q); !errors.Is(err, ErrUnknownKey) {
 		t.Errorf("key of an unrestored partition: %v, want ErrUnknownKey", err)
 	}
 	if a.Config().Digest() != b.Config().Digest() {

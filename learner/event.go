@@ -52,7 +52,13 @@ type wireEvent struct {
 // ev.Features' storage. Any problem — not JSON, a missing or non-finite target,
 // a feature that is neither a number nor a string, a size past the limits — is
 // an error wrapping ErrInvalidEvent whose text says what is wrong.
-func DecodeEvent(data []byte, ev *Event) error {
+func DecodeEvent(data []byte, ev *Event) error { return decodeEvent(data, ev, true) }
+
+// DecodeRow parses a prediction row: an event whose target is optional and
+// ignored.
+func DecodeRow(data []byte, ev *Event) error { return decodeEvent(data, ev, false) }
+
+func decodeEvent(data []byte, ev *Event, needTarget bool) error {
 	if len(data) > MaxEventBytes {
 		return invalid("event is %d bytes, more than the limit of %d", len(data), MaxEventBytes)
 	}
@@ -65,14 +71,16 @@ func DecodeEvent(data []byte, ev *Event) error {
 		return invalid("not valid JSON: %v", err)
 	}
 	*ev = Event{Features: ev.Features[:0]}
-	if isAbsent(w.Target) {
-		return invalid("target is missing")
+	if needTarget || !isAbsent(w.Target) {
+		if isAbsent(w.Target) {
+			return invalid("target is missing")
+		}
+		y, err := number(w.Target)
+		if err != nil {
+			return invalid("target: %v", err)
+		}
+		ev.Target = y
 	}
-	y, err := number(w.Target)
-	if err != nil {
-		return invalid("target: %v", err)
-	}
-	ev.Target = y
 	if !isAbsent(w.Key) {
 		var k string
 		if err := json.Unmarshal(w.Key, &k); err != nil {

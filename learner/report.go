@@ -8,6 +8,7 @@ type Report struct {
 	Events          int64           `json:"events"` // events applied (trained on)
 	Rejected        int64           `json:"rejected"`
 	Duplicates      int64           `json:"duplicates"`
+	Skipped         int64           `json:"skipped"` // passed over by a restore that skipped a range
 	IgnoredFeatures int64           `json:"ignored_features"`
 	Keys            int             `json:"keys"`
 	RecentWindow    int             `json:"recent_window"` // scored events in each learner's "recent" metrics
@@ -53,7 +54,7 @@ type AlarmReport struct {
 
 // Report builds the report; withKeys adds per-key metrics.
 func (e *Engine) Report(withKeys bool) Report {
-	r := Report{Events: e.applied, Rejected: e.rejected, Duplicates: e.duplicates, IgnoredFeatures: e.ignored,
+	r := Report{Events: e.applied, Rejected: e.rejected, Duplicates: e.duplicates, Skipped: e.skipped, IgnoredFeatures: e.ignored,
 		Keys: len(e.keys), RecentWindow: e.cfg.Score.Recent, Positions: e.Positions()}
 	keys := e.sortedKeys()
 	for i := range e.cfg.Learners {

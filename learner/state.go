@@ -16,7 +16,8 @@ import (
 //
 //	global section: magic "TMSG", u32 state version; learner count and each
 //	  learner's canonical spec (checked on decode); schema (or absent);
-//	  counters applied, rejected, duplicates, ignored features, alarms; per
+//	  counters applied, rejected, duplicates, ignored features, alarms,
+//	  skipped; per
 //	  learner overall: scorer, alarm count, last alarm (or absent)
 //	partition section, one per partition seen, ascending: magic "TMSP",
 //	  partition, high-water offset; key count, then per key (sorted): name,
@@ -28,7 +29,7 @@ import (
 const (
 	globalMagic    = "TMSG"
 	partitionMagic = "TMSP"
-	stateVersion   = 1
+	stateVersion   = 2 // 2 added the skipped counter; version 1 is still read
 	maxNames       = MaxFeatures
 	maxSections    = 1 << 20
 )
@@ -63,6 +64,7 @@ func (e *Engine) Sections() []Section {
 	w.i64(e.duplicates)
 	w.i64(e.ignored)
 	w.i64(e.alarms)
+	w.i64(e.skipped)
 	for i := range e.totals {
 		t := &e.totals[i]
 		t.score.encode(w)
@@ -190,8 +192,9 @@ func (e *Engine) decodeGlobal(b []byte) error {
 	if string(r.take(len(globalMagic))) != globalMagic {
 		return fmt.Errorf("%w: bad magic in the global section", ErrCorruptState)
 	}
-	if v := r.u32(); v != stateVersion {
-		return fmt.Errorf("%w: state version %d, this build reads %d", ErrCorruptState, v, stateVersion)
+	v := r.u32()
+	if v < 1 || v > stateVersion {
+		return fmt.Errorf("%w: state version %d, this build reads 1 to %d", ErrCorruptState, v, stateVersion)
 	}
 	n := r.count(1<<16, 4)
 	if r.err == nil && n != len(e.cfg.Learners) {
@@ -214,6 +217,9 @@ func (e *Engine) decodeGlobal(b []byte) error {
 		e.schema = s
 	}
 	e.applied, e.rejected, e.duplicates, e.ignored, e.alarms = r.i64(), r.i64(), r.i64(), r.i64(), r.i64()
+	if v >= 2 {
+		e.skipped = r.i64()
+	}
 	for i := range e.totals {
 		t := &e.totals[i]
 		t.score.decode(r)
