@@ -35,6 +35,7 @@ type command struct {
 
 func commands() []command {
 	return []command{
+		{"serve", "run the service: learn from the journal (HTTP) or Kafka, answer predictions", runServe},
 		{"replay", "prequential comparison of learners on a recorded history file", runReplay},
 		{"checkpoints", "list, show, verify, pin or unpin the checkpoints in a directory", runCheckpoints},
 		{"synth", "write the demo scenario's history (a cold-storage warehouse)", runSynth},

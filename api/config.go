@@ -1,0 +1,142 @@
+package api
+
+import (
+	"errors"
+	"fmt"
+	"log/slog"
+	"net"
+	"time"
+
+	"tidemark/api/intake"
+	"tidemark/learner"
+)
+
+// Defaults of Config.
+const (
+	DefaultListen             = "127.0.0.1:8080"
+	DefaultCheckpointEvery    = 10_000
+	DefaultCheckpointInterval = 5 * time.Minute
+	DefaultBodyLimit          = 16 << 20
+	DefaultMaxRows            = 10_000
+	DefaultMinScored          = 10
+	DefaultPublishEvery       = 200 * time.Millisecond
+	DefaultCurvePoints        = 2000
+	DefaultCurveEvery         = 100
+)
+
+// Config configures the service. Zero fields take the defaults.
+type Config struct {
+	Listen  string // HTTP address. Default: DefaultListen (loopback only).
+	DataDir string // journal/, checkpoints/, deadletters.ndjson. Required.
+	Engine  learner.Config
+	// Token, when set, is required as "Authorization: Bearer <token>" on every
+	// changing endpoint. Default: none (changing endpoints are open; the
+	// default listen address is loopback).
+	Token string
+	// CheckpointEvery is the number of applied events between periodic
+	// checkpoints. Default: DefaultCheckpointEvery.
+	CheckpointEvery int64
+	// CheckpointInterval takes a checkpoint this long after the last one when
+	// events were applied since. Default: DefaultCheckpointInterval.
+	CheckpointInterval time.Duration
+	Retain             int   // checkpoints kept besides pinned ones. Default: the store's (20).
+	BodyLimit          int64 // bytes of a request body. Default: DefaultBodyLimit.
+	MaxRows            int   // rows of a predict request, events of a POST. Default: DefaultMaxRows.
+	// MinScored is how many events a learner must have been scored on for a
+	// key before predict answers for it. Default: DefaultMinScored; negative
+	// means no minimum.
+	MinScored int64
+	// DefaultLearner answers predict requests that name none. Default: the first.
+	DefaultLearner string
+	// PublishEvery is the longest a published snapshot (what predict and the
+	// read endpoints see) lags the engine. Default: DefaultPublishEvery.
+	PublishEvery time.Duration
+	// CurveEvery is the number of applied events between points of the error
+	// curves; CurvePoints the points kept per learner. Defaults:
+	// DefaultCurveEvery, DefaultCurvePoints.
+	CurveEvery  int64
+	CurvePoints int
+	// Kafka, when set, is the event source instead of the local journal.
+	Kafka *intake.KafkaConfig
+	// Log receives operational messages; never tokens or event payloads at
+	// Info level. Nil discards them.
+	Log *slog.Logger
+	// Journal segment size; zero for the intake default.
+	JournalSegmentBytes int64
+}
+
+// Validate reports every problem with c. It changes nothing.
+func (c *Config) Validate() error {
+	var errs []error
+	if c.DataDir == "" {
+		errs = append(errs, errors.New("data directory: required (--data DIR)"))
+	}
+	if c.Listen != "" {
+		if _, _, err := net.SplitHostPort(c.Listen); err != nil {
+			errs = append(errs, fmt.Errorf("listen address %q: %v", c.Listen, err))
+		}
+	}
+	if err := c.Engine.Validate(); err != nil {
+		errs = append(errs, err)
+	}
+	if c.CheckpointEvery < 0 {
+		errs = append(errs, fmt.Errorf("checkpoint every %d events: want a positive number", c.CheckpointEvery))
+	}
+	if c.CheckpointInterval < 0 {
+		errs = append(errs, fmt.Errorf("checkpoint interval %v: want a positive duration", c.CheckpointInterval))
+	}
+	if c.BodyLimit < 0 || c.MaxRows < 0 || c.Retain < 0 {
+		errs = append(errs, errors.New("body limit, max rows and retain must not be negative"))
+	}
+	if c.DefaultLearner != "" {
+		found := false
+		for _, s := range c.Engine.Learners {
+			found = found || s.Name == c.DefaultLearner
+		}
+		if !found {
+			errs = append(errs, fmt.Errorf("default learner %q: not among the configured learners (%s)", c.DefaultLearner, c.Engine.Names()))
+		}
+	}
+	if c.Kafka != nil {
+		if err := c.Kafka.Validate(); err != nil {
+			errs = append(errs, err)
+		}
+	}
+	return errors.Join(errs...)
+}
+
+func (c *Config) setDefaults() {
+	if c.Listen == "" {
+		c.Listen = DefaultListen
+	}
+	if c.CheckpointEvery == 0 {
+		c.CheckpointEvery = DefaultCheckpointEvery
+	}
+	if c.CheckpointInterval == 0 {
+		c.CheckpointInterval = DefaultCheckpointInterval
+	}
+	if c.BodyLimit == 0 {
+		c.BodyLimit = DefaultBodyLimit
+	}
+	if c.MaxRows == 0 {
+		c.MaxRows = DefaultMaxRows
+	}
+	if c.MinScored == 0 {
+		c.MinScored = DefaultMinScored
+	}
+	if c.DefaultLearner == "" && len(c.Engine.Learners) > 0 {
+		c.DefaultLearner = c.Engine.Learners[0].Name
+	}
+	if c.PublishEvery == 0 {
+		c.PublishEvery = DefaultPublishEvery
+	}
+	if c.CurveEvery == 0 {
+		c.CurveEvery = DefaultCurveEvery
+	}
+	if c.CurvePoints == 0 {
+		c.CurvePoints = DefaultCurvePoints
+	}
+	if c.Log == nil {
+		c.Log = slog.New(slog.DiscardHandler)
+	}
+}

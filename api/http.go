@@ -1,0 +1,376 @@
+package api
+
+import (
+	"bytes"
+	"crypto/subtle"
+	_ "embed"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"net/http"
+	"strconv"
+	"strings"
+	"time"
+
+	"github.com/labstack/echo/v4"
+	"github.com/labstack/echo/v4/middleware"
+
+	"tidemark/checkpoint"
+	"tidemark/learner"
+)
+
+//go:embed openapi.json
+var openapiDoc []byte
+
+// Server timeouts: a slow client cannot hold a connection open for ever.
+const (
+	readHeaderTimeout = 5 * time.Second
+	readTimeout       = 60 * time.Second
+	writeTimeout      = 60 * time.Second
+	idleTimeout       = 120 * time.Second
+)
+
+func (s *Service) newHTTP() *http.Server {
+	e := echo.New()
+	e.HideBanner, e.HidePort = true, true
+	e.HTTPErrorHandler = s.errorHandler
+	e.Use(middleware.Recover())
+	e.Use(middleware.BodyLimit(strconv.FormatInt(s.cfg.BodyLimit, 10) + "B"))
+	auth := s.requireToken
+	e.POST("/v1/predict", s.handlePredict)
+	e.POST("/v1/events", s.handleEvents, auth)
+	e.GET("/v1/learners", s.handleLearners)
+	e.GET("/v1/learners/:name/curve", s.handleCurve)
+	e.GET("/v1/checkpoints", s.handleCheckpoints)
+	e.POST("/v1/checkpoints", s.handleTakeCheckpoint, auth)
+	e.POST("/v1/checkpoints/:version/restore", s.handleRestore, auth)
+	e.GET("/healthz", func(c echo.Context) error { return c.JSON(http.StatusOK, map[string]string{"status": "ok"}) })
+	e.GET("/readyz", s.handleReady)
+	e.GET("/metrics", echo.WrapHandler(s.metrics.handler()))
+	e.GET("/v1/openapi.json", func(c echo.Context) error { return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, openapiDoc) })
+	return &http.Server{Addr: s.cfg.Listen, Handler: e, ReadHeaderTimeout: readHeaderTimeout,
+		ReadTimeout: readTimeout, WriteTimeout: writeTimeout, IdleTimeout: idleTimeout}
+}
+
+// errorHandler renders every error as {"message": ...}; the cause of a 5xx
+// goes to the log, not to the client.
+func (s *Service) errorHandler(err error, c echo.Context) {
+	if c.Response().Committed {
+		return
+	}
+	code, msg := http.StatusInternalServerError, "internal error; see the service log"
+	var he *echo.HTTPError
+	if errors.As(err, &he) {
+		code = he.Code
+		msg = fmt.Sprint(he.Message)
+		if code == http.StatusRequestEntityTooLarge {
+			msg = fmt.Sprintf("request body larger than the limit of %d bytes; send fewer events or rows per request", s.cfg.BodyLimit)
+		}
+		if he.Internal != nil && code >= 500 {
+			s.cfg.Log.Error("request failed", "path", c.Path(), "error", he.Internal)
+		}
+	} else {
+		s.cfg.Log.Error("request failed", "path", c.Path(), "error", err)
+	}
+	c.JSON(code, map[string]string{"message": msg})
+}
+
+func httpErr(code int, format string, args ...any) error {
+	return echo.NewHTTPError(code, fmt.Sprintf(format, args...))
+}
+
+// requireToken checks "Authorization: Bearer <token>" in constant time when
+// a token is configured.
+func (s *Service) requireToken(next echo.HandlerFunc) echo.HandlerFunc {
+	return func(c echo.Context) error {
+		if s.cfg.Token == "" {
+			return next(c)
+		}
+		got, ok := strings.CutPrefix(c.Request().Header.Get("Authorization"), "Bearer ")
+		if !ok || subtle.ConstantTimeCompare([]byte(got), []byte(s.cfg.Token)) != 1 {
+			c.Response().Header().Set("WWW-Authenticate", `Bearer realm="tidemark"`)
+			return httpErr(http.StatusUnauthorized, "this endpoint changes state: send Authorization: Bearer <token> with the service's token")
+		}
+		return next(c)
+	}
+}
+
+func readBody(c echo.Context) ([]byte, error) {
+	b, err := io.ReadAll(c.Request().Body)
+	if err != nil {
+		var he *echo.HTTPError
+		if errors.As(err, &he) {
+			return nil, he
+		}
+		return nil, httpErr(http.StatusBadRequest, "could not read the request body: %v", err)
+	}
+	return b, nil
+}
+
+// PredictRow is one row of a predict request: the features of an event
+// (and its key and time), without target.
+type PredictRow = json.RawMessage
+
+// PredictRequest is the body of POST /v1/predict: one row (an event without
+// target) or {"rows": [...]}, and optionally the learner to ask.
+type PredictRequest struct {
+	Learner string            `json:"learner,omitempty"`
+	Rows    []json.RawMessage `json:"rows,omitempty"`
+}
+
+// Interval is an approximate 95 % prediction interval: prediction ± 1.96 ×
+// the learner's recent RMSE on the key (a normal approximation, common
+// practice; check its coverage before relying on it).
+type Interval struct {
+	Low  float64 `json:"low"`
+	High float64 `json:"high"`
+}
+
+// PredictAnswer is the answer for one row.
+type PredictAnswer struct {
+	Key        string    `json:"key"`
+	Prediction float64   `json:"prediction"`
+	Interval   *Interval `json:"interval,omitempty"`
+	RecentRMSE *float64  `json:"recent_rmse"`
+	Trained    int64     `json:"events_trained"`
+	Scored     int64     `json:"events_scored"`
+}
+
+// PredictResponse is the body of a predict answer.
+type PredictResponse struct {
+	Learner     string          `json:"learner"`
+	Checkpoint  uint64          `json:"checkpoint_version"`
+	Events      int64           `json:"events_applied"`
+	Predictions []PredictAnswer `json:"predictions,omitempty"`
+	PredictAnswer
+	Caution string `json:"caution"`
+}
+
+const caution = "A prediction is only as good as the learner's recent error on this key: check recent_rmse before acting. tidemark is not a safety system."
+
+func (s *Service) handlePredict(c echo.Context) error {
+	start := time.Now()
+	defer func() { s.metrics.predictLatency.Observe(time.Since(start).Seconds()) }()
+	body, err := readBody(c)
+	if err != nil {
+		return err
+	}
+	var req PredictRequest
+	if err := json.Unmarshal(body, &req); err != nil {
+		return httpErr(http.StatusBadRequest, "the body is not a JSON object: %v; send {\"key\":…,\"features\":{…}} or {\"rows\":[…]}", err)
+	}
+	single := req.Rows == nil
+	rows := req.Rows
+	if single {
+		rows = []json.RawMessage{body}
+	}
+	if len(rows) == 0 {
+		return httpErr(http.StatusBadRequest, "rows is empty; send at least one row")
+	}
+	if len(rows) > s.cfg.MaxRows {
+		return httpErr(http.StatusRequestEntityTooLarge, "%d rows, more than the limit of %d per request", len(rows), s.cfg.MaxRows)
+	}
+	name := req.Learner
+	if name == "" {
+		name = s.cfg.DefaultLearner
+	}
+	snap := s.snap.Load()
+	resp := PredictResponse{Learner: name, Checkpoint: snap.ckVersion, Events: snap.applied, Caution: caution}
+	var ev learner.Event
+	for i, row := range rows {
+		where := ""
+		if !single {
+			where = fmt.Sprintf("row %d: ", i)
+		}
+		if err := learner.DecodeRow(row, &ev); err != nil {
+			return httpErr(http.StatusBadRequest, "%s%v", where, err)
+		}
+		p, err := snap.predict(ev.Key, name, &ev)
+		switch {
+		case errors.Is(err, learner.ErrUnknownLearner):
+			return httpErr(http.StatusNotFound, "%s%v", where, err)
+		case errors.Is(err, learner.ErrUnknownKey):
+			return httpErr(http.StatusNotFound, "%s%v; a key gets learners with its first event", where, err)
+		case errors.Is(err, learner.ErrRejected):
+			return httpErr(http.StatusBadRequest, "%s%v", where, err)
+		case errors.Is(err, learner.ErrNotReady):
+			return httpErr(http.StatusConflict, "%s%v; it needs more events before it predicts", where, err)
+		case err != nil:
+			return err
+		}
+		if s.cfg.MinScored > 0 && p.Scored < s.cfg.MinScored {
+			return httpErr(http.StatusConflict, "%slearner %q has been scored on %d events of key %q; it answers after %d, so that its recent error can be checked first",
+				where, name, p.Scored, ev.Key, s.cfg.MinScored)
+		}
+		a := PredictAnswer{Key: ev.Key, Prediction: p.Value, RecentRMSE: p.RecentRMSE, Trained: p.Trained, Scored: p.Scored}
+		if p.RecentRMSE != nil && !math.IsNaN(*p.RecentRMSE) {
+			a.Interval = &Interval{Low: p.Value - 1.96**p.RecentRMSE, High: p.Value + 1.96**p.RecentRMSE}
+		}
+		if single {
+			resp.PredictAnswer = a
+		} else {
+			resp.Predictions = append(resp.Predictions, a)
+		}
+	}
+	return c.JSON(http.StatusOK, resp)
+}
+
+// EventsResponse answers POST /v1/events.
+type EventsResponse struct {
+	Accepted    int             `json:"accepted"`
+	FirstOffset int64           `json:"first_offset,omitempty"`
+	LastOffset  int64           `json:"last_offset,omitempty"`
+	Rejected    []RejectedEvent `json:"rejected,omitempty"`
+}
+
+// RejectedEvent names an event of the request that was not accepted.
+type RejectedEvent struct {
+	Index  int    `json:"index"`
+	Reason string `json:"reason"`
+}
+
+func (s *Service) handleEvents(c echo.Context) error {
+	if s.journal == nil {
+		return httpErr(http.StatusConflict, "this service learns from Kafka; produce events to its topic instead of posting them")
+	}
+	body, err := readBody(c)
+	if err != nil {
+		return err
+	}
+	lines, err := splitEvents(body)
+	if err != nil {
+		return httpErr(http.StatusBadRequest, "%v", err)
+	}
+	if len(lines) > s.cfg.MaxRows {
+		return httpErr(http.StatusRequestEntityTooLarge, "%d events, more than the limit of %d per request", len(lines), s.cfg.MaxRows)
+	}
+	var resp EventsResponse
+	var ok [][]byte
+	var ev learner.Event
+	for i, l := range lines {
+		if err := learner.DecodeEvent(l, &ev); err != nil {
+			resp.Rejected = append(resp.Rejected, RejectedEvent{Index: i, Reason: err.Error()})
+			continue
+		}
+		ok = append(ok, l)
+	}
+	if len(ok) == 0 {
+		return c.JSON(http.StatusBadRequest, map[string]any{"message": "no valid event in the request; see rejected", "rejected": resp.Rejected})
+	}
+	first, last, err := s.journal.Append(ok)
+	if err != nil {
+		s.metrics.journalFailures.Inc()
+		return echo.NewHTTPError(http.StatusServiceUnavailable, "the events could not be stored durably and were not accepted; retry later").SetInternal(err)
+	}
+	s.metrics.eventsReceived.Add(float64(len(ok)))
+	resp.Accepted, resp.FirstOffset, resp.LastOffset = len(ok), first, last
+	return c.JSON(http.StatusOK, resp)
+}
+
+// splitEvents accepts NDJSON (one event per line) or a JSON array of events.
+func splitEvents(body []byte) ([][]byte, error) {
+	t := bytes.TrimSpace(body)
+	if len(t) == 0 {
+		return nil, errors.New("the body is empty; send NDJSON events or a JSON array of events")
+	}
+	if t[0] == '[' {
+		var arr []json.RawMessage
+		if err := json.Unmarshal(t, &arr); err != nil {
+			return nil, fmt.Errorf("the body starts with [ but is not a JSON array: %v", err)
+		}
+		out := make([][]byte, len(arr))
+		for i, a := range arr {
+			out[i] = bytes.TrimSpace(a)
+		}
+		return out, nil
+	}
+	var out [][]byte
+	for _, l := range bytes.Split(t, []byte("\n")) {
+		if l = bytes.TrimSpace(l); len(l) > 0 {
+			out = append(out, l)
+		}
+	}
+	return out, nil
+}
+
+func (s *Service) handleLearners(c echo.Context) error {
+	snap := s.snap.Load()
+	r := snap.report
+	if c.QueryParam("keys") == "false" {
+		ls := make([]learner.LearnerReport, len(r.Learners))
+		for i, l := range r.Learners {
+			l.Keys = nil
+			ls[i] = l
+		}
+		r.Learners = ls
+	}
+	return c.JSON(http.StatusOK, r)
+}
+
+func (s *Service) handleCurve(c echo.Context) error {
+	pts, ok := s.curves.get(c.Param("name"))
+	if !ok {
+		return httpErr(http.StatusNotFound, "no learner named %q (configured: %s)", c.Param("name"), s.cfg.Engine.Names())
+	}
+	return c.JSON(http.StatusOK, map[string]any{"learner": c.Param("name"), "every": s.cfg.CurveEvery, "points": pts})
+}
+
+func (s *Service) handleCheckpoints(c echo.Context) error {
+	list, err := s.store.List()
+	if err != nil {
+		return err
+	}
+	if list == nil {
+		list = []checkpoint.Info{}
+	}
+	return c.JSON(http.StatusOK, list)
+}
+
+func (s *Service) handleTakeCheckpoint(c echo.Context) error {
+	res := s.do(func(s *Service) cmdResult {
+		if err := s.checkpoint(checkpoint.Manual, 0); err != nil {
+			return cmdResult{err: err}
+		}
+		s.publish()
+		return cmdResult{info: s.lastCk}
+	})
+	if res.err != nil {
+		return echo.NewHTTPError(http.StatusServiceUnavailable, "the checkpoint could not be written; earlier ones are intact").SetInternal(res.err)
+	}
+	return c.JSON(http.StatusCreated, res.info)
+}
+
+func (s *Service) handleRestore(c echo.Context) error {
+	v, err := strconv.ParseUint(c.Param("version"), 10, 64)
+	if err != nil || v == 0 {
+		return httpErr(http.StatusBadRequest, "version %q: want a positive integer", c.Param("version"))
+	}
+	body, err := readBody(c)
+	if err != nil {
+		return err
+	}
+	var req RestoreRequest
+	dec := json.NewDecoder(bytes.NewReader(body))
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(&req); err != nil {
+		return httpErr(http.StatusBadRequest, "the body must be {\"resume\":\"from_checkpoint\"|\"from_now\"|\"skip\", …}: %v", err)
+	}
+	res := s.do(func(s *Service) cmdResult { return s.restore(v, req) })
+	if res.err != nil {
+		code := res.code
+		if code == 0 {
+			code = http.StatusInternalServerError
+		}
+		return httpErr(code, "%v", res.err)
+	}
+	return c.JSON(http.StatusOK, RestoreResult{Restored: v, Resume: req.Resume, Checkpoint: res.info, Position: s.snap.Load().eng.Positions()})
+}
+
+func (s *Service) handleReady(c echo.Context) error {
+	if !s.ready.Load() {
+		return c.JSON(http.StatusServiceUnavailable, map[string]any{"ready": false, "message": "restoring or catching up with the stream"})
+	}
+	return c.JSON(http.StatusOK, map[string]any{"ready": true})
+}

@@ -1,0 +1,294 @@
+package intake
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"slices"
+	"sync"
+	"time"
+
+	"github.com/segmentio/kafka-go"
+
+	"tidemark/learner"
+)
+
+// Kafka intake. Delivery semantics, in full:
+//
+//   - The service joins a Kafka consumer group (kafka-go's ConsumerGroup) only
+//     to learn which partitions are its own. It does not start from the
+//     group's committed offsets: on every assignment each partition is read
+//     (with a partition reader) from the offset after the one the engine's
+//     state covers — the newest checkpoint's position at start, and what was
+//     already handed over since. The state is therefore exactly-once however
+//     often the group rebalances or the process restarts.
+//   - Offsets are committed to the group only after a checkpoint covering
+//     them is durable (Commit), so that the group's lag shows how far the
+//     durable state is behind; committed offsets are never read back.
+//   - A message may still be handed over twice (a rebalance, a reconnect);
+//     the engine ignores a position its state already covers.
+//   - Per-key order is Kafka's: a key lives in one partition.
+//
+// A partition that has never been checkpointed is read from its first offset.
+
+// KafkaConfig configures the Kafka intake.
+type KafkaConfig struct {
+	Brokers []string // bootstrap brokers, host:port. Required.
+	Topic   string   // Required.
+	Group   string   // consumer group. Default: "tidemark".
+	// MaxWait bounds how long a fetch waits for new messages. Default: 250ms.
+	MaxWait time.Duration
+	Log     *slog.Logger // Nil discards.
+}
+
+// Validate reports every problem with c. It changes nothing.
+func (c *KafkaConfig) Validate() error {
+	var errs []error
+	if len(c.Brokers) == 0 {
+		errs = append(errs, errors.New("kafka: no brokers given (--kafka-brokers host:port,...)"))
+	}
+	for _, b := range c.Brokers {
+		if b == "" {
+			errs = append(errs, errors.New("kafka: an empty broker address"))
+		}
+	}
+	if c.Topic == "" {
+		errs = append(errs, errors.New("kafka: no topic given (--kafka-topic T)"))
+	}
+	return errors.Join(errs...)
+}
+
+// Kafka reads events from a topic. Safe for concurrent use.
+type Kafka struct {
+	cfg    KafkaConfig
+	client *kafka.Client
+
+	mu        sync.Mutex
+	gen       *kafka.Generation
+	next      map[int32]int64 // next offset to hand over, per partition
+	high      map[int32]int64 // high watermark (next offset to be written)
+	connected bool
+	outage    time.Time
+}
+
+// NewKafka prepares the intake; nothing connects until Run.
+func NewKafka(cfg KafkaConfig) (*Kafka, error) {
+	if err := cfg.Validate(); err != nil {
+		return nil, err
+	}
+	if cfg.Group == "" {
+		cfg.Group = "tidemark"
+	}
+	if cfg.MaxWait == 0 {
+		cfg.MaxWait = 250 * time.Millisecond
+	}
+	if cfg.Log == nil {
+		cfg.Log = slog.New(slog.DiscardHandler)
+	}
+	return &Kafka{cfg: cfg, client: &kafka.Client{Addr: kafka.TCP(cfg.Brokers...), Timeout: 10 * time.Second},
+		next: map[int32]int64{}, high: map[int32]int64{}}, nil
+}
+
+// Connected reports whether the last exchange with the brokers succeeded,
+// and since when they have been unreachable otherwise.
+func (k *Kafka) Connected() (bool, time.Time) {
+	k.mu.Lock()
+	defer k.mu.Unlock()
+	return k.connected, k.outage
+}
+
+func (k *Kafka) setConnected(ok bool, err error) {
+	k.mu.Lock()
+	defer k.mu.Unlock()
+	if ok == k.connected {
+		return
+	}
+	k.connected = ok
+	if ok {
+		k.cfg.Log.Info("kafka: connected", "brokers", k.cfg.Brokers, "down_for", time.Since(k.outage).Round(time.Millisecond).String())
+	} else {
+		k.outage = time.Now()
+		k.cfg.Log.Warn("kafka: brokers unreachable; retrying with backoff", "error", err)
+	}
+}
+
+// HighWater returns, for each non-empty partition, the offset of its last
+// message as of the latest refresh.
+func (k *Kafka) HighWater() []learner.Position {
+	k.mu.Lock()
+	defer k.mu.Unlock()
+	var out []learner.Position
+	for p, hw := range k.high {
+		if hw > 0 {
+			out = append(out, learner.Position{Partition: p, Offset: hw - 1})
+		}
+	}
+	slices.SortFunc(out, func(a, b learner.Position) int { return int(a.Partition - b.Partition) })
+	return out
+}
+
+// Refresh reads the topic's high watermarks.
+func (k *Kafka) Refresh(ctx context.Context) error {
+	md, err := k.client.Metadata(ctx, &kafka.MetadataRequest{Topics: []string{k.cfg.Topic}})
+	if err != nil {
+		return err
+	}
+	if len(md.Topics) != 1 || md.Topics[0].Error != nil {
+		if len(md.Topics) == 1 {
+			return fmt.Errorf("kafka: topic %q: %w", k.cfg.Topic, md.Topics[0].Error)
+		}
+		return fmt.Errorf("kafka: topic %q not found", k.cfg.Topic)
+	}
+	var reqs []kafka.OffsetRequest
+	for _, p := range md.Topics[0].Partitions {
+		reqs = append(reqs, kafka.LastOffsetOf(p.ID))
+	}
+	res, err := k.client.ListOffsets(ctx, &kafka.ListOffsetsRequest{Topics: map[string][]kafka.OffsetRequest{k.cfg.Topic: reqs}})
+	if err != nil {
+		return err
+	}
+	k.mu.Lock()
+	defer k.mu.Unlock()
+	for _, po := range res.Topics[k.cfg.Topic] {
+		if po.Error == nil {
+			k.high[int32(po.Partition)] = po.LastOffset
+		}
+	}
+	return nil
+}
+
+// Run consumes until ctx is done. covered is what the engine's state covers;
+// deliver is called in offset order within each partition (partitions
+// concurrently) and returns false to stop.
+func (k *Kafka) Run(ctx context.Context, covered []learner.Position, deliver func(learner.Position, []byte) bool) error {
+	k.mu.Lock()
+	for _, p := range covered {
+		if p.Offset+1 > k.next[p.Partition] {
+			k.next[p.Partition] = p.Offset + 1
+		}
+	}
+	k.mu.Unlock()
+	go k.watchHighWater(ctx)
+	var deliverMu sync.Mutex // one partition at a time into the engine's channel keeps per-partition order simple
+	backoff := 100 * time.Millisecond
+	for ctx.Err() == nil {
+		group, err := kafka.NewConsumerGroup(kafka.ConsumerGroupConfig{ID: k.cfg.Group, Brokers: k.cfg.Brokers,
+			Topics: []string{k.cfg.Topic}, Timeout: 5 * time.Second, HeartbeatInterval: time.Second,
+			SessionTimeout: 10 * time.Second, RebalanceTimeout: 10 * time.Second, JoinGroupBackoff: time.Second})
+		if err != nil {
+			return fmt.Errorf("kafka: %w", err)
+		}
+		err = k.runGroup(ctx, group, &deliverMu, deliver)
+		group.Close()
+		if ctx.Err() != nil {
+			return nil
+		}
+		k.setConnected(false, err)
+		select {
+		case <-time.After(backoff):
+		case <-ctx.Done():
+			return nil
+		}
+		backoff = min(2*backoff, 10*time.Second)
+	}
+	return nil
+}
+
+func (k *Kafka) runGroup(ctx context.Context, group *kafka.ConsumerGroup, mu *sync.Mutex, deliver func(learner.Position, []byte) bool) error {
+	for {
+		gen, err := group.Next(ctx)
+		if err != nil {
+			return err
+		}
+		k.setConnected(true, nil)
+		k.mu.Lock()
+		k.gen = gen
+		k.mu.Unlock()
+		for _, a := range gen.Assignments[k.cfg.Topic] {
+			part := int32(a.ID)
+			gen.Start(func(gctx context.Context) { k.readPartition(ctx, gctx, part, mu, deliver) })
+		}
+	}
+}
+
+func (k *Kafka) readPartition(ctx, gctx context.Context, part int32, mu *sync.Mutex, deliver func(learner.Position, []byte) bool) {
+	k.mu.Lock()
+	start, ok := k.next[part]
+	k.mu.Unlock()
+	if !ok {
+		start = kafka.FirstOffset
+	}
+	r := kafka.NewReader(kafka.ReaderConfig{Brokers: k.cfg.Brokers, Topic: k.cfg.Topic, Partition: int(part),
+		MinBytes: 1, MaxBytes: 16 << 20, MaxWait: k.cfg.MaxWait, ReadBackoffMin: 100 * time.Millisecond, ReadBackoffMax: 5 * time.Second})
+	defer r.Close()
+	if err := r.SetOffset(start); err != nil {
+		k.cfg.Log.Error("kafka: cannot set offset", "partition", part, "offset", start, "error", err)
+		return
+	}
+	rctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	go func() {
+		select {
+		case <-gctx.Done():
+			cancel()
+		case <-rctx.Done():
+		}
+	}()
+	for {
+		m, err := r.FetchMessage(rctx)
+		if err != nil {
+			if rctx.Err() == nil && !errors.Is(err, io.EOF) {
+				k.setConnected(false, err)
+			}
+			return
+		}
+		mu.Lock()
+		ok := deliver(learner.Position{Partition: part, Offset: m.Offset}, m.Value)
+		mu.Unlock()
+		if !ok {
+			return
+		}
+		k.mu.Lock()
+		k.next[part] = m.Offset + 1
+		k.mu.Unlock()
+	}
+}
+
+func (k *Kafka) watchHighWater(ctx context.Context) {
+	t := time.NewTicker(time.Second)
+	defer t.Stop()
+	for {
+		if err := k.Refresh(ctx); err != nil && ctx.Err() == nil {
+			k.setConnected(false, err)
+		}
+		select {
+		case <-ctx.Done():
+			return
+		case <-t.C:
+		}
+	}
+}
+
+// Commit records in the group the offsets a durable checkpoint covers (the
+// next offset to read, as Kafka expects). It is best effort: a failure is
+// logged and the next checkpoint commits again.
+func (k *Kafka) Commit(covered []learner.Position) {
+	k.mu.Lock()
+	gen := k.gen
+	k.mu.Unlock()
+	if gen == nil || len(covered) == 0 {
+		return
+	}
+	offs := map[int]int64{}
+	for _, p := range covered {
+		offs[int(p.Partition)] = p.Offset + 1
+	}
+	if err := gen.CommitOffsets(map[string]map[int]int64{k.cfg.Topic: offs}); err != nil {
+		k.cfg.Log.Warn("kafka: offset commit failed; the next checkpoint retries", "error", err)
+	}
+}
+
+// Close releases the client's connections.
+func (k *Kafka) Close() error { return nil }

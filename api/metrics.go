@@ -1,0 +1,115 @@
+package api
+
+import (
+	"net/http"
+	"strconv"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus"
+	"github.com/prometheus/client_golang/prometheus/promhttp"
+)
+
+// metrics is the service's Prometheus registry (its own, not the global
+// one). Counters the handlers bump live here; everything about the model is
+// read from the published snapshot at scrape time.
+type metrics struct {
+	reg                *prometheus.Registry
+	predictLatency     prometheus.Histogram
+	eventsReceived     prometheus.Counter
+	journalFailures    prometheus.Counter
+	checkpointFailures prometheus.Counter
+}
+
+func newMetrics(s *Service) *metrics {
+	m := &metrics{reg: prometheus.NewRegistry()}
+	m.predictLatency = prometheus.NewHistogram(prometheus.HistogramOpts{Name: "tidemark_predict_duration_seconds",
+		Help: "Time to answer POST /v1/predict.", Buckets: prometheus.ExponentialBuckets(50e-6, 2, 16)})
+	m.eventsReceived = prometheus.NewCounter(prometheus.CounterOpts{Name: "tidemark_http_events_accepted_total",
+		Help: "Events accepted by POST /v1/events (durable in the journal)."})
+	m.journalFailures = prometheus.NewCounter(prometheus.CounterOpts{Name: "tidemark_journal_write_failures_total",
+		Help: "POST /v1/events requests refused because the journal could not store them."})
+	m.checkpointFailures = prometheus.NewCounter(prometheus.CounterOpts{Name: "tidemark_checkpoint_failures_total",
+		Help: "Checkpoints that could not be written."})
+	m.reg.MustRegister(m.predictLatency, m.eventsReceived, m.journalFailures, m.checkpointFailures, &snapshotCollector{s})
+	return m
+}
+
+func (m *metrics) handler() http.Handler {
+	return promhttp.HandlerFor(m.reg, promhttp.HandlerOpts{})
+}
+
+// snapshotCollector exports the published snapshot.
+type snapshotCollector struct{ s *Service }
+
+var (
+	descApplied  = prometheus.NewDesc("tidemark_events_applied_total", "Events trained on.", nil, nil)
+	descRejected = prometheus.NewDesc("tidemark_events_rejected_total", "Events refused (bad input or schema), never trained on.", nil, nil)
+	descSkipped  = prometheus.NewDesc("tidemark_events_skipped_total", "Events passed over by a restore that skipped a range.", nil, nil)
+	descDead     = prometheus.NewDesc("tidemark_dead_letters_total", "Rejected stream events written to the dead-letter file since start.", nil, nil)
+	descRMSE     = prometheus.NewDesc("tidemark_learner_rmse", "Prequential RMSE of a learner over all scored events or the recent window.", []string{"learner", "window"}, nil)
+	descMAE      = prometheus.NewDesc("tidemark_learner_mae", "Prequential MAE of a learner over all scored events or the recent window.", []string{"learner", "window"}, nil)
+	descSkill    = prometheus.NewDesc("tidemark_learner_skill", "1 − rmse/rmse of the mean baseline.", []string{"learner"}, nil)
+	descScored   = prometheus.NewDesc("tidemark_learner_scored_total", "Events a learner was scored on.", []string{"learner"}, nil)
+	descDrift    = prometheus.NewDesc("tidemark_learner_drift_state", "Drift watch: 0 stable, 1 warning, 2 drift.", []string{"learner"}, nil)
+	descAlarms   = prometheus.NewDesc("tidemark_learner_drift_alarms_total", "Page–Hinkley alarms raised.", []string{"learner"}, nil)
+	descCkVer    = prometheus.NewDesc("tidemark_checkpoint_version", "Version of the newest checkpoint written or restored.", nil, nil)
+	descCkAge    = prometheus.NewDesc("tidemark_checkpoint_age_seconds", "Seconds since that checkpoint was created.", nil, nil)
+	descCkBytes  = prometheus.NewDesc("tidemark_checkpoint_bytes", "Size of that checkpoint file.", nil, nil)
+	descLag      = prometheus.NewDesc("tidemark_intake_lag_events", "Events in the source not yet applied, per partition.", []string{"partition"}, nil)
+	descReady    = prometheus.NewDesc("tidemark_ready", "1 once restored and caught up with the stream.", nil, nil)
+)
+
+func (c *snapshotCollector) Describe(ch chan<- *prometheus.Desc) {
+	for _, d := range []*prometheus.Desc{descApplied, descRejected, descSkipped, descDead, descRMSE, descMAE, descSkill,
+		descScored, descDrift, descAlarms, descCkVer, descCkAge, descCkBytes, descLag, descReady} {
+		ch <- d
+	}
+}
+
+func (c *snapshotCollector) Collect(ch chan<- prometheus.Metric) {
+	snap := c.s.snap.Load()
+	if snap == nil {
+		return
+	}
+	r := snap.report
+	gauge := func(d *prometheus.Desc, v float64, labels ...string) {
+		ch <- prometheus.MustNewConstMetric(d, prometheus.GaugeValue, v, labels...)
+	}
+	counter := func(d *prometheus.Desc, v float64, labels ...string) {
+		ch <- prometheus.MustNewConstMetric(d, prometheus.CounterValue, v, labels...)
+	}
+	counter(descApplied, float64(r.Events))
+	counter(descRejected, float64(r.Rejected))
+	counter(descSkipped, float64(r.Skipped))
+	counter(descDead, float64(c.s.dead.count()))
+	for _, l := range r.Learners {
+		if l.RMSE != nil {
+			gauge(descRMSE, *l.RMSE, l.Name, "all")
+			gauge(descMAE, *l.MAE, l.Name, "all")
+		}
+		if l.Recent.RMSE != nil {
+			gauge(descRMSE, *l.Recent.RMSE, l.Name, "recent")
+			gauge(descMAE, *l.Recent.MAE, l.Name, "recent")
+		}
+		if l.Skill != nil {
+			gauge(descSkill, *l.Skill, l.Name)
+		}
+		counter(descScored, float64(l.Scored), l.Name)
+		state := map[string]float64{"stable": 0, "warning": 1, "drift": 2}[l.Drift.State]
+		gauge(descDrift, state, l.Name)
+		counter(descAlarms, float64(l.Drift.Alarms), l.Name)
+	}
+	if snap.ck.Version > 0 {
+		gauge(descCkVer, float64(snap.ck.Version))
+		gauge(descCkAge, time.Since(snap.ck.Created).Seconds())
+		gauge(descCkBytes, float64(snap.ck.Bytes))
+	}
+	for _, l := range c.s.lag(snap) {
+		gauge(descLag, float64(l.Offset), strconv.Itoa(int(l.Partition)))
+	}
+	ready := 0.0
+	if c.s.ready.Load() {
+		ready = 1
+	}
+	gauge(descReady, ready)
+}

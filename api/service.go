@@ -1,0 +1,564 @@
+package api
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"net"
+	"net/http"
+	"os"
+	"path/filepath"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"tidemark/api/intake"
+	"tidemark/checkpoint"
+	"tidemark/learner"
+)
+
+// Service is tidemark running: one goroutine (the loop) owns the engine and
+// applies events from the intake in position order; HTTP handlers read
+// snapshots the loop publishes and send it commands (take a checkpoint,
+// restore one). Shutdown order: stop HTTP intake, stop the source, take a
+// shutdown checkpoint, commit offsets, close.
+type Service struct {
+	cfg     Config
+	eng     *learner.Engine // the loop's alone
+	store   *checkpoint.Store
+	journal *intake.Journal
+	kafka   *intake.Kafka
+	dead    *deadLetters
+	metrics *metrics
+	http    *http.Server
+
+	snap  atomic.Pointer[snapshot]
+	cmds  chan command
+	ready atomic.Bool
+
+	// loop state
+	lastCk       checkpoint.Info
+	sinceCk      int64
+	lastCkTime   time.Time
+	skip         *skipRule
+	caughtUp     []learner.Position // ready once the engine covers these
+	curves       *curves
+	lastAlarms   int64
+	generation   int
+	published    int64
+	sourceStop   context.CancelFunc
+	items        chan item
+	sourceDone   chan struct{}
+	sourceMu     sync.Mutex
+	kafkaPending bool // the topic's high watermarks were not known at start
+
+	addr      string
+	listening chan struct{}
+}
+
+// Addr waits until Run listens and returns the address it listens on.
+func (s *Service) Addr() string {
+	<-s.listening
+	return s.addr
+}
+
+// item is one event handed from a source to the loop.
+type item struct {
+	gen  int
+	pos  learner.Position
+	data []byte
+}
+
+// New opens the data directory, restores the newest good checkpoint and
+// prepares the HTTP server; Run starts it.
+func New(cfg Config) (*Service, error) {
+	if err := cfg.Validate(); err != nil {
+		return nil, err
+	}
+	cfg.setDefaults()
+	if err := os.MkdirAll(cfg.DataDir, 0o700); err != nil {
+		return nil, fmt.Errorf("data directory: %w", err)
+	}
+	eng, err := learner.NewEngine(cfg.Engine)
+	if err != nil {
+		return nil, err
+	}
+	s := &Service{cfg: cfg, eng: eng, cmds: make(chan command), curves: newCurves(cfg.Engine.Learners, cfg.CurvePoints),
+		listening: make(chan struct{})}
+	s.store, err = checkpoint.OpenStore(checkpoint.StoreConfig{Dir: filepath.Join(cfg.DataDir, "checkpoints"), Retain: cfg.Retain})
+	if err != nil {
+		return nil, err
+	}
+	s.dead, err = openDeadLetters(filepath.Join(cfg.DataDir, "deadletters.ndjson"))
+	if err != nil {
+		s.store.Close()
+		return nil, err
+	}
+	if cfg.Kafka != nil {
+		kc := *cfg.Kafka
+		if kc.Log == nil {
+			kc.Log = cfg.Log
+		}
+		if s.kafka, err = intake.NewKafka(kc); err != nil {
+			s.close()
+			return nil, err
+		}
+		ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+		if err := s.kafka.Refresh(ctx); err != nil {
+			cfg.Log.Warn("kafka: cannot read the topic's offsets yet; not ready until it can", "error", err)
+			s.kafkaPending = true
+		}
+		cancel()
+	} else {
+		s.journal, err = intake.OpenJournal(intake.JournalConfig{Dir: filepath.Join(cfg.DataDir, "journal"),
+			SegmentBytes: cfg.JournalSegmentBytes, Log: logWriter{cfg.Log}})
+		if err != nil {
+			s.close()
+			return nil, err
+		}
+	}
+	if err := s.restoreLatest(); err != nil {
+		s.close()
+		return nil, err
+	}
+	s.metrics = newMetrics(s)
+	s.http = s.newHTTP()
+	s.publish()
+	return s, nil
+}
+
+func (s *Service) close() {
+	if s.journal != nil {
+		s.journal.Close()
+	}
+	if s.dead != nil {
+		s.dead.Close()
+	}
+	if s.store != nil {
+		s.store.Close()
+	}
+}
+
+// serviceSource is the manifest's record of what the service was doing.
+type serviceSource struct {
+	Kind string    `json:"kind"` // "service"
+	Skip *skipRule `json:"skip,omitempty"`
+}
+
+// restoreLatest loads the newest good checkpoint at start.
+func (s *Service) restoreLatest() error {
+	c, skipped, err := s.store.Latest()
+	for _, e := range skipped {
+		s.cfg.Log.Warn("skipping a checkpoint that fails its checks", "error", e)
+	}
+	if errors.Is(err, checkpoint.ErrNotFound) {
+		s.cfg.Log.Info("no checkpoint yet; starting from the beginning of the stream")
+		s.setCatchUp()
+		return nil
+	}
+	if err != nil {
+		return err
+	}
+	if err := s.adopt(c); err != nil {
+		return err
+	}
+	var src serviceSource
+	if json.Unmarshal(c.Manifest.Source, &src) == nil && src.Skip != nil {
+		s.skip = src.Skip
+	}
+	s.lastCk = c.Info
+	s.lastCkTime = c.Manifest.Created
+	s.cfg.Log.Info("restored checkpoint", "version", c.Manifest.Version, "events", c.Manifest.Events, "position", positionsText(c.Manifest.Positions))
+	s.setCatchUp()
+	return nil
+}
+
+// adopt decodes checkpoint c into the engine after checking its configuration.
+func (s *Service) adopt(c *checkpoint.Checkpoint) error {
+	if want := s.eng.Config().Digest(); c.Manifest.ConfigSHA256 != want {
+		return fmt.Errorf("%w: checkpoint %d in %s was taken under another configuration of learners or features; "+
+			"start with the same settings, or point --data at another directory", ErrResume, c.Manifest.Version, s.store.Dir())
+	}
+	if err := s.eng.DecodeSections(FromCheckpoint(c.Sections)); err != nil {
+		return fmt.Errorf("checkpoint %d: %w", c.Manifest.Version, err)
+	}
+	s.lastAlarms = s.eng.Alarms()
+	return nil
+}
+
+// setCatchUp records the positions the engine must reach to be ready.
+func (s *Service) setCatchUp() {
+	s.ready.Store(false)
+	s.caughtUp = nil
+	switch {
+	case s.journal != nil:
+		if d := s.journal.Durable(); d > 0 {
+			s.caughtUp = []learner.Position{{Partition: 0, Offset: d}}
+		}
+	case s.kafka != nil:
+		s.caughtUp = s.kafka.HighWater()
+	}
+	if !s.kafkaPending {
+		s.checkReady()
+	}
+}
+
+func (s *Service) checkReady() {
+	if s.ready.Load() {
+		return
+	}
+	for _, p := range s.caughtUp {
+		if !s.eng.Covers(p) {
+			return
+		}
+	}
+	s.ready.Store(true)
+	s.cfg.Log.Info("ready: caught up with the stream", "events", s.eng.Applied())
+}
+
+// Run serves HTTP and runs the loop until ctx is done, then shuts down in
+// order and returns nil after a clean shutdown.
+func (s *Service) Run(ctx context.Context) error {
+	defer s.close()
+	ln, err := net.Listen("tcp", s.cfg.Listen)
+	if err != nil {
+		return fmt.Errorf("http: %w", err)
+	}
+	s.addr = ln.Addr().String()
+	close(s.listening)
+	srvErr := make(chan error, 1)
+	go func() {
+		s.cfg.Log.Info("listening", "address", s.addr)
+		if err := s.http.Serve(ln); !errors.Is(err, http.ErrServerClosed) {
+			srvErr <- err
+		}
+		close(srvErr)
+	}()
+	loopCtx, stopLoop := context.WithCancel(context.Background())
+	defer stopLoop()
+	loopErr := make(chan error, 1)
+	go func() { loopErr <- s.loop(loopCtx) }()
+	select {
+	case <-ctx.Done():
+	case err = <-srvErr:
+		err = fmt.Errorf("http: %w", err)
+	case err = <-loopErr:
+		loopErr = nil
+	}
+	// 1. stop taking events over HTTP (requests in flight finish: their
+	// events are durable before they are acknowledged)
+	sctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
+	defer cancel()
+	s.http.Shutdown(sctx)
+	// 2. stop the loop and its source, 3. shutdown checkpoint, 4. commit
+	if loopErr != nil {
+		stopLoop()
+		if lerr := <-loopErr; lerr != nil && !errors.Is(lerr, context.Canceled) {
+			err = errors.Join(err, lerr)
+		}
+	}
+	s.stopSource()
+	if cerr := s.checkpoint(checkpoint.Shutdown, 0); cerr != nil {
+		err = errors.Join(err, fmt.Errorf("shutdown checkpoint: %w", cerr))
+	}
+	if s.kafka != nil {
+		s.kafka.Close()
+	}
+	s.cfg.Log.Info("stopped", "events", s.eng.Applied(), "checkpoint", s.lastCk.Version)
+	return err
+}
+
+// Handler returns the HTTP handler, for tests that serve it themselves.
+func (s *Service) Handler() http.Handler { return s.http.Handler }
+
+// startSource starts reading the stream after the positions the engine covers.
+func (s *Service) startSource() {
+	s.stopSource()
+	s.generation++
+	gen := s.generation
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan struct{})
+	s.sourceMu.Lock()
+	s.sourceStop, s.sourceDone = cancel, done
+	s.sourceMu.Unlock()
+	items := s.items
+	if s.journal != nil {
+		from := int64(1)
+		for _, p := range s.eng.Positions() {
+			if p.Partition == 0 {
+				from = p.Offset + 1
+			}
+		}
+		r := s.journal.Reader(from)
+		go func() {
+			defer close(done)
+			defer r.Close()
+			for {
+				off, p, err := r.Next(ctx)
+				if err != nil {
+					if ctx.Err() == nil && !errors.Is(err, intake.ErrJournalClosed) {
+						s.cfg.Log.Error("journal read failed; intake stopped", "error", err)
+					}
+					return
+				}
+				it := item{gen: gen, pos: learner.Position{Partition: 0, Offset: off}, data: append([]byte(nil), p...)}
+				select {
+				case items <- it:
+				case <-ctx.Done():
+					return
+				}
+			}
+		}()
+		return
+	}
+	if s.kafka != nil {
+		go func() {
+			defer close(done)
+			err := s.kafka.Run(ctx, s.eng.Positions(), func(pos learner.Position, value []byte) bool {
+				select {
+				case items <- item{gen: gen, pos: pos, data: value}:
+					return true
+				case <-ctx.Done():
+					return false
+				}
+			})
+			if err != nil && ctx.Err() == nil {
+				s.cfg.Log.Error("kafka intake stopped", "error", err)
+			}
+		}()
+		return
+	}
+	close(done)
+}
+
+func (s *Service) stopSource() {
+	s.sourceMu.Lock()
+	stop, done := s.sourceStop, s.sourceDone
+	s.sourceStop, s.sourceDone = nil, nil
+	s.sourceMu.Unlock()
+	if stop != nil {
+		stop()
+		<-done
+	}
+}
+
+// loop owns the engine.
+func (s *Service) loop(ctx context.Context) error {
+	s.items = make(chan item, 1024)
+	s.startSource()
+	tick := time.NewTicker(s.cfg.PublishEvery)
+	defer tick.Stop()
+	var ev learner.Event
+	for {
+		select {
+		case <-ctx.Done():
+			return ctx.Err()
+		case it := <-s.items:
+			if it.gen != s.generation {
+				continue // read before a restore moved the position
+			}
+			s.apply(it, &ev)
+			if s.sinceCk >= s.cfg.CheckpointEvery {
+				if err := s.checkpoint(checkpoint.Periodic, 0); err != nil {
+					s.cfg.Log.Error("periodic checkpoint failed; will retry", "error", err)
+					s.sinceCk = 0
+				}
+			}
+		case cmd := <-s.cmds:
+			cmd.reply <- cmd.run(s)
+		case <-tick.C:
+			if s.sinceCk > 0 && time.Since(s.lastCkTime) >= s.cfg.CheckpointInterval {
+				if err := s.checkpoint(checkpoint.Periodic, 0); err != nil {
+					s.cfg.Log.Error("timed checkpoint failed; will retry", "error", err)
+				}
+			}
+			if s.kafka != nil {
+				s.caughtUpKafka()
+			}
+			s.publish()
+		}
+	}
+}
+
+// apply runs one event through the engine (or past it, for a skip rule).
+func (s *Service) apply(it item, ev *learner.Event) {
+	if s.eng.Covers(it.pos) {
+		s.eng.Apply(it.pos, ev) // counts the redelivery; changes nothing else
+		return
+	}
+	defer s.checkReady()
+	if s.skip != nil && s.skip.coversPosition(it.pos) {
+		s.eng.Pass(it.pos)
+		s.afterEvent()
+		return
+	}
+	if err := learner.DecodeEvent(it.data, ev); err != nil {
+		s.eng.Skip(it.pos)
+		s.dead.add(it.pos, err, it.data)
+		s.afterEvent()
+		return
+	}
+	if s.skip != nil && s.skip.coversEvent(it.pos, ev) {
+		s.eng.Pass(it.pos)
+		s.afterEvent()
+		return
+	}
+	if _, err := s.eng.Apply(it.pos, ev); err != nil {
+		s.dead.add(it.pos, err, it.data)
+	} else if a := s.eng.Alarms(); a != s.lastAlarms {
+		s.lastAlarms = a
+		s.pinBeforeAlarm()
+	}
+	s.afterEvent()
+}
+
+func (s *Service) afterEvent() {
+	s.sinceCk++
+	if s.skip != nil && s.skip.done(s.eng) {
+		s.cfg.Log.Info("restore: the skipped range is behind; back to normal intake")
+		s.skip = nil
+	}
+	if n := s.eng.Applied(); n%s.cfg.CurveEvery == 0 && n > 0 {
+		s.curves.add(s.eng)
+	}
+}
+
+// pinBeforeAlarm pins the newest checkpoint, taken before the alarm, so that
+// retention keeps a state from before the drift.
+func (s *Service) pinBeforeAlarm() {
+	if s.lastCk.Version == 0 {
+		return
+	}
+	if err := s.store.Pin(s.lastCk.Version); err != nil {
+		s.cfg.Log.Error("could not pin the checkpoint before a drift alarm", "version", s.lastCk.Version, "error", err)
+		return
+	}
+	s.cfg.Log.Warn("drift alarm: pinned the checkpoint taken before it", "version", s.lastCk.Version)
+}
+
+// checkpoint writes the engine's state; parent 0 means the last checkpoint.
+func (s *Service) checkpoint(reason checkpoint.Reason, parent uint64) error {
+	if parent == 0 {
+		parent = s.lastCk.Version
+	}
+	m := Manifest(s.eng, reason, parent)
+	m.Source, _ = json.Marshal(serviceSource{Kind: "service", Skip: s.skip})
+	info, err := s.store.Write(m, ToCheckpoint(s.eng.Sections()))
+	if err != nil {
+		s.metrics.checkpointFailures.Inc()
+		return err
+	}
+	s.lastCk, s.sinceCk, s.lastCkTime = info, 0, time.Now()
+	s.cfg.Log.Info("checkpoint", "version", info.Version, "reason", reason, "events", info.Events, "bytes", info.Bytes)
+	s.afterCheckpoint()
+	return nil
+}
+
+// afterCheckpoint trims the journal behind the oldest retained checkpoint and
+// commits Kafka offsets the checkpoint covers.
+func (s *Service) afterCheckpoint() {
+	if err := s.dead.flush(); err != nil {
+		s.cfg.Log.Error("dead letters: flush failed", "error", err)
+	}
+	if s.kafka != nil {
+		s.kafka.Commit(s.eng.Positions())
+	}
+	if s.journal == nil {
+		return
+	}
+	list, err := s.store.List()
+	if err != nil || len(list) == 0 {
+		return
+	}
+	oldest := int64(-1)
+	for _, in := range list {
+		if in.Error != "" {
+			continue
+		}
+		off := int64(0)
+		for _, p := range in.Position {
+			if p.Partition == 0 {
+				off = p.Offset
+			}
+		}
+		if oldest < 0 || off < oldest {
+			oldest = off
+		}
+	}
+	if oldest > 0 {
+		if err := s.journal.DeleteBefore(oldest + 1); err != nil {
+			s.cfg.Log.Warn("journal trim failed", "error", err)
+		}
+	}
+}
+
+// publish makes the engine's current state visible to readers.
+func (s *Service) publish() {
+	if cur := s.snap.Load(); cur != nil && cur.applied == s.eng.Applied() && cur.positions == positionsKey(s.eng) && cur.ckVersion == s.lastCk.Version {
+		return
+	}
+	s.snap.Store(newSnapshot(s.eng, s.lastCk, s.ready.Load(), s.dead.count()))
+}
+
+// logWriter adapts a logger to an io.Writer for packages that log lines.
+type logWriter struct {
+	l interface{ Info(string, ...any) }
+}
+
+func (w logWriter) Write(p []byte) (int, error) {
+	w.l.Info(string(trimNL(p)))
+	return len(p), nil
+}
+
+func trimNL(p []byte) []byte {
+	for len(p) > 0 && p[len(p)-1] == '\n' {
+		p = p[:len(p)-1]
+	}
+	return p
+}
+
+func positionsText(ps []checkpoint.Position) string {
+	out := ""
+	for i, p := range ps {
+		if i > 0 {
+			out += " "
+		}
+		out += fmt.Sprintf("%d:%d", p.Partition, p.Offset)
+	}
+	return out
+}
+
+// lag returns, per partition, how many events of the source the snapshot
+// has not applied (Offset holds the count).
+func (s *Service) lag(snap *snapshot) []learner.Position {
+	applied := map[int32]int64{}
+	for _, p := range snap.eng.Positions() {
+		applied[p.Partition] = p.Offset
+	}
+	var out []learner.Position
+	switch {
+	case s.journal != nil:
+		out = append(out, learner.Position{Partition: 0, Offset: max(0, s.journal.Durable()-applied[0])})
+	case s.kafka != nil:
+		for _, hw := range s.kafka.HighWater() {
+			out = append(out, learner.Position{Partition: hw.Partition, Offset: max(0, hw.Offset-applied[hw.Partition])})
+		}
+	}
+	return out
+}
+
+// caughtUpKafka sets the readiness target once the topic's high watermarks
+// become known (the brokers were unreachable at start).
+func (s *Service) caughtUpKafka() {
+	if s.kafkaPending {
+		if hw := s.kafka.HighWater(); len(hw) > 0 {
+			s.caughtUp, s.kafkaPending = hw, false
+		} else if ok, _ := s.kafka.Connected(); ok {
+			s.kafkaPending = false // connected, and the topic is empty
+		}
+	}
+	if !s.kafkaPending {
+		s.checkReady()
+	}
+}

@@ -1,0 +1,176 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"log/slog"
+	"os"
+	"os/signal"
+	"strings"
+	"syscall"
+	"time"
+
+	"github.com/goccy/go-yaml"
+
+	"tidemark/api"
+	"tidemark/api/intake"
+)
+
+// fileConfig is the YAML configuration file of `tidemark serve --config`.
+// Every key is optional; flags given on the command line override it.
+type fileConfig struct {
+	Listen             string   `yaml:"listen"`
+	Data               string   `yaml:"data"`
+	Token              string   `yaml:"token"`
+	Learners           []string `yaml:"learners"`
+	DefaultLearner     string   `yaml:"default_learner"`
+	CheckpointEvery    int64    `yaml:"checkpoint_every"`
+	CheckpointInterval string   `yaml:"checkpoint_interval"`
+	Retain             int      `yaml:"retain"`
+	MinScored          int64    `yaml:"min_scored"`
+	BodyLimit          int64    `yaml:"body_limit"`
+	MaxRows            int      `yaml:"max_rows"`
+	MaxKeys            int      `yaml:"max_keys"`
+	Features           struct {
+		Numeric      []string `yaml:"numeric"`
+		Categorical  []string `yaml:"categorical"`
+		HashBuckets  int      `yaml:"hash_buckets"`
+		TimeFeatures bool     `yaml:"time_features"`
+	} `yaml:"features"`
+	Kafka struct {
+		Brokers []string `yaml:"brokers"`
+		Topic   string   `yaml:"topic"`
+		Group   string   `yaml:"group"`
+	} `yaml:"kafka"`
+}
+
+// TokenEnv is the environment variable that holds the bearer token when
+// --token is not given.
+const TokenEnv = "TIDEMARK_TOKEN"
+
+func runServe(args []string, stdout, stderr io.Writer) error {
+	fs := newFlagSet("serve", "serve [--config FILE] [--data DIR] [--learner SPEC]... [flags]", stderr)
+	configPath := fs.String("config", "", "YAML configuration `FILE`; flags override it")
+	listen := fs.String("listen", api.DefaultListen, "HTTP listen address")
+	data := fs.String("data", "", "data `DIR`: journal, checkpoints, dead letters (created 0700)")
+	token := fs.String("token", "", "bearer token required by changing endpoints (default: $"+TokenEnv+")")
+	every := fs.Int64("checkpoint-every", api.DefaultCheckpointEvery, "events between periodic checkpoints")
+	interval := fs.Duration("checkpoint-interval", api.DefaultCheckpointInterval, "also checkpoint this long after the last one")
+	minScored := fs.Int64("min-scored", api.DefaultMinScored, "events a learner must be scored on for a key before predict answers (-1: none)")
+	brokers := fs.String("kafka-brokers", "", "Kafka bootstrap brokers host:port,... (learn from Kafka instead of the journal)")
+	topic := fs.String("kafka-topic", "", "Kafka topic of events")
+	group := fs.String("kafka-group", "tidemark", "Kafka consumer group")
+	logLevel := fs.String("log-level", "info", "log level: debug, info, warn, error")
+	var ef engineFlags
+	ef.register(fs)
+	pos, err := parse(fs, args)
+	if err != nil {
+		return err
+	}
+	if len(pos) > 0 {
+		return usagef("unexpected argument %q", pos[0])
+	}
+	set := map[string]bool{}
+	fs.Visit(func(f *flag.Flag) { set[f.Name] = true })
+	var level slog.Level
+	if err := level.UnmarshalText([]byte(*logLevel)); err != nil {
+		return usagef("--log-level %q: want debug, info, warn or error", *logLevel)
+	}
+
+	var fc fileConfig
+	var problems []error
+	if *configPath != "" {
+		b, err := os.ReadFile(*configPath)
+		if err != nil {
+			return usageError{err}
+		}
+		if err := yaml.UnmarshalWithOptions(b, &fc, yaml.Strict()); err != nil {
+			return usagef("%s: %v", *configPath, err)
+		}
+	}
+	pick := func(name string, flagVal, fileVal string) string {
+		if set[name] || fileVal == "" {
+			return flagVal
+		}
+		return fileVal
+	}
+	cfg := api.Config{
+		Listen:  pick("listen", *listen, fc.Listen),
+		DataDir: pick("data", *data, fc.Data),
+		Token:   pick("token", *token, fc.Token),
+	}
+	if cfg.Token == "" {
+		cfg.Token = os.Getenv(TokenEnv)
+	}
+	cfg.CheckpointEvery = *every
+	if !set["checkpoint-every"] && fc.CheckpointEvery != 0 {
+		cfg.CheckpointEvery = fc.CheckpointEvery
+	}
+	cfg.CheckpointInterval = *interval
+	if !set["checkpoint-interval"] && fc.CheckpointInterval != "" {
+		d, err := time.ParseDuration(fc.CheckpointInterval)
+		if err != nil {
+			problems = append(problems, fmt.Errorf("checkpoint_interval %q: %v", fc.CheckpointInterval, err))
+		}
+		cfg.CheckpointInterval = d
+	}
+	cfg.MinScored = *minScored
+	if !set["min-scored"] && fc.MinScored != 0 {
+		cfg.MinScored = fc.MinScored
+	}
+	cfg.Retain, cfg.BodyLimit, cfg.MaxRows, cfg.DefaultLearner = fc.Retain, fc.BodyLimit, fc.MaxRows, fc.DefaultLearner
+
+	if !set["learner"] {
+		ef.learners = fc.Learners
+	}
+	if !set["time-features"] {
+		ef.timeFeatures = ef.timeFeatures || fc.Features.TimeFeatures
+	}
+	if !set["hash-buckets"] && fc.Features.HashBuckets != 0 {
+		ef.hashBuckets = fc.Features.HashBuckets
+	}
+	if !set["max-keys"] && fc.MaxKeys != 0 {
+		ef.maxKeys = fc.MaxKeys
+	}
+	if !set["numeric"] && len(fc.Features.Numeric) > 0 {
+		ef.numeric = strings.Join(fc.Features.Numeric, ",")
+	}
+	if !set["categorical"] && len(fc.Features.Categorical) > 0 {
+		ef.categorical = strings.Join(fc.Features.Categorical, ",")
+	}
+	if len(ef.learners) == 0 {
+		problems = append(problems, errors.New("no learner: give --learner SPEC (repeatable) or learners: in the config file"))
+	}
+	eng, err := ef.config()
+	if err != nil {
+		problems = append(problems, err)
+	}
+	cfg.Engine = eng
+
+	kb := pick("kafka-brokers", *brokers, strings.Join(fc.Kafka.Brokers, ","))
+	kt := pick("kafka-topic", *topic, fc.Kafka.Topic)
+	if kb != "" || kt != "" {
+		cfg.Kafka = &intake.KafkaConfig{Brokers: splitList(kb), Topic: kt, Group: pick("kafka-group", *group, fc.Kafka.Group)}
+	}
+	logger := slog.New(slog.NewTextHandler(stderr, &slog.HandlerOptions{Level: level}))
+	cfg.Log = logger
+	if len(problems) == 0 {
+		if err := cfg.Validate(); err != nil {
+			problems = append(problems, err)
+		}
+	}
+	if len(problems) > 0 {
+		return usagef("invalid configuration:\n  %s", strings.ReplaceAll(errors.Join(problems...).Error(), "\n", "\n  "))
+	}
+	svc, err := api.New(cfg)
+	if err != nil {
+		return err
+	}
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	defer stop()
+	fmt.Fprintf(stdout, "tidemark serving on http://%s (learners: %s); Ctrl-C stops with a final checkpoint\n", cfg.Listen, eng.Names())
+	return svc.Run(ctx)
+}
