@@ -257,7 +257,8 @@ func (s *Service) handleEvents(c echo.Context) error {
 		ok = append(ok, l)
 	}
 	if len(ok) == 0 {
-		return c.JSON(http.StatusBadRequest, map[string]any{"message": "no valid event in the request; see rejected", "rejected": resp.Rejected})
+		return c.JSON(http.StatusBadRequest, map[string]any{"message": fmt.Sprintf("no valid event in the request (event %d: %s); see rejected",
+			resp.Rejected[0].Index, resp.Rejected[0].Reason), "rejected": resp.Rejected})
 	}
 	first, last, err := s.journal.Append(ok)
 	if err != nil {
@@ -373,4 +374,19 @@ func (s *Service) handleReady(c echo.Context) error {
 		return c.JSON(http.StatusServiceUnavailable, map[string]any{"ready": false, "message": "restoring or catching up with the stream"})
 	}
 	return c.JSON(http.StatusOK, map[string]any{"ready": true})
+}
+
+// routes lists the routes the server serves (for the OpenAPI test).
+func (s *Service) routes() []*echo.Route { return s.http.Handler.(*echo.Echo).Routes() }
+
+// openapiPath turns an echo path (/v1/checkpoints/:version/restore) into an
+// OpenAPI one (/v1/checkpoints/{version}/restore).
+func openapiPath(p string) string {
+	parts := strings.Split(p, "/")
+	for i, part := range parts {
+		if name, ok := strings.CutPrefix(part, ":"); ok {
+			parts[i] = "{" + name + "}"
+		}
+	}
+	return strings.Join(parts, "/")
 }

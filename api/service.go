@@ -154,6 +154,7 @@ func (s *Service) restoreLatest() error {
 	}
 	if errors.Is(err, checkpoint.ErrNotFound) {
 		s.cfg.Log.Info("no checkpoint yet; starting from the beginning of the stream")
+		s.lastCkTime = time.Now()
 		s.setCatchUp()
 		return nil
 	}

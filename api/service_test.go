@@ -1,0 +1,422 @@
+package api
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"fmt"
+	"io"
+	"net/http"
+	"strings"
+	"testing"
+	"time"
+
+	"tidemark/api/intake"
+	"tidemark/bench/synth"
+	"tidemark/learner"
+)
+
+var serviceSpecs = []string{"knn:k=5,window=200", "rls:forget=0.99", "sliding-rls:window=100", "mean:window=50"}
+
+func engineConfig(t testing.TB, specs ...string) learner.Config {
+	t.Helper()
+	cfg := learner.Config{Features: learner.FeatureConfig{HashBuckets: 4, TimeFeatures: true}}
+	for _, s := range specs {
+		sp, err := learner.ParseSpec(s)
+		if err != nil {
+			t.Fatal(err)
+		}
+		cfg.Learners = append(cfg.Learners, sp)
+	}
+	return cfg
+}
+
+func testConfig(t *testing.T, dir string) Config {
+	return Config{Listen: "127.0.0.1:0", DataDir: dir, Engine: engineConfig(t, serviceSpecs...),
+		PublishEvery: 10 * time.Millisecond, CheckpointEvery: 300, MinScored: -1}
+}
+
+type running struct {
+	svc  *Service
+	base string
+	stop func() error
+}
+
+func start(t *testing.T, cfg Config) *running {
+	t.Helper()
+	svc, err := New(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- svc.Run(ctx) }()
+	r := &running{svc: svc, base: "http://" + svc.Addr()}
+	stopped := false
+	r.stop = func() error {
+		if stopped {
+			return nil
+		}
+		stopped = true
+		cancel()
+		return <-done
+	}
+	t.Cleanup(func() { r.stop() })
+	return r
+}
+
+func (r *running) call(t *testing.T, method, path, token string, body []byte) (int, []byte) {
+	t.Helper()
+	req, _ := http.NewRequest(method, r.base+path, bytes.NewReader(body))
+	if token != "" {
+		req.Header.Set("Authorization", "Bearer "+token)
+	}
+	resp, err := http.DefaultClient.Do(req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer resp.Body.Close()
+	b, _ := io.ReadAll(resp.Body)
+	return resp.StatusCode, b
+}
+
+func (r *running) report(t *testing.T) learner.Report {
+	t.Helper()
+	code, b := r.call(t, "GET", "/v1/learners", "", nil)
+	if code != 200 {
+		t.Fatalf("GET /v1/learners: %d %s", code, b)
+	}
+	var rep learner.Report
+	if err := json.Unmarshal(b, &rep); err != nil {
+		t.Fatal(err)
+	}
+	return rep
+}
+
+// waitCovered waits until the published state covers journal offset n.
+func (r *running) waitCovered(t *testing.T, n int64) learner.Report {
+	t.Helper()
+	deadline := time.Now().Add(30 * time.Second)
+	for {
+		rep := r.report(t)
+		for _, p := range rep.Positions {
+			if p.Partition == 0 && p.Offset >= n {
+				return rep
+			}
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("the service did not reach offset %d: %+v", n, rep.Positions)
+		}
+		time.Sleep(5 * time.Millisecond)
+	}
+}
+
+// scenario returns the valid event lines of the demo scenario.
+func scenario(t *testing.T, days int) [][]byte {
+	t.Helper()
+	var buf bytes.Buffer
+	synth.Write(&buf, synth.Config{Days: days, Seed: 9})
+	var out [][]byte
+	var ev learner.Event
+	for _, l := range bytes.Split(bytes.TrimSpace(buf.Bytes()), []byte("\n")) {
+		if learner.DecodeEvent(l, &ev) == nil {
+			out = append(out, l)
+		}
+	}
+	return out
+}
+
+func (r *running) post(t *testing.T, token string, lines [][]byte) {
+	t.Helper()
+	for i := 0; i < len(lines); i += 250 {
+		batch := lines[i:min(i+250, len(lines))]
+		code, b := r.call(t, "POST", "/v1/events", token, bytes.Join(batch, []byte("\n")))
+		if code != 200 {
+			t.Fatalf("POST /v1/events: %d %s", code, b)
+		}
+	}
+}
+
+// replayReport runs the same lines through `replay`'s code path: line i is
+// journal offset i, so the reports must agree to the byte.
+func replayReport(t *testing.T, cfg learner.Config, lines [][]byte) learner.Report {
+	t.Helper()
+	eng, err := learner.NewEngine(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	h := intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(lines, []byte("\n")), '\n')))
+	if err := Replay(context.Background(), h, eng, ReplayConfig{}); err != nil {
+		t.Fatal(err)
+	}
+	return eng.Report(true)
+}
+
+func sameJSON(t *testing.T, what string, got, want any) {
+	t.Helper()
+	g, _ := json.Marshal(got)
+	w, _ := json.Marshal(want)
+	if !bytes.Equal(g, w) {
+		t.Errorf("%s differ:\n got %.600s\nwant %.600s", what, g, w)
+	}
+}
+
+func TestServiceAgreesWithReplay(t *testing.T) {
+	lines := scenario(t, 2)
+	r := start(t, testConfig(t, t.TempDir()))
+	r.post(t, "", lines)
+	got := r.waitCovered(t, int64(len(lines)))
+	sameJSON(t, "service and replay reports", got, replayReport(t, engineConfig(t, serviceSpecs...), lines))
+}
+
+func TestRestartAfterShutdownKeepsState(t *testing.T) {
+	lines := scenario(t, 2)
+	dir := t.TempDir()
+	r := start(t, testConfig(t, dir))
+	r.post(t, "", lines[:900])
+	before := r.waitCovered(t, 900)
+	if err := r.stop(); err != nil {
+		t.Fatalf("shutdown: %v", err)
+	}
+	r2 := start(t, testConfig(t, dir))
+	sameJSON(t, "report after restart", r2.report(t), before)
+	r2.post(t, "", lines[900:])
+	got := r2.waitCovered(t, int64(len(lines)))
+	sameJSON(t, "report after restart and more events", got, replayReport(t, engineConfig(t, serviceSpecs...), lines))
+}
+
+func TestRestoreModes(t *testing.T) {
+	lines := scenario(t, 2)
+	cfg := engineConfig(t, serviceSpecs...)
+	n := len(lines)
+
+	checkpointAt := func(t *testing.T, r *running, upTo int) uint64 {
+		r.post(t, "", lines[:upTo])
+		r.waitCovered(t, int64(upTo))
+		code, b := r.call(t, "POST", "/v1/checkpoints", "", nil)
+		if code != 201 {
+			t.Fatalf("POST /v1/checkpoints: %d %s", code, b)
+		}
+		var info struct{ Version uint64 }
+		json.Unmarshal(b, &info)
+		return info.Version
+	}
+	restore := func(t *testing.T, r *running, v uint64, body string) {
+		code, b := r.call(t, "POST", fmt.Sprintf("/v1/checkpoints/%d/restore", v), "", []byte(body))
+		if code != 200 {
+			t.Fatalf("restore: %d %s", code, b)
+		}
+	}
+
+	t.Run("from_checkpoint", func(t *testing.T) {
+		r := start(t, testConfig(t, t.TempDir()))
+		v := checkpointAt(t, r, 600)
+		r.post(t, "", lines[600:])
+		r.waitCovered(t, int64(n))
+		restore(t, r, v, `{"resume":"from_checkpoint"}`)
+		// Replaying every event after the checkpoint rebuilds the same state.
+		sameJSON(t, "after from_checkpoint", r.waitCovered(t, int64(n)), replayReport(t, cfg, lines))
+	})
+
+	t.Run("from_now", func(t *testing.T) {
+		r := start(t, testConfig(t, t.TempDir()))
+		v := checkpointAt(t, r, 600)
+		r.post(t, "", lines[600:1000])
+		r.waitCovered(t, 1000)
+		restore(t, r, v, `{"resume":"from_now"}`)
+		r.post(t, "", lines[1000:])
+		got := r.waitCovered(t, int64(n))
+		// Events 601..1000 are forgotten: the state equals a run over 1..600
+		// then 1001..n, that is every line but those.
+		eng, _ := learner.NewEngine(cfg)
+		Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(lines[:600], []byte("\n")), '\n'))), eng, ReplayConfig{})
+		eng.CoverUpTo([]learner.Position{{Partition: 0, Offset: 1000}})
+		Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(lines, []byte("\n")), '\n'))), eng, ReplayConfig{})
+		want := eng.Report(true)
+		got.Skipped, want.Skipped = 0, 0
+		sameJSON(t, "after from_now", got, want)
+	})
+
+	t.Run("skip by time", func(t *testing.T) {
+		r := start(t, testConfig(t, t.TempDir()))
+		v := checkpointAt(t, r, 500)
+		r.post(t, "", lines[500:])
+		r.waitCovered(t, int64(n))
+		from, to := "2026-03-01T16:00:00Z", "2026-03-01T22:00:00Z"
+		restore(t, r, v, fmt.Sprintf(`{"resume":"skip","skip_from_time":%q,"skip_to_time":%q}`, from, to))
+		got := r.waitCovered(t, int64(n))
+		// The reference leaves out exactly the events in [from, to).
+		var kept [][]byte
+		var ev learner.Event
+		f, _ := time.Parse(time.RFC3339, from)
+		u, _ := time.Parse(time.RFC3339, to)
+		skipped := 0
+		for _, l := range lines {
+			learner.DecodeEvent(l, &ev)
+			if ev.Time >= f.UnixNano() && ev.Time < u.UnixNano() {
+				skipped++
+				continue
+			}
+			kept = append(kept, l)
+		}
+		if got.Skipped != int64(skipped) || skipped != 6*12*3 {
+			t.Errorf("skipped %d events, want the %d of six hours × three rooms", got.Skipped, skipped)
+		}
+		want := replayReport(t, cfg, kept)
+		// Positions differ (the skipped events keep theirs); the learners must not.
+		sameJSON(t, "learners after skip", stripPositions(got.Learners), stripPositions(want.Learners))
+		row := []byte(`{"key":"room-b","time":"2026-03-02T12:00:00Z","features":{"outdoor_c":14.2,"door_min":2,"shift":"day"}}`)
+		for _, name := range serviceSpecs {
+			code, b := r.call(t, "POST", "/v1/predict", "", []byte(fmt.Sprintf(`{"learner":%q,"rows":[%s]}`, name, row)))
+			if code != 200 {
+				t.Fatalf("predict %s: %d %s", name, code, b)
+			}
+			var resp PredictResponse
+			json.Unmarshal(b, &resp)
+			refEng, _ := learner.NewEngine(cfg)
+			Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(kept, []byte("\n")), '\n'))), refEng, ReplayConfig{})
+			var ev learner.Event
+			learner.DecodeRow(row, &ev)
+			p, _ := refEng.Predict("room-b", name, &ev)
+			if resp.Predictions[0].Prediction != p.Value {
+				t.Errorf("%s: predicts %v after the skip, a run that never saw the burst %v", name, resp.Predictions[0].Prediction, p.Value)
+			}
+		}
+	})
+}
+
+func stripPositions(ls []learner.LearnerReport) []learner.LearnerReport {
+	out := make([]learner.LearnerReport, len(ls))
+	for i, l := range ls {
+		if l.Drift.LastAlarm != nil {
+			a := *l.Drift.LastAlarm
+			a.Position = learner.Position{}
+			l.Drift.LastAlarm = &a
+		}
+		out[i] = l
+	}
+	return out
+}
+
+func TestAuthOnEveryChangingEndpoint(t *testing.T) {
+	cfg := testConfig(t, t.TempDir())
+	cfg.Token = "s3cret-token"
+	r := start(t, cfg)
+	r.post(t, "s3cret-token", scenario(t, 1)[:50])
+	r.waitCovered(t, 50)
+	changing := []struct{ method, path, body string }{
+		{"POST", "/v1/events", `{"features":{"a":1},"target":1}`},
+		{"POST", "/v1/checkpoints", ``},
+		{"POST", "/v1/checkpoints/1/restore", `{"resume":"from_now"}`},
+	}
+	for _, c := range changing {
+		for _, tok := range []string{"", "wrong", "s3cret-tokenX"} {
+			code, b := r.call(t, c.method, c.path, tok, []byte(c.body))
+			if code != 401 || !strings.Contains(string(b), "Bearer") {
+				t.Errorf("%s %s with token %q: %d %s, want 401", c.method, c.path, tok, code, b)
+			}
+		}
+	}
+	for _, path := range []string{"/v1/learners", "/v1/checkpoints", "/healthz", "/metrics", "/v1/openapi.json"} {
+		if code, _ := r.call(t, "GET", path, "", nil); code != 200 {
+			t.Errorf("GET %s without token: %d, want 200 (reads are open)", path, code)
+		}
+	}
+	if code, b := r.call(t, "POST", "/v1/checkpoints", "s3cret-token", nil); code != 201 {
+		t.Errorf("POST /v1/checkpoints with the token: %d %s", code, b)
+	}
+}
+
+func TestBadRequestsSayWhatToFix(t *testing.T) {
+	cfg := testConfig(t, t.TempDir())
+	cfg.BodyLimit = 64 << 10
+	cfg.MinScored = 20
+	r := start(t, cfg)
+	r.post(t, "", scenario(t, 1)[:30])
+	r.waitCovered(t, 30)
+	big := bytes.Repeat([]byte(`{"features":{"outdoor_c":1,"door_min":1,"shift":"day"},"target":1}`+"\n"), 2000)
+	cases := []struct {
+		method, path, body string
+		code               int
+		says               string
+	}{
+		{"POST", "/v1/events", string(big), 413, "limit of 65536 bytes"},
+		{"POST", "/v1/events", "", 400, "body is empty"},
+		{"POST", "/v1/events", "[1,", 400, "not a JSON array"},
+		{"POST", "/v1/events", `{"features":{}}`, 400, "target is missing"},
+		{"POST", "/v1/predict", "nonsense", 400, "not a JSON object"},
+		{"POST", "/v1/predict", `{"learner":"tree","key":"room-a","features":{}}`, 404, "unknown learner"},
+		{"POST", "/v1/predict", `{"key":"room-z","features":{}}`, 404, "no events yet"},
+		{"POST", "/v1/predict", `{"key":"room-a","time":"2026-03-01T01:00:00Z","features":{"door_min":1,"shift":"day"}}`, 400, `"outdoor_c" is missing`},
+		{"POST", "/v1/predict", `{"key":"room-a","time":"2026-03-01T01:00:00Z","features":{"outdoor_c":"hot","door_min":1,"shift":"day"}}`, 400, "must be a number"},
+		{"POST", "/v1/predict", `{"key":"room-a","time":"2026-03-01T01:00:00Z","features":{"outdoor_c":3,"door_min":1,"shift":"day"}}`, 409, "answers after 20"},
+		{"POST", "/v1/predict", `{"rows":[]}`, 400, "rows is empty"},
+		{"POST", "/v1/checkpoints/99/restore", `{"resume":"from_now"}`, 404, "does not exist"},
+		{"POST", "/v1/checkpoints/1/restore", `{"resume":"later"}`, 400, "from_checkpoint, from_now or skip"},
+		{"POST", "/v1/checkpoints/1/restore", `{"resume":"skip"}`, 400, "skip_from_time"},
+		{"POST", "/v1/checkpoints/1/restore", `{"resume":"from_now","extra":1}`, 400, "unknown field"},
+		{"POST", "/v1/checkpoints/x/restore", `{}`, 400, "positive integer"},
+		{"GET", "/v1/learners/tree/curve", "", 404, "no learner named"},
+	}
+	for _, c := range cases {
+		code, b := r.call(t, c.method, c.path, "", []byte(c.body))
+		var msg struct{ Message string }
+		json.Unmarshal(b, &msg)
+		if code != c.code || !strings.Contains(msg.Message, c.says) {
+			t.Errorf("%s %s %.40q: %d %s; want %d with a message saying %q", c.method, c.path, c.body, code, b, c.code, c.says)
+		}
+	}
+}
+
+func TestOpenAPICoversEveryRoute(t *testing.T) {
+	r := start(t, testConfig(t, t.TempDir()))
+	code, b := r.call(t, "GET", "/v1/openapi.json", "", nil)
+	if code != 200 {
+		t.Fatal(code)
+	}
+	var doc struct {
+		OpenAPI string                                `json:"openapi"`
+		Paths   map[string]map[string]json.RawMessage `json:"paths"`
+	}
+	if err := json.Unmarshal(b, &doc); err != nil || !strings.HasPrefix(doc.OpenAPI, "3.") {
+		t.Fatalf("not an OpenAPI 3 document: %v", err)
+	}
+	seen := map[string]bool{}
+	for _, rt := range r.svc.routes() {
+		path := openapiPath(rt.Path)
+		seen[rt.Method+" "+path] = true
+		if _, ok := doc.Paths[path][strings.ToLower(rt.Method)]; !ok {
+			t.Errorf("route %s %s is not in openapi.json", rt.Method, path)
+		}
+	}
+	for path, ops := range doc.Paths {
+		for m := range ops {
+			if !seen[strings.ToUpper(m)+" "+path] {
+				t.Errorf("openapi.json documents %s %s, which the server does not serve", strings.ToUpper(m), path)
+			}
+		}
+	}
+}
+
+func TestCurveAndMetrics(t *testing.T) {
+	cfg := testConfig(t, t.TempDir())
+	cfg.CurveEvery = 50
+	r := start(t, cfg)
+	r.post(t, "", scenario(t, 1)[:400])
+	r.waitCovered(t, 400)
+	code, b := r.call(t, "GET", "/v1/learners/rls:forget=0.99/curve", "", nil)
+	var curve struct {
+		Points []CurvePoint `json:"points"`
+	}
+	json.Unmarshal(b, &curve)
+	if code != 200 || len(curve.Points) != 8 || curve.Points[7].Events != 400 {
+		t.Errorf("curve: %d, %d points %s", code, len(curve.Points), b)
+	}
+	_, m := r.call(t, "GET", "/metrics", "", nil)
+	for _, want := range []string{"tidemark_events_applied_total 400", `tidemark_learner_rmse{learner="mean:window=50",window="recent"}`,
+		"tidemark_predict_duration_seconds_bucket", `tidemark_intake_lag_events{partition="0"} 0`, "tidemark_ready 1", "tidemark_checkpoint_version 1"} {
+		if !strings.Contains(string(m), want) {
+			t.Errorf("/metrics lacks %q", want)
+		}
+	}
+}
