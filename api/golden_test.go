@@ -17,7 +17,10 @@ import (
 	"tidemark/learner"
 )
 
-var update = flag.Bool("update", false, "rewrite the golden checkpoint in testdata (only when the format version changes)")
+var (
+	update       = flag.Bool("update", false, "rewrite the golden checkpoint in testdata (only when the format version changes)")
+	updateReport = flag.Bool("update-report", false, "rewrite testdata/checkpoint-v1/report.json from the golden checkpoint (only when a report's definition changes on purpose)")
+)
 
 const goldenDir = "../testdata/checkpoint-v1"
 
@@ -25,7 +28,7 @@ var goldenSpecs = []string{"knn:k=3,window=50", "rls:forget=0.99", "sliding-rls:
 
 func goldenEngine(t *testing.T) *learner.Engine {
 	t.Helper()
-	cfg := learner.Config{Features: learner.FeatureConfig{HashBuckets: 2}, Score: learner.ScoreConfig{Recent: 50, KeyRecent: 10}}
+	cfg := learner.Config{Features: learner.FeatureConfig{HashBuckets: 2}, Score: learner.ScoreConfig{Recent: 10}}
 	for _, s := range goldenSpecs {
 		sp, err := learner.ParseSpec(s)
 		if err != nil {
@@ -76,6 +79,10 @@ func TestGoldenCheckpointV1(t *testing.T) {
 	eng := goldenEngine(t)
 	if err := eng.DecodeSections(FromCheckpoint(c.Sections)); err != nil {
 		t.Fatalf("its state no longer decodes: %v", err)
+	}
+	if *updateReport {
+		rep, _ := json.MarshalIndent(eng.Report(true), "", "  ")
+		os.WriteFile(filepath.Join(goldenDir, "report.json"), rep, 0o644)
 	}
 	wantJSON, err := os.ReadFile(filepath.Join(goldenDir, "report.json"))
 	if err != nil {

@@ -92,10 +92,24 @@ type Engine struct {
 	x []float64
 }
 
+// total is what a learner keeps across keys: its alarm count and the last
+// alarm, "last" meaning the latest by (event time, partition, offset), so that
+// it does not depend on how partitions interleave. Its metrics are pooled
+// from the keys' scorers when reported.
 type total struct {
-	score     Scorer
 	alarms    int64
 	lastAlarm *Alarm
+}
+
+// later reports whether alarm a comes after b in (time, partition, offset) order.
+func (a Alarm) later(b Alarm) bool {
+	if a.Time != b.Time {
+		return a.Time > b.Time
+	}
+	if a.Position.Partition != b.Position.Partition {
+		return a.Position.Partition > b.Position.Partition
+	}
+	return a.Position.Offset > b.Position.Offset
 }
 
 type keyState struct {
@@ -126,7 +140,7 @@ func NewEngine(cfg Config) (*Engine, error) {
 		if s.Kind == KindMean && e.baseline < 0 {
 			e.baseline = i
 		}
-		e.totals = append(e.totals, total{score: newScorer(cfg.Score.Recent, cfg.Score.Fading)})
+		e.totals = append(e.totals, total{})
 	}
 	if cfg.Features.TimeFeatures && e.needTime == "" {
 		e.needTime = "time features"
@@ -228,19 +242,20 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 		}
 		if pred, ok := l.Predict(e.x); ok {
 			ks.scores[i].Score(y, pred)
-			e.totals[i].score.Score(y, pred)
 			if ks.drift[i].Add(math.Abs(y - pred)) {
 				e.alarms++
 				t := &e.totals[i]
 				t.alarms++
+				a := Alarm{Position: pos, Key: ks.key, Time: ev.Time}
 				if t.lastAlarm == nil {
 					t.lastAlarm = &Alarm{}
+					*t.lastAlarm = a
+				} else if a.later(*t.lastAlarm) {
+					*t.lastAlarm = a
 				}
-				*t.lastAlarm = Alarm{Position: pos, Key: ks.key, Time: ev.Time}
 			}
 		} else {
 			ks.scores[i].Unscore()
-			e.totals[i].score.Unscore()
 		}
 		l.Learn(e.x, y, ev.Time)
 	}
@@ -253,7 +268,7 @@ func (e *Engine) newKey(key string, partition int32) *keyState {
 	d := e.schema.Dim()
 	for i := range e.cfg.Learners {
 		ks.learners = append(ks.learners, New(&e.cfg.Learners[i], d))
-		ks.scores = append(ks.scores, newScorer(e.cfg.Score.KeyRecent, e.cfg.Score.Fading))
+		ks.scores = append(ks.scores, newScorer(e.cfg.Score.Recent, e.cfg.Score.Fading))
 		ks.drift = append(ks.drift, newPageHinkley(e.cfg.Drift))
 	}
 	return ks
@@ -376,7 +391,7 @@ func (c Config) Digest() string {
 	}
 	f := c.Features
 	fmt.Fprintf(h, "numeric %q\ncategorical %q\nbuckets %d\ntime %t\n", f.Numeric, f.Categorical, bucketsOf(f), f.TimeFeatures)
-	fmt.Fprintf(h, "max_keys %d\nscore %d %d %g\ndrift %g %g %d %t\n", c.MaxKeys, c.Score.Recent, c.Score.KeyRecent, c.Score.Fading,
+	fmt.Fprintf(h, "max_keys %d\nscore %d %g\ndrift %g %g %d %t\n", c.MaxKeys, c.Score.Recent, c.Score.Fading,
 		c.Drift.Delta, c.Drift.Lambda, c.Drift.MinEvents, c.Drift.Raw)
 	return hex.EncodeToString(h.Sum(nil))
 }

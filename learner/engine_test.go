@@ -163,7 +163,7 @@ func TestEngineDecodeRefusesOtherConfig(t *testing.T) {
 // never a panic.
 func TestEngineDecodeTruncated(t *testing.T) {
 	small := []string{"knn:k=3,window=10", "knn:window=1h", "rls:half_life=1h", "sliding-rls:window=10", "mean:window=5", "mean"}
-	cfg := Config{Features: FeatureConfig{HashBuckets: 2}, Score: ScoreConfig{Recent: 8, KeyRecent: 4}}
+	cfg := Config{Features: FeatureConfig{HashBuckets: 2}, Score: ScoreConfig{Recent: 4}}
 	a := mustEngine(t, cfg, small...)
 	for i, ev := range stream(40, 9) {
 		a.Apply(Position{0, int64(i)}, ev)
@@ -254,5 +254,45 @@ func TestEngineSectionsRestoreOnePartition(t *testing.T) {
 	c := mustEngine(t, cfg, "rls:forget=0.98", "knn:k=3,window=50")
 	if c.Config().Digest() == a.Config().Digest() {
 		t.Error("different configurations, same digest")
+	}
+}
+
+// TestStateIndependentOfPartitionInterleaving: the same events per partition,
+// interleaved two ways (as a consumer of several partitions may see them),
+// give the same state digest and the same report.
+func TestStateIndependentOfPartitionInterleaving(t *testing.T) {
+	events := stream(1500, 12)
+	type item struct {
+		pos Position
+		ev  *Event
+	}
+	parts := map[int32][]item{}
+	for i, ev := range events {
+		p := int32(i % 3) // key i%3 lives in partition i%3
+		parts[p] = append(parts[p], item{Position{p, int64(len(parts[p]))}, ev})
+	}
+	a := mustEngine(t, Config{}, allKinds...)
+	b := mustEngine(t, Config{}, allKinds...)
+	// a: round robin; b: partition 2 first, then 0 and 1 in bursts of 7.
+	for i := 0; i < 500; i++ {
+		for p := int32(0); p < 3; p++ {
+			a.Apply(parts[p][i].pos, parts[p][i].ev)
+		}
+	}
+	for _, it := range parts[2] {
+		b.Apply(it.pos, it.ev)
+	}
+	for i := 0; i < 500; i += 7 {
+		for _, p := range []int32{1, 0} {
+			for _, it := range parts[p][i:min(i+7, 500)] {
+				b.Apply(it.pos, it.ev)
+			}
+		}
+	}
+	if a.Digest() != b.Digest() {
+		t.Error("digests differ between two interleavings of the same partitions")
+	}
+	if ja, jb := mustJSON(t, a.Report(true)), mustJSON(t, b.Report(true)); ja != jb {
+		t.Error("reports differ between two interleavings of the same partitions")
 	}
 }

@@ -11,7 +11,7 @@ type Report struct {
 	Skipped         int64           `json:"skipped"` // passed over by a restore that skipped a range
 	IgnoredFeatures int64           `json:"ignored_features"`
 	Keys            int             `json:"keys"`
-	RecentWindow    int             `json:"recent_window"` // scored events in each learner's "recent" metrics
+	RecentWindow    int             `json:"recent_window"` // scored events per key in the "recent" metrics
 	Positions       []Position      `json:"positions"`
 	Learners        []LearnerReport `json:"learners"`
 }
@@ -60,9 +60,16 @@ func (e *Engine) Report(withKeys bool) Report {
 	for i := range e.cfg.Learners {
 		s := &e.cfg.Learners[i]
 		t := &e.totals[i]
-		lr := LearnerReport{Name: s.Name, Spec: s.Text, Kind: s.Kind.String(), Metrics: t.score.Metrics()}
+		var all, base pooled
+		for _, ks := range keys {
+			all.add(&ks.scores[i])
+			if e.baseline >= 0 {
+				base.add(&ks.scores[e.baseline])
+			}
+		}
+		lr := LearnerReport{Name: s.Name, Spec: s.Text, Kind: s.Kind.String(), Metrics: all.metrics()}
 		if e.baseline >= 0 {
-			lr.Skill = skill(&t.score, &e.totals[e.baseline].score)
+			lr.Skill = skill(lr.Metrics, base.metrics())
 		}
 		state := Stable
 		for _, ks := range keys {
@@ -70,7 +77,7 @@ func (e *Engine) Report(withKeys bool) Report {
 			if withKeys {
 				kr := KeyReport{Key: ks.key, Metrics: ks.scores[i].Metrics(), Drift: ks.drift[i].State().String()}
 				if e.baseline >= 0 {
-					kr.Skill = skill(&ks.scores[i], &ks.scores[e.baseline])
+					kr.Skill = skill(kr.Metrics, ks.scores[e.baseline].Metrics())
 				}
 				lr.Keys = append(lr.Keys, kr)
 			}
@@ -89,8 +96,7 @@ func (e *Engine) Report(withKeys bool) Report {
 
 // skill is 1 − rmse/rmse_baseline, or nil when either has no score or the
 // baseline's error is zero.
-func skill(s, base *Scorer) *float64 {
-	m, b := s.Metrics(), base.Metrics()
+func skill(m, b Metrics) *float64 {
 	if m.RMSE == nil || b.RMSE == nil || *b.RMSE == 0 {
 		return nil
 	}

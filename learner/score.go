@@ -8,39 +8,39 @@ import (
 
 // Defaults of ScoreConfig.
 const (
-	DefaultRecent    = 1000  // scored events in the recent window of a learner overall
-	DefaultKeyRecent = 100   // the same, per key (memory: 8 bytes an event per key and learner)
-	DefaultFading    = 0.999 // fading factor α
+	DefaultRecent = 500   // scored events in each key's recent window
+	DefaultFading = 0.999 // fading factor α
+	maxRecent     = 1_000_000
 )
 
 // ScoreConfig configures prequential scoring. Zero fields take the defaults.
 type ScoreConfig struct {
-	Recent    int     // recent window, overall. Default: DefaultRecent.
-	KeyRecent int     // recent window, per key. Default: DefaultKeyRecent.
-	Fading    float64 // α ∈ (0, 1). Default: DefaultFading.
+	// Recent is the number of most recent scored events of a key that the
+	// windowed metrics cover. Memory: up to 8 bytes an event per key and
+	// learner, allocated as events arrive. Default: DefaultRecent.
+	Recent int
+	Fading float64 // α ∈ (0, 1). Default: DefaultFading.
 }
 
 func (c ScoreConfig) withDefaults() ScoreConfig {
 	if c.Recent <= 0 {
 		c.Recent = DefaultRecent
 	}
-	if c.KeyRecent <= 0 {
-		c.KeyRecent = DefaultKeyRecent
-	}
+	c.Recent = min(c.Recent, maxRecent)
 	if c.Fading <= 0 || c.Fading >= 1 {
 		c.Fading = DefaultFading
 	}
 	return c
 }
 
-// Scorer keeps the prequential (test-then-train) error of one learner: each
-// event's prediction is scored against its target before the learner trains
-// on it (Dawid 1984, "Statistical theory: the prequential approach", JRSS A
-// 147:278–292). With e = target − prediction it tracks, over all scored
-// events, MAE = Σ|e|/n, RMSE = √(Σe²/n) and bias = Σe/n; the same over a
-// sliding window of the most recent scored events; and fading-factor
-// estimates (Gama, Sebastião & Rodrigues 2013, "On evaluating stream learning
-// algorithms", Machine Learning 90:317–346):
+// Scorer keeps the prequential (test-then-train) error of one learner on one
+// key: each event's prediction is scored against its target before the
+// learner trains on it (Dawid 1984, "Statistical theory: the prequential
+// approach", JRSS A 147:278–292). With e = target − prediction it tracks,
+// over all scored events, MAE = Σ|e|/n, RMSE = √(Σe²/n) and bias = Σe/n; the
+// same over a sliding window of the most recent scored events; and
+// fading-factor estimates (Gama, Sebastião & Rodrigues 2013, "On evaluating
+// stream learning algorithms", Machine Learning 90:317–346):
 //
 //	E_α(i) = S_α(i)/B_α(i),  S_α(i) = L_i + α·S_α(i−1),  B_α(i) = 1 + α·B_α(i−1)
 //
@@ -49,13 +49,20 @@ func (c ScoreConfig) withDefaults() ScoreConfig {
 // of evictions, so they stay exact to rounding. Sums over all events are
 // plain running sums, in event order.
 //
+// A learner's overall metrics pool its keys' scorers (see pooled): they
+// depend only on each key's events in order, never on how the partitions of
+// a stream interleave, so a restart that interleaves differently ends in the
+// same state.
+//
 // Not safe for concurrent use.
 type Scorer struct {
 	Scored, Unscored int64
 
 	sumAbs, sumSq, sumErr float64
 
-	recent                   *window.Ring[float64] // errors e
+	rec                      []float64 // recent errors e, ring storage growing to recMax
+	idx                      window.Index
+	recMax                   int
 	recAbs, recSq, recErr    float64
 	recEvicted               int
 	alpha                    float64
@@ -63,7 +70,27 @@ type Scorer struct {
 }
 
 func newScorer(recent int, alpha float64) Scorer {
-	return Scorer{recent: window.NewRing[float64](recent), alpha: alpha}
+	n := min(recent, 8)
+	return Scorer{rec: make([]float64, n), idx: window.NewIndex(n), recMax: recent, alpha: alpha}
+}
+
+// pushRecent appends e to the recent window, evicting (and returning) the
+// oldest error once the window is full.
+func (s *Scorer) pushRecent(e float64) (old float64, evicted bool) {
+	if s.idx.Full() {
+		if n := s.idx.Size(); n < s.recMax {
+			grown := make([]float64, min(2*n, s.recMax))
+			for i := 0; i < s.idx.Len(); i++ {
+				grown[i] = s.rec[s.idx.Slot(i)]
+			}
+			s.rec = grown
+			s.idx.Resize(len(grown))
+		} else {
+			old, evicted = s.rec[s.idx.Pop()], true
+		}
+	}
+	s.rec[s.idx.Push()] = e
+	return old, evicted
 }
 
 // Score records one scored event.
@@ -73,7 +100,7 @@ func (s *Scorer) Score(target, prediction float64) {
 	s.sumAbs += math.Abs(e)
 	s.sumSq += e * e
 	s.sumErr += e
-	if old, ok := s.recent.Push(e); ok {
+	if old, ok := s.pushRecent(e); ok {
 		s.recAbs -= math.Abs(old)
 		s.recSq -= old * old
 		s.recErr -= old
@@ -82,10 +109,10 @@ func (s *Scorer) Score(target, prediction float64) {
 	s.recAbs += math.Abs(e)
 	s.recSq += e * e
 	s.recErr += e
-	if s.recEvicted >= s.recent.Cap() {
+	if s.recEvicted >= s.recMax {
 		s.recAbs, s.recSq, s.recErr = 0, 0, 0
-		for i := 0; i < s.recent.Len(); i++ {
-			v := s.recent.At(i)
+		for i := 0; i < s.idx.Len(); i++ {
+			v := s.rec[s.idx.Slot(i)]
 			s.recAbs += math.Abs(v)
 			s.recSq += v * v
 			s.recErr += v
@@ -129,15 +156,50 @@ type Fading struct {
 
 // Metrics returns the current metrics.
 func (s *Scorer) Metrics() Metrics {
-	m := Metrics{Scored: s.Scored, Unscored: s.Unscored, Fading: Fading{Alpha: s.alpha}}
-	if s.Scored > 0 {
-		n := float64(s.Scored)
-		m.MAE, m.RMSE, m.Bias = ptr(s.sumAbs/n), ptr(math.Sqrt(s.sumSq/n)), ptr(s.sumErr/n)
-		m.Fading.MAE = ptr(s.fadAbs / s.fadWeight)
-		m.Fading.RMSE = ptr(math.Sqrt(s.fadSq / s.fadWeight))
+	var p pooled
+	p.add(s)
+	return p.metrics()
+}
+
+// pooled sums scorers: the metrics of the union of their events. Recent
+// metrics pool each key's recent window; the fading estimate is
+// ΣS_α/ΣB_α over keys. Adding scorers in a fixed order (keys sorted) makes
+// the result independent of the order events arrived in across keys.
+type pooled struct {
+	alpha                    float64
+	scored, unscored         int64
+	sumAbs, sumSq, sumErr    float64
+	recN                     int
+	recAbs, recSq, recErr    float64
+	fadAbs, fadSq, fadWeight float64
+}
+
+func (p *pooled) add(s *Scorer) {
+	p.alpha = s.alpha
+	p.scored += s.Scored
+	p.unscored += s.Unscored
+	p.sumAbs += s.sumAbs
+	p.sumSq += s.sumSq
+	p.sumErr += s.sumErr
+	p.recN += s.idx.Len()
+	p.recAbs += s.recAbs
+	p.recSq += s.recSq
+	p.recErr += s.recErr
+	p.fadAbs += s.fadAbs
+	p.fadSq += s.fadSq
+	p.fadWeight += s.fadWeight
+}
+
+func (p *pooled) metrics() Metrics {
+	m := Metrics{Scored: p.scored, Unscored: p.unscored, Fading: Fading{Alpha: p.alpha}}
+	if p.scored > 0 {
+		n := float64(p.scored)
+		m.MAE, m.RMSE, m.Bias = ptr(p.sumAbs/n), ptr(math.Sqrt(p.sumSq/n)), ptr(p.sumErr/n)
+		m.Fading.MAE = ptr(p.fadAbs / p.fadWeight)
+		m.Fading.RMSE = ptr(math.Sqrt(p.fadSq / p.fadWeight))
 	}
-	if n := s.recent.Len(); n > 0 {
-		m.Recent = RecentMetrics{Events: n, MAE: ptr(s.recAbs / float64(n)), RMSE: ptr(math.Sqrt(math.Max(s.recSq, 0) / float64(n))), Bias: ptr(s.recErr / float64(n))}
+	if n := p.recN; n > 0 {
+		m.Recent = RecentMetrics{Events: n, MAE: ptr(p.recAbs / float64(n)), RMSE: ptr(math.Sqrt(math.Max(p.recSq, 0) / float64(n))), Bias: ptr(p.recErr / float64(n))}
 	}
 	return m
 }
@@ -150,9 +212,9 @@ func (s *Scorer) encode(w *encoder) {
 	w.f64(s.sumAbs)
 	w.f64(s.sumSq)
 	w.f64(s.sumErr)
-	w.int(s.recent.Len())
-	for i := 0; i < s.recent.Len(); i++ {
-		w.f64(s.recent.At(i))
+	w.int(s.idx.Len())
+	for i := 0; i < s.idx.Len(); i++ {
+		w.f64(s.rec[s.idx.Slot(i)])
 	}
 	w.f64(s.recAbs)
 	w.f64(s.recSq)
@@ -166,11 +228,13 @@ func (s *Scorer) encode(w *encoder) {
 func (s *Scorer) decode(r *decoder) {
 	s.Scored, s.Unscored = r.i64(), r.i64()
 	s.sumAbs, s.sumSq, s.sumErr = r.f64(), r.f64(), r.f64()
-	n := r.count(s.recent.Cap(), 8)
-	s.recent.Reset()
+	n := r.count(s.recMax, 8)
+	size := max(n, min(8, s.recMax), 1)
+	s.rec = make([]float64, size)
 	for i := 0; i < n; i++ {
-		s.recent.Push(r.f64())
+		s.rec[i] = r.f64()
 	}
+	s.idx.Restore(size, n)
 	s.recAbs, s.recSq, s.recErr = r.f64(), r.f64(), r.f64()
 	s.recEvicted = r.int()
 	s.fadAbs, s.fadSq, s.fadWeight = r.f64(), r.f64(), r.f64()

@@ -17,8 +17,7 @@ import (
 //	global section: magic "TMSG", u32 state version; learner count and each
 //	  learner's canonical spec (checked on decode); schema (or absent);
 //	  counters applied, rejected, duplicates, ignored features, alarms,
-//	  skipped; per
-//	  learner overall: scorer, alarm count, last alarm (or absent)
+//	  skipped; per learner: alarm count, last alarm (or absent)
 //	partition section, one per partition seen, ascending: magic "TMSP",
 //	  partition, high-water offset; key count, then per key (sorted): name,
 //	  and per learner its model state, scorer and drift detector
@@ -29,9 +28,12 @@ import (
 const (
 	globalMagic    = "TMSG"
 	partitionMagic = "TMSP"
-	stateVersion   = 2 // 2 added the skipped counter; version 1 is still read
-	maxNames       = MaxFeatures
-	maxSections    = 1 << 20
+	// stateVersion 2 added the skipped counter; 3 dropped the per-learner
+	// scorer across keys (overall metrics are pooled from the keys). Versions
+	// 1 and 2 are still read.
+	stateVersion = 3
+	maxNames     = MaxFeatures
+	maxSections  = 1 << 20
 )
 
 // Section is one independently decodable part of the engine's state: the
@@ -67,7 +69,6 @@ func (e *Engine) Sections() []Section {
 	w.i64(e.skipped)
 	for i := range e.totals {
 		t := &e.totals[i]
-		t.score.encode(w)
 		w.i64(t.alarms)
 		w.bool(t.lastAlarm != nil)
 		if t.lastAlarm != nil {
@@ -222,7 +223,12 @@ func (e *Engine) decodeGlobal(b []byte) error {
 	}
 	for i := range e.totals {
 		t := &e.totals[i]
-		t.score.decode(r)
+		if v < 3 {
+			// versions 1 and 2 kept an arrival-order scorer per learner
+			// across keys; its figures are now pooled from the keys.
+			old := newScorer(maxRecent, DefaultFading)
+			old.decode(r)
+		}
 		t.alarms = r.i64()
 		if r.bool() {
 			t.lastAlarm = &Alarm{Position: Position{int32(r.u32()), r.i64()}, Key: r.str(MaxKeyBytes), Time: r.i64()}
