@@ -1,6 +1,10 @@
 package learner
 
-import "time"
+import (
+	"slices"
+	"strings"
+	"time"
+)
 
 // Report is a snapshot of every learner's prequential metrics; it is the
 // object `tidemark replay --json` prints and GET /v1/learners serves.
@@ -56,7 +60,10 @@ type AlarmReport struct {
 func (e *Engine) Report(withKeys bool) Report {
 	r := Report{Events: e.applied, Rejected: e.rejected, Duplicates: e.duplicates, Skipped: e.skipped, IgnoredFeatures: e.ignored,
 		Keys: len(e.keys), RecentWindow: e.cfg.Score.Recent, Positions: e.Positions()}
+	// Keys by name alone, not by partition: the pooled sums then do not
+	// depend on which partition a key landed in.
 	keys := e.sortedKeys()
+	slices.SortFunc(keys, func(a, b *keyState) int { return strings.Compare(a.key, b.key) })
 	for i := range e.cfg.Learners {
 		s := &e.cfg.Learners[i]
 		t := &e.totals[i]
