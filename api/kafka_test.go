@@ -24,7 +24,7 @@ const topic = "events"
 
 // broker starts a Kafka-protocol broker in process on loopback (kfake) with a
 // three-partition topic.
-func broker(t *testing.T) string {
+func broker(t testing.TB) string {
 	t.Helper()
 	c, err := kfake.NewCluster(kfake.NumBrokers(1), kfake.SeedTopics(3, topic))
 	if err != nil {
@@ -47,7 +47,7 @@ func (roomBalancer) Balance(m kafka.Message, partitions ...int) int {
 
 // produce writes events keyed by their key, so that a key lives in one
 // partition.
-func produce(t *testing.T, addr string, lines [][]byte) {
+func produce(t testing.TB, addr string, lines [][]byte) {
 	t.Helper()
 	w := &kafka.Writer{Addr: kafka.TCP(addr), Topic: topic, Balancer: roomBalancer{}, RequiredAcks: kafka.RequireAll,
 		BatchSize: 500, BatchTimeout: 10 * time.Millisecond}
@@ -66,7 +66,7 @@ func produce(t *testing.T, addr string, lines [][]byte) {
 }
 
 // lastOffsets reads the topic's last offset per non-empty partition.
-func lastOffsets(t *testing.T, addr string) []learner.Position {
+func lastOffsets(t testing.TB, addr string) []learner.Position {
 	t.Helper()
 	k, err := intake.NewKafka(intake.KafkaConfig{Brokers: []string{addr}, Topic: topic})
 	if err != nil {
@@ -78,7 +78,7 @@ func lastOffsets(t *testing.T, addr string) []learner.Position {
 	return k.HighWater()
 }
 
-func (r *running) waitPositions(t *testing.T, want []learner.Position) learner.Report {
+func (r *running) waitPositions(t testing.TB, want []learner.Position) learner.Report {
 	t.Helper()
 	deadline := time.Now().Add(60 * time.Second)
 	for {
@@ -98,7 +98,7 @@ func (r *running) waitPositions(t *testing.T, want []learner.Position) learner.R
 	}
 }
 
-func kafkaConfig(t *testing.T, addr, dir string) Config {
+func kafkaConfig(t testing.TB, addr, dir string) Config {
 	cfg := testConfig(t, dir)
 	cfg.Kafka = &intake.KafkaConfig{Brokers: []string{addr}, Topic: topic, Group: "tidemark-test", MaxWait: 50 * time.Millisecond}
 	return cfg
@@ -107,7 +107,7 @@ func kafkaConfig(t *testing.T, addr, dir string) Config {
 // partitionOrder reads the topic back partition by partition with a plain
 // kafka-go reader: the events in an order `replay` can take, each key's
 // events in their Kafka order.
-func partitionOrder(t *testing.T, addr string, last []learner.Position) [][]byte {
+func partitionOrder(t testing.TB, addr string, last []learner.Position) [][]byte {
 	t.Helper()
 	var out [][]byte
 	for _, p := range last {

@@ -9,6 +9,7 @@ import (
 	"net/http"
 	"os"
 	"path/filepath"
+	"slices"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -55,6 +56,7 @@ type Service struct {
 
 	addr      string
 	listening chan struct{}
+	ckJournal map[uint64]int64 // journal offset each known checkpoint covers
 }
 
 // Addr waits until Run listens and returns the address it listens on.
@@ -85,7 +87,7 @@ func New(cfg Config) (*Service, error) {
 		return nil, err
 	}
 	s := &Service{cfg: cfg, eng: eng, cmds: make(chan command), curves: newCurves(cfg.Engine.Learners, cfg.CurvePoints),
-		listening: make(chan struct{})}
+		listening: make(chan struct{}), ckJournal: map[uint64]int64{}}
 	s.store, err = checkpoint.OpenStore(checkpoint.StoreConfig{Dir: filepath.Join(cfg.DataDir, "checkpoints"), Retain: cfg.Retain})
 	if err != nil {
 		return nil, err
@@ -451,6 +453,11 @@ func (s *Service) checkpoint(reason checkpoint.Reason, parent uint64) error {
 		return err
 	}
 	s.lastCk, s.sinceCk, s.lastCkTime = info, 0, time.Now()
+	for _, p := range info.Position {
+		if p.Partition == 0 {
+			s.ckJournal[info.Version] = p.Offset
+		}
+	}
 	s.cfg.Log.Info("checkpoint", "version", info.Version, "reason", reason, "events", info.Events, "bytes", info.Bytes)
 	s.afterCheckpoint()
 	return nil
@@ -468,23 +475,35 @@ func (s *Service) afterCheckpoint() {
 	if s.journal == nil {
 		return
 	}
-	list, err := s.store.List()
-	if err != nil || len(list) == 0 {
+	// The journal may drop what every retained checkpoint covers. Positions
+	// of checkpoints are remembered as they are written; others (from before
+	// a restart) are read from their manifests once.
+	vs, err := s.store.Versions()
+	if err != nil {
 		return
 	}
 	oldest := int64(-1)
-	for _, in := range list {
-		if in.Error != "" {
-			continue
-		}
-		off := int64(0)
-		for _, p := range in.Position {
-			if p.Partition == 0 {
-				off = p.Offset
+	for _, v := range vs {
+		off, ok := s.ckJournal[v]
+		if !ok {
+			m, err := s.store.ReadManifest(v)
+			if err != nil {
+				continue // a corrupt file protects nothing
 			}
+			for _, p := range m.Positions {
+				if p.Partition == 0 {
+					off = p.Offset
+				}
+			}
+			s.ckJournal[v] = off
 		}
 		if oldest < 0 || off < oldest {
 			oldest = off
+		}
+	}
+	for v := range s.ckJournal {
+		if !slices.Contains(vs, v) {
+			delete(s.ckJournal, v)
 		}
 	}
 	if oldest > 0 {

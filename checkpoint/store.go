@@ -404,3 +404,28 @@ func (s *Store) Unpin(v uint64) error {
 	}
 	return s.cfg.FS.SyncDir(s.cfg.Dir)
 }
+
+// Versions returns the versions present, oldest first, from the directory
+// listing alone (no file is read).
+func (s *Store) Versions() ([]uint64, error) {
+	vs, _, err := s.scan()
+	return vs, err
+}
+
+// ReadManifest returns version v's manifest after checking the file's
+// structure and CRC, without decompressing its state.
+func (s *Store) ReadManifest(v uint64) (Manifest, error) {
+	name := FileName(v)
+	b, err := s.cfg.FS.ReadFile(filepath.Join(s.cfg.Dir, name))
+	if errors.Is(err, fs.ErrNotExist) {
+		return Manifest{}, fmt.Errorf("%w: version %d (%s)", ErrNotFound, v, name)
+	}
+	if err != nil {
+		return Manifest{}, fmt.Errorf("checkpoint: %w", err)
+	}
+	p, err := parseFile(name, b, s.cfg.MaxRawBytes)
+	if err != nil {
+		return Manifest{}, err
+	}
+	return p.manifest, nil
+}
