@@ -52,6 +52,23 @@ type fileConfig struct {
 const TokenEnv = "TIDEMARK_TOKEN"
 
 func runServe(args []string, stdout, stderr io.Writer) error {
+	cfg, err := serveConfig(args, stderr)
+	if err != nil {
+		return err
+	}
+	svc, err := api.New(cfg)
+	if err != nil {
+		return err
+	}
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	defer stop()
+	fmt.Fprintf(stdout, "tidemark serving on http://%s (learners: %s); Ctrl-C stops with a final checkpoint\n", cfg.Listen, cfg.Engine.Names())
+	return svc.Run(ctx)
+}
+
+// serveConfig builds the service configuration from flags and the YAML
+// file, reporting every problem at once.
+func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	fs := newFlagSet("serve", "serve [--config FILE] [--data DIR] [--learner SPEC]... [flags]", stderr)
 	configPath := fs.String("config", "", "YAML configuration `FILE`; flags override it")
 	listen := fs.String("listen", api.DefaultListen, "HTTP listen address")
@@ -68,16 +85,16 @@ func runServe(args []string, stdout, stderr io.Writer) error {
 	ef.register(fs)
 	pos, err := parse(fs, args)
 	if err != nil {
-		return err
+		return api.Config{}, err
 	}
 	if len(pos) > 0 {
-		return usagef("unexpected argument %q", pos[0])
+		return api.Config{}, usagef("unexpected argument %q", pos[0])
 	}
 	set := map[string]bool{}
 	fs.Visit(func(f *flag.Flag) { set[f.Name] = true })
 	var level slog.Level
 	if err := level.UnmarshalText([]byte(*logLevel)); err != nil {
-		return usagef("--log-level %q: want debug, info, warn or error", *logLevel)
+		return api.Config{}, usagef("--log-level %q: want debug, info, warn or error", *logLevel)
 	}
 
 	var fc fileConfig
@@ -85,10 +102,10 @@ func runServe(args []string, stdout, stderr io.Writer) error {
 	if *configPath != "" {
 		b, err := os.ReadFile(*configPath)
 		if err != nil {
-			return usageError{err}
+			return api.Config{}, usageError{err}
 		}
 		if err := yaml.UnmarshalWithOptions(b, &fc, yaml.Strict()); err != nil {
-			return usagef("%s: %v", *configPath, err)
+			return api.Config{}, usagef("%s: %v", *configPath, err)
 		}
 	}
 	pick := func(name string, flagVal, fileVal string) string {
@@ -163,14 +180,7 @@ func runServe(args []string, stdout, stderr io.Writer) error {
 		}
 	}
 	if len(problems) > 0 {
-		return usagef("invalid configuration:\n  %s", strings.ReplaceAll(errors.Join(problems...).Error(), "\n", "\n  "))
+		return api.Config{}, usagef("invalid configuration:\n  %s", strings.ReplaceAll(errors.Join(problems...).Error(), "\n", "\n  "))
 	}
-	svc, err := api.New(cfg)
-	if err != nil {
-		return err
-	}
-	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
-	defer stop()
-	fmt.Fprintf(stdout, "tidemark serving on http://%s (learners: %s); Ctrl-C stops with a final checkpoint\n", cfg.Listen, eng.Names())
-	return svc.Run(ctx)
+	return cfg, nil
 }
