@@ -42,6 +42,15 @@ type ReplayConfig struct {
 	// when ctx ends the replay early (reason shutdown).
 	Checkpoints *checkpoint.Store
 	Every       int64
+	// Progress, when set, is called from the reading goroutine every 1024
+	// lines with the bytes read, the file's size (0 if unknown) and the lines read.
+	Progress func(read, size, lines int64)
+	// Observe, when set, is called after every applied event, on the
+	// goroutine that owns the engine (curves and plots use it).
+	Observe func(line int64, ev *learner.Event, eng *learner.Engine)
+	// Sequential reads and decodes on the engine's goroutine instead of a
+	// second one (the results are the same; it exists to measure the gain).
+	Sequential bool
 	// Resume restores the newest good checkpoint in Checkpoints and continues
 	// after the line it covers. It refuses (ErrResume) when the checkpoint was
 	// taken under another configuration or over a history this one does not
@@ -63,12 +72,16 @@ type historySource struct {
 type replayer struct {
 	cfg     ReplayConfig
 	eng     *learner.Engine
-	prefix  hash.Hash
-	lines   int64
-	parent  uint64
-	resume  *historySource // the checkpoint resumed from, until its prefix is verified
-	logged  int
-	rejects int
+	prefix  hash.Hash // the reader's: SHA-256 of the lines read so far
+	lines   int64     // the reader's: lines read
+	applied int64     // the engine side: the last line stepped through
+	digest  [32]byte  // SHA-256 of lines 1..applied, when a checkpoint is due
+
+	finalDigest [32]byte
+	parent      uint64
+	resume      *historySource // the checkpoint resumed from, until its prefix is verified
+	logged      int
+	rejects     int
 }
 
 // Replay runs every line of h through eng, test-then-train, in order. Each
@@ -91,7 +104,7 @@ func Replay(ctx context.Context, h *intake.History, eng *learner.Engine, cfg Rep
 	err := r.run(ctx, h)
 	if r.resume != nil && err == nil {
 		return fmt.Errorf("%w: the history has %d lines but the checkpoint covers %d; it is not the history the checkpoint was taken on",
-			ErrResume, r.lines, r.resume.Lines)
+			ErrResume, r.applied, r.resume.Lines)
 	}
 	if cfg.Log != nil && r.rejects > r.logged {
 		fmt.Fprintf(cfg.Log, "%d rejected lines in all (%d shown)\n", r.rejects, r.logged)
@@ -101,6 +114,7 @@ func Replay(ctx context.Context, h *intake.History, eng *learner.Engine, cfg Rep
 	}
 	switch {
 	case err == nil:
+		r.digest = r.finalDigest
 		return r.checkpoint(checkpoint.Final)
 	case ctx.Err() != nil && errors.Is(err, ctx.Err()):
 		if cerr := r.checkpoint(checkpoint.Shutdown); cerr != nil {
@@ -110,63 +124,210 @@ func Replay(ctx context.Context, h *intake.History, eng *learner.Engine, cfg Rep
 	return err
 }
 
+// lineItem is one line of the history, read and decoded ahead of the engine.
+type lineItem struct {
+	no      int64
+	kind    lineKind
+	ev      learner.Event
+	err     error
+	digest  [32]byte // SHA-256 of lines 1..no
+	readErr error    // a read failure: the replay stops with it
+}
+
+type lineKind uint8
+
+const (
+	lineEvent lineKind = iota
+	lineBad            // did not decode: err says why
+	lineTooLong
+	lineBlank
+	lineEOF // the end: digest covers every line
+)
+
+const batchLines = 512
+
+// read is the first stage of the replay pipeline: it reads, hashes and
+// decodes lines in order and hands them over in batches, so that decoding
+// overlaps learning on a second core. The engine still sees every line in
+// file order, so results are identical to a single-goroutine run.
+func (r *replayer) read(ctx context.Context, h *intake.History, out chan<- []lineItem, free chan []lineItem) {
+	defer close(out)
+	batch := <-free
+	batch = batch[:0]
+	send := func() bool {
+		select {
+		case out <- batch:
+		case <-ctx.Done():
+			return false
+		}
+		select {
+		case batch = <-free:
+		case <-ctx.Done():
+			return false
+		}
+		batch = batch[:0]
+		return true
+	}
+	for {
+		batch = batch[:len(batch)+1]
+		it := &batch[len(batch)-1]
+		r.next(h, it)
+		if r.cfg.Progress != nil && it.no%1024 == 0 {
+			r.cfg.Progress(h.BytesRead(), h.Size(), it.no)
+		}
+		if it.kind == lineEOF || it.readErr != nil {
+			send()
+			return
+		}
+		if len(batch) == cap(batch) && !send() {
+			return
+		}
+	}
+}
+
+// next reads, hashes and decodes the next line into it.
+func (r *replayer) next(h *intake.History, it *lineItem) {
+	line, no, err := h.Next()
+	it.err, it.readErr = nil, nil
+	if err == io.EOF {
+		it.kind, it.no = lineEOF, r.lines
+		r.prefix.Sum(it.digest[:0])
+		return
+	}
+	tooLong := errors.Is(err, intake.ErrLineTooLong)
+	if err != nil && !tooLong {
+		it.no, it.readErr = no, err
+		return
+	}
+	r.lines, it.no = no, no
+	if tooLong {
+		r.prefix.Write([]byte("\x00line too long\n"))
+	} else {
+		r.prefix.Write(line)
+		r.prefix.Write([]byte{'\n'})
+	}
+	r.prefix.Sum(it.digest[:0])
+	switch {
+	case tooLong:
+		it.kind, it.err = lineTooLong, err
+	case len(bytes.TrimSpace(line)) == 0:
+		it.kind = lineBlank
+	default:
+		it.kind = lineEvent
+		if derr := learner.DecodeEvent(line, &it.ev); derr != nil {
+			it.kind, it.err = lineBad, derr
+		}
+	}
+}
+
 func (r *replayer) run(ctx context.Context, h *intake.History) error {
-	var ev learner.Event
+	if r.cfg.Sequential {
+		return r.runSequential(ctx, h)
+	}
+	out := make(chan []lineItem, 2)
+	free := make(chan []lineItem, 4)
+	for i := 0; i < 4; i++ {
+		free <- make([]lineItem, 0, batchLines)
+	}
+	rctx, cancel := context.WithCancel(ctx)
+	defer func() {
+		cancel()
+		for range out { // let the reader finish
+		}
+	}()
+	go r.read(rctx, h, out, free)
+	for batch := range out {
+		for i := range batch {
+			it := &batch[i]
+			if err := r.step(it); err != nil {
+				return err
+			}
+			if it.kind == lineEOF {
+				r.finalDigest = it.digest
+				return nil
+			}
+		}
+		free <- batch
+		if ctx.Err() != nil {
+			return ctx.Err()
+		}
+	}
+	if ctx.Err() != nil {
+		return ctx.Err()
+	}
+	return nil
+}
+
+// runSequential reads and applies on one goroutine (for comparison).
+func (r *replayer) runSequential(ctx context.Context, h *intake.History) error {
+	var it lineItem
 	for n := 0; ; n++ {
 		if n%4096 == 0 && ctx.Err() != nil {
 			return ctx.Err()
 		}
-		line, no, err := h.Next()
-		if err == io.EOF {
+		r.next(h, &it)
+		if r.cfg.Progress != nil && it.no%1024 == 0 {
+			r.cfg.Progress(h.BytesRead(), h.Size(), it.no)
+		}
+		if err := r.step(&it); err != nil {
+			return err
+		}
+		if it.kind == lineEOF {
+			r.finalDigest = it.digest
 			return nil
 		}
-		tooLong := errors.Is(err, intake.ErrLineTooLong)
-		if err != nil && !tooLong {
-			return err
+	}
+}
+
+// step applies one line. Every line carries the digest of the prefix it
+// ends, so that a checkpoint at any line (periodic, or on an interrupt) can
+// record it.
+func (r *replayer) step(it *lineItem) error {
+	if it.readErr != nil {
+		return it.readErr
+	}
+	if it.kind == lineEOF {
+		return nil
+	}
+	no := it.no
+	pos := learner.Position{Partition: 0, Offset: no}
+	r.applied, r.digest = no, it.digest
+	if r.resume != nil {
+		if no < r.resume.Lines {
+			return nil
 		}
-		r.lines = no
-		if tooLong {
-			r.prefix.Write([]byte("\x00line too long\n"))
-		} else {
-			r.prefix.Write(line)
-			r.prefix.Write([]byte{'\n'})
+		if got := hex.EncodeToString(it.digest[:]); got != r.resume.PrefixSHA256 {
+			return fmt.Errorf("%w: the first %d lines of this history differ from those the checkpoint covered "+
+				"(SHA-256 %s, checkpoint %s); it does not extend that history", ErrResume, no, got[:12], r.resume.PrefixSHA256[:12])
 		}
-		pos := learner.Position{Partition: 0, Offset: no}
-		if r.resume != nil {
-			if no < r.resume.Lines {
-				continue
-			}
-			if got := hex.EncodeToString(r.prefix.Sum(nil)); got != r.resume.PrefixSHA256 {
-				return fmt.Errorf("%w: the first %d lines of this history differ from those the checkpoint covered "+
-					"(SHA-256 %s, checkpoint %s); it does not extend that history", ErrResume, no, got[:12], r.resume.PrefixSHA256[:12])
-			}
-			r.resume = nil
-			continue
-		}
-		switch {
-		case r.eng.Covers(pos):
-		case tooLong:
-			r.eng.Skip(pos)
-			err = r.reject(no, err)
-		case len(bytes.TrimSpace(line)) == 0:
-			// a blank line carries no event
-		default:
-			if derr := learner.DecodeEvent(line, &ev); derr != nil {
-				r.eng.Skip(pos)
-				err = r.reject(no, derr)
-			} else if _, aerr := r.eng.Apply(pos, &ev); aerr != nil {
-				err = r.reject(no, aerr)
-			}
-		}
-		if err != nil {
-			return err
-		}
-		if r.cfg.Checkpoints != nil && r.cfg.Every > 0 && no%r.cfg.Every == 0 {
-			if err := r.checkpoint(checkpoint.Periodic); err != nil {
-				return err
-			}
+		r.resume = nil
+		return nil
+	}
+	var err error
+	switch {
+	case r.eng.Covers(pos):
+	case it.kind == lineTooLong:
+		r.eng.Skip(pos)
+		err = r.reject(no, it.err)
+	case it.kind == lineBlank:
+		// a blank line carries no event
+	case it.kind == lineBad:
+		r.eng.Skip(pos)
+		err = r.reject(no, it.err)
+	default:
+		if _, aerr := r.eng.Apply(pos, &it.ev); aerr != nil {
+			err = r.reject(no, aerr)
+		} else if r.cfg.Observe != nil {
+			r.cfg.Observe(no, &it.ev, r.eng)
 		}
 	}
+	if err != nil {
+		return err
+	}
+	if r.cfg.Checkpoints != nil && r.cfg.Every > 0 && no%r.cfg.Every == 0 {
+		return r.checkpoint(checkpoint.Periodic)
+	}
+	return nil
 }
 
 func (r *replayer) reject(line int64, err error) error {
@@ -191,8 +352,8 @@ func (r *replayer) learnerSpecs() []string {
 
 // checkpoint writes the engine's state and the history position.
 func (r *replayer) checkpoint(reason checkpoint.Reason) error {
-	src, _ := json.Marshal(historySource{Kind: "history", Lines: r.lines,
-		PrefixSHA256: hex.EncodeToString(r.prefix.Sum(nil)), Learners: r.learnerSpecs()})
+	src, _ := json.Marshal(historySource{Kind: "history", Lines: r.applied,
+		PrefixSHA256: hex.EncodeToString(r.digest[:]), Learners: r.learnerSpecs()})
 	m := Manifest(r.eng, reason, r.parent)
 	m.Source = src
 	info, err := r.cfg.Checkpoints.Write(m, ToCheckpoint(r.eng.Sections()))

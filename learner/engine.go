@@ -90,6 +90,9 @@ type Engine struct {
 	alarms, skipped                        int64
 
 	x []float64
+
+	lastPred []float64 // each learner's prediction for the last applied event
+	lastOK   []bool    // whether it predicted (was ready)
 }
 
 // total is what a learner keeps across keys: its alarm count and the last
@@ -141,12 +144,21 @@ func NewEngine(cfg Config) (*Engine, error) {
 			e.baseline = i
 		}
 		e.totals = append(e.totals, total{})
+		e.lastPred = append(e.lastPred, 0)
+		e.lastOK = append(e.lastOK, false)
 	}
 	if cfg.Features.TimeFeatures && e.needTime == "" {
 		e.needTime = "time features"
 	}
 	return e, nil
 }
+
+// Last returns learner i's prediction for the last event Apply applied, and
+// whether it made one (it was ready). Replays use it to plot predictions.
+func (e *Engine) Last(i int) (float64, bool) { return e.lastPred[i], e.lastOK[i] }
+
+// LearnerAlarms returns the drift alarms learner i has raised, over all keys.
+func (e *Engine) LearnerAlarms(i int) int64 { return e.totals[i].alarms }
 
 // Config returns the engine's configuration with defaults filled in.
 func (e *Engine) Config() Config { return e.cfg }
@@ -240,7 +252,9 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 		if ev.HasTime {
 			l.Advance(ev.Time)
 		}
-		if pred, ok := l.Predict(e.x); ok {
+		pred, ok := l.Predict(e.x)
+		e.lastPred[i], e.lastOK[i] = pred, ok
+		if ok {
 			ks.scores[i].Score(y, pred)
 			if ks.drift[i].Add(math.Abs(y - pred)) {
 				e.alarms++
