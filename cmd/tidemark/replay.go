@@ -12,6 +12,7 @@ import (
 	"strings"
 
 	"tidemark/api"
+	"tidemark/api/chart"
 	"tidemark/api/intake"
 	"tidemark/checkpoint"
 	"tidemark/learner"
@@ -84,6 +85,13 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 	ckDir := fs.String("checkpoints", "", "write checkpoints to `DIR` (one at the end, and every --every lines)")
 	every := fs.Int64("every", 0, "with --checkpoints, also write a checkpoint every `N` lines")
 	resume := fs.Bool("resume", false, "with --checkpoints, restore the newest good checkpoint and continue after the line it covers")
+	curvePath := fs.String("curve", "", "write each learner's recent mae and rmse per bucket of events to `FILE.csv`")
+	curveEvery := fs.Int64("curve-every", chart.DefaultEvery, "events per --curve row")
+	plotPath := fs.String("plot", "", "draw error over time and prediction against target to `FILE.svg` or FILE.png")
+	plotKey := fs.String("plot-key", "", "key whose predictions the plot shows (default: the first key seen)")
+	units := fs.String("units", "", "the target's units, for the plot's axes (e.g. kW)")
+	quiet := fs.Bool("quiet", false, "no progress bar")
+	sequential := fs.Bool("sequential", false, "decode on the learning goroutine instead of a second one (same results; for measuring)")
 	pos, err := parse(fs, args)
 	if err != nil {
 		return err
@@ -99,6 +107,9 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 	}
 	if (*every != 0 || *resume) && *ckDir == "" {
 		return usagef("--every and --resume need --checkpoints DIR")
+	}
+	if *plotPath != "" && !strings.HasSuffix(*plotPath, ".svg") && !strings.HasSuffix(*plotPath, ".png") {
+		return usagef("--plot %s: want a file ending in .svg or .png", *plotPath)
 	}
 	if *every < 0 {
 		return usagef("--every %d: want a positive number of lines", *every)
@@ -125,14 +136,53 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 	}
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
 	defer stop()
-	err = api.Replay(ctx, h, eng, api.ReplayConfig{Strict: *strict, Log: stderr, Checkpoints: store, Every: *every, Resume: *resume})
+	rc := api.ReplayConfig{Strict: *strict, Log: stderr, Checkpoints: store, Every: *every, Resume: *resume, Sequential: *sequential}
+	var rec *chart.Recorder
+	if *curvePath != "" || *plotPath != "" {
+		rec = chart.NewRecorder(eng, *curveEvery, *plotKey)
+		rc.Observe = rec.Observe
+	}
+	bar := newProgress(stderr, h.Size(), *quiet)
+	if bar != nil {
+		rc.Progress = bar.update
+		rc.Log = bar.writer()
+	}
+	err = api.Replay(ctx, h, eng, rc)
+	if bar != nil {
+		bar.finish()
+	}
 	if errors.Is(err, api.ErrStrict) || errors.Is(err, api.ErrResume) {
 		return usageError{err}
 	}
 	if err != nil {
 		return err
 	}
+	if rec != nil {
+		rec.Finish(eng)
+		if *curvePath != "" {
+			if err := writeFile(*curvePath, rec.WriteCSV); err != nil {
+				return err
+			}
+		}
+		if *plotPath != "" {
+			if err := rec.Plot(*plotPath, *units); err != nil {
+				return err
+			}
+		}
+	}
 	return writeReport(stdout, eng.Report(*perKey), *asJSON)
+}
+
+func writeFile(path string, write func(io.Writer) error) error {
+	f, err := os.Create(path)
+	if err != nil {
+		return err
+	}
+	if err := write(f); err != nil {
+		f.Close()
+		return err
+	}
+	return f.Close()
 }
 
 func writeReport(w io.Writer, r learner.Report, asJSON bool) error {
