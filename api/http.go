@@ -49,6 +49,7 @@ func (s *Service) newHTTP() *http.Server {
 	e.GET("/healthz", func(c echo.Context) error { return c.JSON(http.StatusOK, map[string]string{"status": "ok"}) })
 	e.GET("/readyz", s.handleReady)
 	e.GET("/metrics", echo.WrapHandler(s.metrics.handler()))
+	e.GET("/", s.handleDashboard)
 	e.GET("/v1/openapi.json", func(c echo.Context) error { return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, openapiDoc) })
 	return &http.Server{Addr: s.cfg.Listen, Handler: e, ReadHeaderTimeout: readHeaderTimeout,
 		ReadTimeout: readTimeout, WriteTimeout: writeTimeout, IdleTimeout: idleTimeout}

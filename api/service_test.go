@@ -480,3 +480,44 @@ func TestReplayPipelineEqualsSequential(t *testing.T) {
 		t.Errorf("pipelined and single-goroutine replays differ (applied %d and %d)", a.Applied(), b.Applied())
 	}
 }
+
+func TestDashboard(t *testing.T) {
+	cfg := testConfig(t, t.TempDir())
+	cfg.CurveEvery = 20
+	r := start(t, cfg)
+	r.post(t, "", scenario(t, 1)[:300])
+	r.waitCovered(t, 300)
+	code, b := r.call(t, "GET", "/", "", nil)
+	page := string(b)
+	for _, want := range []string{"300 events applied", "rls:forget=0.99", "<polyline", "not a safety system", "Checkpoints"} {
+		if code != 200 || !strings.Contains(page, want) {
+			t.Errorf("dashboard (%d) lacks %q", code, want)
+		}
+	}
+}
+
+func TestDemoSmoke(t *testing.T) {
+	var out strings.Builder
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	var predicted, ready bool
+	err := RunDemo(ctx, DemoConfig{Listen: "127.0.0.1:0", DataDir: t.TempDir(), Days: 3, Speed: 1e6, Every: time.Hour, Out: &out,
+		Ready: func(base string) {
+			resp, err := http.Get(base + "/readyz")
+			ready = err == nil && resp.StatusCode == 200
+			body := `{"learner":"rls-forget","key":"room-b","time":"2026-03-02T12:00:00Z","features":{"outdoor_c":14,"door_min":2,"shift":"day"}}`
+			resp, err = http.Post(base+"/v1/predict", "application/json", strings.NewReader(body))
+			predicted = err == nil && resp.StatusCode == 200
+		}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !ready || !predicted {
+		t.Errorf("demo: ready %v, predict answered %v", ready, predicted)
+	}
+	for _, want := range []string{"dashboard", "curl -s -d", "/restore", "the scenario is played out", "rls-forget", "shutdown checkpoint"} {
+		if !strings.Contains(out.String(), want) {
+			t.Errorf("demo output lacks %q:\n%s", want, out.String())
+		}
+	}
+}

@@ -78,16 +78,23 @@ func (q *sqrtInfo) add(x []float64, y float64) {
 func (q *sqrtInfo) remove(x []float64, y float64) bool {
 	p := q.p
 	s, c := q.a, q.c
-	// Solve Rᵀs = x.
+	// Solve Rᵀs = x. A column that is, to working precision, a combination
+	// of the ones before it (rankTol, as in solve) has a zero row in R: the
+	// row being removed has no component along it, so s there is 0 and its
+	// rotation is the identity. (One-hot buckets beside an intercept are
+	// dependent by construction.)
 	var norm2 float64
 	for j := 0; j < p; j++ {
 		v := x[j]
+		var col float64
 		for i := 0; i < j; i++ {
 			v -= q.r[i*p+j] * s[i]
+			col += q.r[i*p+j] * q.r[i*p+j]
 		}
 		d := q.r[j*p+j]
-		if d == 0 {
-			return false
+		if d == 0 || math.Abs(d) <= rankTol*math.Sqrt(col+d*d) {
+			s[j] = 0
+			continue
 		}
 		s[j] = v / d
 		norm2 += s[j] * s[j]

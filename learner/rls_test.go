@@ -309,3 +309,44 @@ func TestRLSDegreeTwoFitsQuadratic(t *testing.T) {
 		t.Errorf("coefficients %v, want %v", m.Coefficients(nil), want)
 	}
 }
+
+// TestSlidingRLSDependentColumns: one-hot buckets beside an intercept make
+// the design rank-deficient by construction. The coefficients are then not
+// unique, but the fitted values are: sliding-rls must predict what gonum's
+// least squares predicts on the same window with the redundant column dropped.
+func TestSlidingRLSDependentColumns(t *testing.T) {
+	const w = 150
+	m := newSliding(SlidingConfig{Window: Window{Count: w}, Degree: 1, Max: DefaultMemoryCap}, 5)
+	rng := rand.New(rand.NewPCG(8, 8))
+	type row struct {
+		x []float64
+		y float64
+	}
+	var all []row
+	for i := 0; i < 20000; i++ {
+		cat := rng.IntN(3)
+		x := []float64{rng.NormFloat64(), rng.Float64() * 10, 0, 0, 0}
+		x[2+cat] = 1
+		y := 2 + x[0] - 0.3*x[1] + []float64{0, 4, -2}[cat] + 0.5*rng.NormFloat64() + math.Sin(float64(i)/700)*x[0]
+		m.Learn(x, y, 0)
+		all = append(all, row{x, y})
+	}
+	var us [][]float64
+	var ys []float64
+	for _, r := range all[len(all)-w:] {
+		us = append(us, []float64{1, r.x[0], r.x[1], r.x[2], r.x[3]}) // the third bucket is 1 − the others
+		ys = append(ys, r.y)
+	}
+	theta := batchLS(t, us, ys)
+	for _, q := range [][]float64{{0.5, 3, 1, 0, 0}, {-1, 7, 0, 1, 0}, {2, 0.5, 0, 0, 1}} {
+		got, ok := m.Predict(q)
+		want := theta[0] + theta[1]*q[0] + theta[2]*q[1] + theta[3]*q[2] + theta[4]*q[3]
+		if !ok || math.Abs(got-want) > slidingTol*math.Max(1, math.Abs(want)) {
+			t.Errorf("predict(%v) = %.12g, gonum least squares %.12g", q, got, want)
+		}
+	}
+	if m.Deficient() != 1 {
+		t.Errorf("%d dependent columns reported, want 1", m.Deficient())
+	}
+	t.Logf("20000 events, %d refactorisations", m.Refactorisations())
+}

@@ -1,60 +1,43 @@
 package main
 
 import (
-	"bytes"
 	"context"
-	"fmt"
 	"io"
+	"os"
+	"os/signal"
+	"syscall"
+	"time"
 
 	"tidemark/api"
-	"tidemark/api/intake"
-	"tidemark/bench/synth"
-	"tidemark/learner"
 )
 
-// demoLearners is the demo's set: windowed k-NN, forgetting RLS, cumulative
-// RLS, sliding-window RLS and the mean baseline. Windows count events per key
-// (one room reports 288 readings a day).
-var demoLearners = []string{
-	"knn:k=10,window=2016,name=knn-week",
-	"rls:forget=0.995,name=rls-forget",
-	"rls:forget=1,name=rls-cumulative",
-	"sliding-rls:window=864,name=sliding-rls-3d",
-	"mean:window=288,name=mean-day",
-}
-
 func runDemo(args []string, stdout, stderr io.Writer) error {
-	fs := newFlagSet("demo", "demo [--days N] [--seed S] [--json]", stderr)
+	fs := newFlagSet("demo", "demo [--listen ADDR] [--data DIR] [--days N] [--speed X] [--duration D]", stderr)
+	listen := fs.String("listen", api.DefaultListen, "HTTP listen address of the demo's service")
+	data := fs.String("data", "", "data directory (default: a new temporary one, kept afterwards)")
 	days := fs.Int("days", 14, "days of the demo scenario")
 	seed := fs.Uint64("seed", 1, "random seed of the scenario")
-	asJSON := fs.Bool("json", false, "print the report as JSON")
+	speed := fs.Float64("speed", 1440, "event time per wall time (1440: a day a minute)")
+	warmup := fs.Int("warmup", 1, "days fed at once before pacing starts")
+	every := fs.Duration("every", 10*time.Second, "print the scoreboard this often")
+	duration := fs.Duration("duration", 0, "stop after this long (0: when the scenario is played out or on Ctrl-C)")
+	verbose := fs.Bool("verbose", false, "print the service's log on stderr")
 	if _, err := parse(fs, args); err != nil {
 		return err
 	}
-	if *days < 1 || *days > 366 {
-		return usagef("--days %d: want 1 to 366", *days)
+	if *days < 1 || *days > 366 || *warmup >= *days || *speed <= 0 {
+		return usagef("want --days from 2 to 366, --warmup below --days, and a positive --speed")
 	}
-	var buf bytes.Buffer
-	if _, err := synth.Write(&buf, synth.Config{Days: *days, Seed: *seed}); err != nil {
-		return err
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	defer stop()
+	if *duration > 0 {
+		var cancel context.CancelFunc
+		ctx, cancel = context.WithTimeout(ctx, *duration)
+		defer cancel()
 	}
-	ef := engineFlags{learners: demoLearners, timeFeatures: true, hashBuckets: 4, maxKeys: learner.DefaultMaxKeys}
-	cfg, err := ef.config()
-	if err != nil {
-		return err
+	dc := api.DemoConfig{Listen: *listen, DataDir: *data, Days: *days, Seed: *seed, Speed: *speed, Warmup: *warmup, Every: *every, Out: stdout}
+	if *verbose {
+		dc.Log = stderr
 	}
-	eng, err := learner.NewEngine(cfg)
-	if err != nil {
-		return err
-	}
-	if !*asJSON {
-		fmt.Fprintf(stdout, "tidemark demo: %d days of a fictional cold-storage warehouse (invented data; see `tidemark synth --help`),\n"+
-			"three rooms, a reading every five minutes, an insulation fault in room-b from mid-run, a stuck outdoor sensor,\n"+
-			"and five malformed lines. Every learner predicts each event before it trains on it.\n\n", *days)
-	}
-	err = api.Replay(context.Background(), intake.NewHistoryReader(&buf), eng, api.ReplayConfig{Log: stderr})
-	if err != nil {
-		return err
-	}
-	return writeReport(stdout, eng.Report(false), *asJSON)
+	return api.RunDemo(ctx, dc)
 }

@@ -269,7 +269,7 @@ func TestReplayStrictAndUsage(t *testing.T) {
 
 func TestDemoRuns(t *testing.T) {
 	var stdout, stderr bytes.Buffer
-	if code := run([]string{"demo", "--days", "2"}, &stdout, &stderr); code != 0 {
+	if code := run([]string{"demo", "--listen", "127.0.0.1:0", "--days", "2", "--speed", "1000000"}, &stdout, &stderr); code != 0 {
 		t.Fatalf("exit %d: %s", code, stderr.String())
 	}
 	for _, want := range []string{"knn-week", "rls-forget", "sliding-rls-3d", "mean-day", "recent error"} {
