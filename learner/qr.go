@@ -51,13 +51,22 @@ func (q *sqrtInfo) add(x []float64, y float64) {
 	p := q.p
 	w := q.a
 	copy(w, x)
+	var xn float64
+	for _, v := range x {
+		xn += v * v
+	}
+	noise := rankTol * math.Sqrt(xn)
 	for i := 0; i < p; i++ {
 		wi := w[i]
-		if wi == 0 {
-			continue
-		}
 		ri := q.r[i*p : i*p+p]
 		a := ri[i]
+		// Where R has no pivot yet (a zero row) and the row's remainder is
+		// rounding noise, the column is a combination of earlier ones (one-hot
+		// buckets beside the intercept): rotating the noise in would move the
+		// rest of the row into this row of R, where the solve cannot use it.
+		if wi == 0 || a == 0 && math.Abs(wi) <= noise {
+			continue
+		}
 		h := math.Sqrt(a*a + wi*wi)
 		c, s := a/h, wi/h
 		ri[i] = h
@@ -99,7 +108,11 @@ func (q *sqrtInfo) remove(x []float64, y float64) bool {
 		s[j] = v / d
 		norm2 += s[j] * s[j]
 	}
-	if !(norm2 < 1) {
+	// 1 − ‖s‖² is the ratio of the downdated to the current determinant
+	// along the leaving row: near 0, the window is about to lose a direction
+	// (a category leaves it) and hyperbolic rotations amplify rounding by
+	// about 1/(1 − ‖s‖²). Refactorising is then the accurate choice.
+	if !(norm2 < 1-downdateMargin) {
 		return false
 	}
 	alpha := math.Sqrt(1 - norm2)
@@ -126,6 +139,10 @@ func (q *sqrtInfo) remove(x []float64, y float64) bool {
 	}
 	return true
 }
+
+// downdateMargin is the smallest 1 − ‖s‖² a downdate accepts; below it the
+// caller refactorises (about 4 digits of headroom; see remove).
+const downdateMargin = 1e-4
 
 // rankTol is the relative size below which a diagonal of R counts as zero:
 // |Rᵢᵢ| ≤ rankTol·‖R[:,i]‖ means column i is, to working precision, a

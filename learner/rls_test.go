@@ -1,11 +1,14 @@
 package learner
 
 import (
+	"bytes"
 	"math"
 	"math/rand/v2"
 	"testing"
 
 	"gonum.org/v1/gonum/mat"
+
+	"tidemark/bench/synth"
 )
 
 // batchRLS solves the closed form DESIGN.md gives for RLS after n events,
@@ -349,4 +352,61 @@ func TestSlidingRLSDependentColumns(t *testing.T) {
 		t.Errorf("%d dependent columns reported, want 1", m.Deficient())
 	}
 	t.Logf("20000 events, %d refactorisations", m.Refactorisations())
+}
+
+// TestSlidingRLSOnScenarioMatchesMinimumNorm: on the demo scenario's room-b
+// (hour and weekday features, and a categorical whose values may all hash
+// into one bucket, a copy of the intercept), sliding-rls predicts what the
+// minimum-norm least-squares fit of the window predicts, computed with
+// gonum's SVD (rank by relative singular value 1e-9).
+func TestSlidingRLSOnScenarioMatchesMinimumNorm(t *testing.T) {
+	var buf bytes.Buffer
+	synth.Write(&buf, synth.Config{Days: 10, Seed: 1})
+	sp, _ := ParseSpec("sliding-rls:window=864")
+	var schema *Schema
+	var m *SlidingRLS
+	var ev Event
+	var us [][]float64
+	var ys []float64
+	n := 0
+	for _, line := range bytes.Split(buf.Bytes(), []byte("\n")) {
+		if DecodeEvent(line, &ev) != nil || ev.Key != "room-b" {
+			continue
+		}
+		if schema == nil {
+			schema = SchemaOf(&ev, FeatureConfig{HashBuckets: 4, TimeFeatures: true})
+			m = New(&sp, schema.Dim()).(*SlidingRLS)
+		}
+		x := make([]float64, schema.Dim())
+		schema.Vector(x, &ev)
+		u := append([]float64{1}, x...)
+		if n >= 864 && n%211 == 0 {
+			got, _ := m.Predict(x)
+			X := mat.NewDense(864, len(u), nil)
+			for i, r := range us[len(us)-864:] {
+				X.SetRow(i, r)
+			}
+			var svd mat.SVD
+			svd.Factorize(X, mat.SVDThin)
+			vals := svd.Values(nil)
+			rank := 0
+			for _, v := range vals {
+				if v > 1e-9*vals[0] {
+					rank++
+				}
+			}
+			var theta mat.Dense
+			svd.SolveTo(&theta, mat.NewDense(864, 1, append([]float64(nil), ys[len(ys)-864:]...)), rank)
+			var want float64
+			for j := range u {
+				want += u[j] * theta.At(j, 0)
+			}
+			if math.Abs(got-want) > slidingTol*math.Max(1, math.Abs(want)) {
+				t.Errorf("event %d: sliding-rls predicts %.12g, minimum-norm least squares (rank %d) %.12g", n, got, rank, want)
+			}
+		}
+		m.Learn(x, ev.Target, ev.Time)
+		us, ys = append(us, u), append(ys, ev.Target)
+		n++
+	}
 }

@@ -29,7 +29,7 @@ type engineFlags struct {
 }
 
 func (f *engineFlags) register(fs *flag.FlagSet) {
-	fs.Var(&f.learners, "learner", "learner spec `KIND[:PARAM=VALUE,...]`, repeatable (knn, rls, sliding-rls, mean)")
+	fs.Var(&f.learners, "learner", "learner spec `KIND[:PARAM=VALUE,...]`, repeatable (knn, rls, sliding-rls, mean);\na value LO..HI or A|B|C sweeps it, e.g. knn:k=1..30 or 'rls:forget=0.99|0.995|1' (quote the |)")
 	fs.BoolVar(&f.timeFeatures, "time-features", false, "add hour of day and day of week (sin/cos) from the event time")
 	fs.IntVar(&f.hashBuckets, "hash-buckets", learner.DefaultHashBuckets, "buckets for hashed categorical features")
 	fs.StringVar(&f.numeric, "numeric", "", "fix the schema's numeric features, comma-separated (default: from the first valid event)")
@@ -45,12 +45,15 @@ func (f *engineFlags) config() (learner.Config, error) {
 	}
 	var errs []error
 	for _, text := range f.learners {
-		s, err := learner.ParseSpec(text)
+		specs, err := learner.ExpandSpec(text)
 		if err != nil {
 			errs = append(errs, err)
 			continue
 		}
-		cfg.Learners = append(cfg.Learners, s)
+		cfg.Learners = append(cfg.Learners, specs...)
+	}
+	if len(cfg.Learners) > learner.MaxSweep {
+		errs = append(errs, fmt.Errorf("%d learners in all, more than the limit of %d", len(cfg.Learners), learner.MaxSweep))
 	}
 	if f.maxKeys < 1 {
 		errs = append(errs, fmt.Errorf("--max-keys %d: want at least 1", f.maxKeys))

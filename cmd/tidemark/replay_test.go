@@ -278,3 +278,25 @@ func TestDemoRuns(t *testing.T) {
 		}
 	}
 }
+
+// TestReplaySweep: a swept spec on the command line expands into one learner
+// per combination, each scoring exactly as the same spec given alone.
+func TestReplaySweep(t *testing.T) {
+	path, _ := writeHistory(t, 1)
+	var sweep, alone replayOutput
+	json.Unmarshal([]byte(mustRun(t, "replay", "--history", path, "--json", "--learner", "knn:k=2..4,window=100|200", "--learner", "rls:forget=0.99|1")), &sweep)
+	json.Unmarshal([]byte(mustRun(t, "replay", "--history", path, "--json", "--learner", "knn:k=3,window=200")), &alone)
+	if len(sweep.Learners) != 8 {
+		t.Fatalf("%d learners, want 3×2 + 2", len(sweep.Learners))
+	}
+	for _, l := range sweep.Learners {
+		if l.Name == "knn:k=3,window=200" {
+			a := alone.Learners[0]
+			if l.Scored != a.Scored || *l.MAE != *a.MAE || *l.RMSE != *a.RMSE || *l.Bias != *a.Bias {
+				t.Errorf("sweep member %+v, alone %+v", l, a)
+			}
+			return
+		}
+	}
+	t.Error("knn:k=3,window=200 is not among the sweep's learners")
+}
