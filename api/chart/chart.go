@@ -265,7 +265,7 @@ func (r *Recorder) Plot(path, units string) error {
 		}
 	}
 	if len(r.alarms) > 0 {
-		top.Title.Text += " (△)"
+		top.Title.Text += " (triangles)"
 	}
 	best := order[0]
 	bottom := plot.New()
