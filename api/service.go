@@ -59,7 +59,12 @@ type Service struct {
 	addr      string
 	listening chan struct{}
 	ckJournal map[uint64]int64 // journal offset each known checkpoint covers
+	handled   atomic.Int64     // events the loop has handled (applied, rejected or passed) since start
 }
+
+// Handled returns how many events the loop has handled since start, read
+// without waiting for a snapshot (benchmarks poll it).
+func (s *Service) Handled() int64 { return s.handled.Load() }
 
 // Addr waits until Run listens and returns the address it listens on.
 func (s *Service) Addr() string {
@@ -67,11 +72,27 @@ func (s *Service) Addr() string {
 	return s.addr
 }
 
-// item is one event handed from a source to the loop.
+// item is one event handed from a source to the loop, decoded by the
+// source's goroutine so that decoding overlaps learning.
 type item struct {
-	gen  int
-	pos  learner.Position
-	data []byte
+	gen    int
+	pos    learner.Position
+	data   []byte         // as received, for the dead-letter file
+	ev     *learner.Event // from eventPool; nil when decoding failed
+	decErr error
+}
+
+// eventPool recycles decoded events between the sources and the loop.
+var eventPool = sync.Pool{New: func() any { return new(learner.Event) }}
+
+func decodeItem(it *item) {
+	ev := eventPool.Get().(*learner.Event)
+	if err := learner.DecodeEvent(it.data, ev); err != nil {
+		eventPool.Put(ev)
+		it.decErr = err
+		return
+	}
+	it.ev = ev
 }
 
 // New opens the data directory, restores the newest good checkpoint and
@@ -308,6 +329,7 @@ func (s *Service) startSource() {
 					return
 				}
 				it := item{gen: gen, pos: learner.Position{Partition: 0, Offset: off}, data: append([]byte(nil), p...)}
+				decodeItem(&it)
 				select {
 				case items <- it:
 				case <-ctx.Done():
@@ -321,8 +343,10 @@ func (s *Service) startSource() {
 		go func() {
 			defer close(done)
 			err := s.kafka.Run(ctx, s.eng.Positions(), func(pos learner.Position, value []byte) bool {
+				it := item{gen: gen, pos: pos, data: value}
+				decodeItem(&it)
 				select {
-				case items <- item{gen: gen, pos: pos, data: value}:
+				case items <- it:
 					return true
 				case <-ctx.Done():
 					return false
@@ -354,7 +378,6 @@ func (s *Service) loop(ctx context.Context) error {
 	s.startSource()
 	tick := time.NewTicker(s.cfg.PublishEvery)
 	defer tick.Stop()
-	var ev learner.Event
 	for {
 		select {
 		case <-ctx.Done():
@@ -363,7 +386,10 @@ func (s *Service) loop(ctx context.Context) error {
 			if it.gen != s.generation {
 				continue // read before a restore moved the position
 			}
-			s.apply(it, &ev)
+			s.apply(it)
+			if it.ev != nil {
+				eventPool.Put(it.ev)
+			}
 			if s.sinceCk >= s.cfg.CheckpointEvery {
 				if err := s.checkpoint(checkpoint.Periodic, 0); err != nil {
 					s.cfg.Log.Error("periodic checkpoint failed; will retry", "error", err)
@@ -387,9 +413,9 @@ func (s *Service) loop(ctx context.Context) error {
 }
 
 // apply runs one event through the engine (or past it, for a skip rule).
-func (s *Service) apply(it item, ev *learner.Event) {
+func (s *Service) apply(it item) {
 	if s.eng.Covers(it.pos) {
-		s.eng.Apply(it.pos, ev) // counts the redelivery; changes nothing else
+		s.eng.Apply(it.pos, &learner.Event{}) // counts the redelivery; changes nothing else
 		return
 	}
 	defer s.checkReady()
@@ -398,12 +424,13 @@ func (s *Service) apply(it item, ev *learner.Event) {
 		s.afterEvent()
 		return
 	}
-	if err := learner.DecodeEvent(it.data, ev); err != nil {
+	if it.decErr != nil {
 		s.eng.Skip(it.pos)
-		s.dead.add(it.pos, err, it.data)
+		s.dead.add(it.pos, it.decErr, it.data)
 		s.afterEvent()
 		return
 	}
+	ev := it.ev
 	if s.skip != nil && s.skip.coversEvent(it.pos, ev) {
 		s.eng.Pass(it.pos)
 		s.afterEvent()
@@ -420,6 +447,7 @@ func (s *Service) apply(it item, ev *learner.Event) {
 
 func (s *Service) afterEvent() {
 	s.sinceCk++
+	s.handled.Add(1)
 	if s.skip != nil && s.skip.done(s.eng) {
 		s.cfg.Log.Info("restore: the skipped range is behind; back to normal intake")
 		s.skip = nil
@@ -586,3 +614,17 @@ func (s *Service) caughtUpKafka() {
 }
 
 func newTextLogger(w io.Writer) *slog.Logger { return slog.New(slog.NewTextHandler(w, nil)) }
+
+// Progress reports the events applied and whether the engine's state covers
+// every given position (benchmarks and tools wait on it).
+func (s *Service) Progress(want []learner.Position) (applied int64, covered bool) {
+	snap := s.snap.Load()
+	if snap == nil {
+		return 0, false
+	}
+	covered = true
+	for _, p := range want {
+		covered = covered && snap.eng.Covers(p)
+	}
+	return snap.applied, covered
+}

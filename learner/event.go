@@ -59,6 +59,17 @@ func DecodeEvent(data []byte, ev *Event) error { return decodeEvent(data, ev, tr
 func DecodeRow(data []byte, ev *Event) error { return decodeEvent(data, ev, false) }
 
 func decodeEvent(data []byte, ev *Event, needTarget bool) error {
+	if len(data) <= MaxEventBytes {
+		if ok, err := decodeFast(data, ev, needTarget); ok {
+			return err
+		}
+	}
+	return decodeSlow(data, ev, needTarget)
+}
+
+// decodeSlow is the reference decoder, built on encoding/json; decodeFast
+// handles the canonical shape and hands anything else to it.
+func decodeSlow(data []byte, ev *Event, needTarget bool) error {
 	if len(data) > MaxEventBytes {
 		return invalid("event is %d bytes, more than the limit of %d", len(data), MaxEventBytes)
 	}

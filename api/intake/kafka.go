@@ -160,8 +160,9 @@ func (k *Kafka) Refresh(ctx context.Context) error {
 }
 
 // Run consumes until ctx is done. covered is what the engine's state covers;
-// deliver is called in offset order within each partition (partitions
-// concurrently) and returns false to stop.
+// deliver is called in offset order within each partition, from one
+// goroutine per partition (so concurrently across partitions), and returns
+// false to stop.
 func (k *Kafka) Run(ctx context.Context, covered []learner.Position, deliver func(learner.Position, []byte) bool) error {
 	k.mu.Lock()
 	for _, p := range covered {
@@ -171,7 +172,6 @@ func (k *Kafka) Run(ctx context.Context, covered []learner.Position, deliver fun
 	}
 	k.mu.Unlock()
 	go k.watchHighWater(ctx)
-	var deliverMu sync.Mutex // one partition at a time into the engine's channel keeps per-partition order simple
 	backoff := 100 * time.Millisecond
 	for ctx.Err() == nil {
 		group, err := kafka.NewConsumerGroup(kafka.ConsumerGroupConfig{ID: k.cfg.Group, Brokers: k.cfg.Brokers,
@@ -180,7 +180,7 @@ func (k *Kafka) Run(ctx context.Context, covered []learner.Position, deliver fun
 		if err != nil {
 			return fmt.Errorf("kafka: %w", err)
 		}
-		err = k.runGroup(ctx, group, &deliverMu, deliver)
+		err = k.runGroup(ctx, group, deliver)
 		group.Close()
 		if ctx.Err() != nil {
 			return nil
@@ -196,7 +196,7 @@ func (k *Kafka) Run(ctx context.Context, covered []learner.Position, deliver fun
 	return nil
 }
 
-func (k *Kafka) runGroup(ctx context.Context, group *kafka.ConsumerGroup, mu *sync.Mutex, deliver func(learner.Position, []byte) bool) error {
+func (k *Kafka) runGroup(ctx context.Context, group *kafka.ConsumerGroup, deliver func(learner.Position, []byte) bool) error {
 	for {
 		gen, err := group.Next(ctx)
 		if err != nil {
@@ -208,12 +208,12 @@ func (k *Kafka) runGroup(ctx context.Context, group *kafka.ConsumerGroup, mu *sy
 		k.mu.Unlock()
 		for _, a := range gen.Assignments[k.cfg.Topic] {
 			part := int32(a.ID)
-			gen.Start(func(gctx context.Context) { k.readPartition(ctx, gctx, part, mu, deliver) })
+			gen.Start(func(gctx context.Context) { k.readPartition(ctx, gctx, part, deliver) })
 		}
 	}
 }
 
-func (k *Kafka) readPartition(ctx, gctx context.Context, part int32, mu *sync.Mutex, deliver func(learner.Position, []byte) bool) {
+func (k *Kafka) readPartition(ctx, gctx context.Context, part int32, deliver func(learner.Position, []byte) bool) {
 	k.mu.Lock()
 	start, ok := k.next[part]
 	k.mu.Unlock()
@@ -244,10 +244,10 @@ func (k *Kafka) readPartition(ctx, gctx context.Context, part int32, mu *sync.Mu
 			}
 			return
 		}
-		mu.Lock()
-		ok := deliver(learner.Position{Partition: part, Offset: m.Offset}, m.Value)
-		mu.Unlock()
-		if !ok {
+		// Partitions are read concurrently; each calls deliver in its own
+		// offset order, which is all the engine needs (a key lives in one
+		// partition, and the state does not depend on the interleaving).
+		if !deliver(learner.Position{Partition: part, Offset: m.Offset}, m.Value) {
 			return
 		}
 		k.mu.Lock()
@@ -292,3 +292,50 @@ func (k *Kafka) Commit(covered []learner.Position) {
 
 // Close releases the client's connections.
 func (k *Kafka) Close() error { return nil }
+
+// Drain reads every partition of the topic up to the given last offsets
+// with plain kafka-go partition readers, concurrently, and returns the
+// messages read and when the first arrived. It is the floor of the
+// kafka-intake benchmark: the cost of fetching the same messages with
+// nothing else done.
+func Drain(ctx context.Context, brokers []string, topic string, last []learner.Position) (int64, time.Time, error) {
+	var wg sync.WaitGroup
+	var mu sync.Mutex
+	var total int64
+	var first time.Time
+	var firstErr error
+	for _, p := range last {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			r := kafka.NewReader(kafka.ReaderConfig{Brokers: brokers, Topic: topic, Partition: int(p.Partition), MinBytes: 1, MaxBytes: 16 << 20, MaxWait: 250 * time.Millisecond})
+			defer r.Close()
+			n := int64(0)
+			for {
+				m, err := r.FetchMessage(ctx)
+				if err != nil {
+					mu.Lock()
+					firstErr = errors.Join(firstErr, err)
+					mu.Unlock()
+					return
+				}
+				if n == 0 {
+					mu.Lock()
+					if first.IsZero() {
+						first = time.Now()
+					}
+					mu.Unlock()
+				}
+				n++
+				if m.Offset >= p.Offset {
+					break
+				}
+			}
+			mu.Lock()
+			total += n
+			mu.Unlock()
+		}()
+	}
+	wg.Wait()
+	return total, first, firstErr
+}

@@ -1,0 +1,529 @@
+// Command bench measures tidemark's hot paths, each beside a floor measured
+// in the same run, and prints the ratios (the machine is shared and noisy:
+// absolute times say little, ratios against a floor taken moments apart say
+// more). Usage: go run ./bench [-json] [-quick].
+//
+// Cases, with their floors and the target ratio (ours/floor at most):
+//
+//	knn-predict         predict, W = 10 000, d = 8, k = 10      a plain loop over the same rows computing every squared distance and the minimum   1.5
+//	knn-learn           insert into a full window (eviction, scale update)                                                                  0 allocs
+//	rls-update          one update, d = 8                        a plain covariance-form rank-one update of the same size                   2.0, 0 allocs
+//	sliding-rls-update  update + downdate, W = 500, d = 8        the rls-update floor                                                        4.0
+//	replay-throughput   per event, replay of synthetic events, one rls learner   decoding the same NDJSON with encoding/json              3.0
+//	http-predict        per request, POST /v1/predict, loopback, keep-alive      the same echo setup answering a constant body            2.0
+//	kafka-intake        per event, in-process broker → intake → engine, one rls  plain kafka-go partition readers draining the topic      1.5
+package main
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"flag"
+	"fmt"
+	"io"
+	"math"
+	"math/rand/v2"
+	"net"
+	"net/http"
+	"os"
+	"runtime"
+	"strconv"
+	"strings"
+	"testing"
+	"text/tabwriter"
+	"time"
+
+	"github.com/segmentio/kafka-go"
+	"github.com/twmb/franz-go/pkg/kfake"
+	"gonum.org/v1/gonum/mat"
+
+	"tidemark/api"
+	"tidemark/api/intake"
+	"tidemark/bench/synth"
+	"tidemark/learner"
+)
+
+type result struct {
+	Case   string  `json:"case"`
+	Ours   float64 `json:"ours_ns"`
+	Floor  float64 `json:"floor_ns"`
+	Ratio  float64 `json:"ratio"`
+	Allocs float64 `json:"allocs_per_op"`
+	Target float64 `json:"target_ratio,omitempty"`
+	Zero   bool    `json:"zero_allocs_required,omitempty"`
+	Pass   bool    `json:"pass"`
+}
+
+var quick bool
+
+func main() {
+	testing.Init()
+	asJSON := flag.Bool("json", false, "print a JSON array of results")
+	flag.BoolVar(&quick, "quick", false, "shorter runs (under a minute)")
+	flag.Parse()
+	bt := "1s"
+	if quick {
+		bt = "150ms"
+	}
+	flag.Set("test.benchtime", bt)
+	results := []result{knnPredict(), knnLearn(), rlsUpdate(), slidingUpdate(), replayThroughput(), httpPredict(), kafkaIntake()}
+	extras := []string{growth(), memory(), onlineVsBatch()}
+	ok := true
+	for i := range results {
+		r := &results[i]
+		if r.Floor > 0 {
+			r.Ratio = r.Ours / r.Floor
+		}
+		r.Pass = (r.Target == 0 || r.Ratio <= r.Target) && (!r.Zero || r.Allocs == 0)
+		ok = ok && r.Pass
+	}
+	if *asJSON {
+		enc := json.NewEncoder(os.Stdout)
+		enc.SetIndent("", "  ")
+		enc.Encode(results)
+	} else {
+		tw := tabwriter.NewWriter(os.Stdout, 0, 0, 2, ' ', tabwriter.AlignRight)
+		fmt.Fprintln(tw, "case\tours ns/op\tfloor ns/op\tratio\ttarget\tallocs/op\t\t")
+		for _, r := range results {
+			floor, ratio, target := "–", "–", "–"
+			if r.Floor > 0 {
+				floor, ratio = fmt.Sprintf("%.0f", r.Floor), fmt.Sprintf("%.2f", r.Ratio)
+			}
+			if r.Target > 0 {
+				target = fmt.Sprintf("≤ %.1f", r.Target)
+			}
+			if r.Zero {
+				target += ", 0 allocs"
+			}
+			verdict := "ok"
+			if !r.Pass {
+				verdict = "MISSED"
+			}
+			fmt.Fprintf(tw, "%s\t%.0f\t%s\t%s\t%s\t%.1f\t%s\t\n", r.Case, r.Ours, floor, ratio, target, r.Allocs, verdict)
+		}
+		tw.Flush()
+		fmt.Printf("\n%s, %d cores, %s\n\n", runtime.Version(), runtime.NumCPU(), runtime.GOARCH)
+		for _, e := range extras {
+			fmt.Println(e)
+		}
+	}
+	if !ok {
+		os.Exit(1)
+	}
+}
+
+func bench(f func(b *testing.B)) (nsPerOp, allocsPerOp float64) {
+	r := testing.Benchmark(func(b *testing.B) { b.ReportAllocs(); f(b) })
+	if r.N == 0 {
+		return math.NaN(), math.NaN()
+	}
+	return float64(r.T.Nanoseconds()) / float64(r.N), float64(r.MemAllocs) / float64(r.N)
+}
+
+func randRows(n, d int, seed uint64) [][]float64 {
+	rng := rand.New(rand.NewPCG(seed, 1))
+	out := make([][]float64, n)
+	for i := range out {
+		out[i] = make([]float64, d)
+		for j := range out[i] {
+			out[i][j] = rng.NormFloat64()
+		}
+	}
+	return out
+}
+
+func mustLearner(spec string, d int) learner.Learner {
+	s, err := learner.ParseSpec(spec)
+	if err != nil {
+		panic(err)
+	}
+	return learner.New(&s, d)
+}
+
+// fullKNN returns a k-NN learner with a full window of w rows, the same rows
+// flat (the floor's copy) and queries.
+func fullKNN(w, d int) (learner.Learner, []float64, [][]float64) {
+	m := mustLearner("knn:k=10,window="+strconv.Itoa(w), d)
+	rows := randRows(w+256, d, 1)
+	flat := make([]float64, 0, w*d)
+	for _, r := range rows[:w] {
+		m.Learn(r, r[0], 0)
+		flat = append(flat, r...)
+	}
+	return m, flat, rows[w:]
+}
+
+func knnPredictNs(w, d int) (ours, floor, allocs float64) {
+	m, flat, qs := fullKNN(w, d)
+	ours, allocs = bench(func(b *testing.B) {
+		for i := 0; i < b.N; i++ {
+			m.Predict(qs[i%len(qs)])
+		}
+	})
+	var sink float64
+	floor, _ = bench(func(b *testing.B) {
+		for i := 0; i < b.N; i++ {
+			q := qs[i%len(qs)]
+			best := math.Inf(1)
+			for s := 0; s+d <= len(flat); s += d {
+				row := flat[s : s+d : s+d]
+				var sum float64
+				for j := range row {
+					diff := row[j] - q[j]
+					sum += diff * diff
+				}
+				if sum < best {
+					best = sum
+				}
+			}
+			sink += best
+		}
+	})
+	_ = sink
+	return ours, floor, allocs
+}
+
+func knnPredict() result {
+	ours, floor, allocs := knnPredictNs(10_000, 8)
+	return result{Case: "knn-predict", Ours: ours, Floor: floor, Allocs: allocs, Target: 1.5}
+}
+
+func knnLearn() result {
+	m, _, qs := fullKNN(10_000, 8)
+	ours, allocs := bench(func(b *testing.B) {
+		for i := 0; i < b.N; i++ {
+			m.Learn(qs[i%len(qs)], 1, 0)
+		}
+	})
+	return result{Case: "knn-learn", Ours: ours, Allocs: allocs, Zero: true}
+}
+
+// covarianceFloor is the textbook RLS update: k = Pu/(λ + uᵀPu),
+// θ += k·e, P = (P − k(Pu)ᵀ)/λ, for p = d + 1.
+func covarianceFloor(d int) float64 {
+	p := d + 1
+	P := make([]float64, p*p)
+	for i := 0; i < p; i++ {
+		P[i*p+i] = 1e6
+	}
+	theta, pu, u := make([]float64, p), make([]float64, p), make([]float64, p)
+	rows := randRows(1024, d, 2)
+	const lambda = 0.999
+	ns, _ := bench(func(b *testing.B) {
+		for i := 0; i < b.N; i++ {
+			x := rows[i%len(rows)]
+			u[0] = 1
+			copy(u[1:], x)
+			var den, pred float64
+			for r := 0; r < p; r++ {
+				var s float64
+				for c := 0; c < p; c++ {
+					s += P[r*p+c] * u[c]
+				}
+				pu[r] = s
+				den += u[r] * s
+				pred += u[r] * theta[r]
+			}
+			den += lambda
+			e := x[0] - pred
+			for r := 0; r < p; r++ {
+				theta[r] += pu[r] / den * e
+				for c := 0; c < p; c++ {
+					P[r*p+c] = (P[r*p+c] - pu[r]*pu[c]/den) / lambda
+				}
+			}
+		}
+	})
+	return ns
+}
+
+func learnNs(spec string, d int) (float64, float64) {
+	m := mustLearner(spec, d)
+	rows := randRows(1024, d, 3)
+	for i := 0; i < 2000; i++ {
+		m.Learn(rows[i%len(rows)], rows[i%len(rows)][0], 0)
+	}
+	return bench(func(b *testing.B) {
+		for i := 0; i < b.N; i++ {
+			x := rows[i%len(rows)]
+			m.Learn(x, x[0], 0)
+		}
+	})
+}
+
+func rlsUpdate() result {
+	ours, allocs := learnNs("rls:forget=0.999", 8)
+	return result{Case: "rls-update", Ours: ours, Floor: covarianceFloor(8), Allocs: allocs, Target: 2.0, Zero: true}
+}
+
+func slidingUpdate() result {
+	ours, allocs := learnNs("sliding-rls:window=500", 8)
+	return result{Case: "sliding-rls-update", Ours: ours, Floor: covarianceFloor(8), Allocs: allocs, Target: 4.0}
+}
+
+// scenarioLines returns about n events of the demo scenario as NDJSON.
+func scenarioLines(n int) []byte {
+	var buf bytes.Buffer
+	synth.Write(&buf, synth.Config{Days: n/864 + 1, Seed: 5})
+	return buf.Bytes()
+}
+
+func replayThroughput() result {
+	n := 200_000
+	if quick {
+		n = 50_000
+	}
+	data := scenarioLines(n)
+	spec, _ := learner.ParseSpec("rls:forget=0.995")
+	var ours, allocs float64
+	for rep := 0; rep < 2; rep++ { // the better of two runs, as for the floor
+		eng, _ := learner.NewEngine(learner.Config{Learners: []learner.Spec{spec}, Features: learner.FeatureConfig{HashBuckets: 4}})
+		var ms0, ms1 runtime.MemStats
+		runtime.ReadMemStats(&ms0)
+		t0 := time.Now()
+		api.Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(data)), eng, api.ReplayConfig{})
+		el := time.Since(t0)
+		runtime.ReadMemStats(&ms1)
+		ns := float64(el.Nanoseconds()) / float64(eng.Applied())
+		if rep == 0 || ns < ours {
+			ours, allocs = ns, float64(ms1.Mallocs-ms0.Mallocs)/float64(eng.Applied())
+		}
+	}
+	lines := bytes.Split(bytes.TrimSpace(data), []byte("\n"))
+	type wire struct {
+		Time     string         `json:"time"`
+		Key      string         `json:"key"`
+		Features map[string]any `json:"features"`
+		Target   float64        `json:"target"`
+	}
+	var floor float64
+	for rep := 0; rep < 2; rep++ {
+		t0 := time.Now()
+		for _, l := range lines {
+			var w wire
+			json.Unmarshal(l, &w)
+		}
+		ns := float64(time.Since(t0).Nanoseconds()) / float64(len(lines))
+		if rep == 0 || ns < floor {
+			floor = ns
+		}
+	}
+	return result{Case: "replay-throughput", Ours: ours, Floor: floor, Allocs: allocs, Target: 3.0}
+}
+
+func httpPredict() result {
+	dir, _ := os.MkdirTemp("", "tidemark-bench-")
+	defer os.RemoveAll(dir)
+	spec, _ := learner.ParseSpec("rls:forget=0.995")
+	cfg := api.Config{Listen: "127.0.0.1:0", DataDir: dir, MinScored: -1,
+		Engine: learner.Config{Learners: []learner.Spec{spec}, Features: learner.FeatureConfig{HashBuckets: 4}}}
+	svc, err := api.New(cfg)
+	if err != nil {
+		panic(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- svc.Run(ctx) }()
+	base := "http://" + svc.Addr()
+	client := &http.Client{Transport: &http.Transport{MaxIdleConnsPerHost: 4}}
+	resp, err := client.Post(base+"/v1/events", "application/x-ndjson", bytes.NewReader(scenarioLines(2000)))
+	if err != nil {
+		panic(err)
+	}
+	resp.Body.Close()
+	time.Sleep(500 * time.Millisecond) // the snapshot publishes
+	row := []byte(`{"key":"room-b","features":{"outdoor_c":14.2,"door_min":2,"shift":"day"}}`)
+	call := func(url string) func(b *testing.B) {
+		return func(b *testing.B) {
+			for i := 0; i < b.N; i++ {
+				resp, err := client.Post(url, "application/json", bytes.NewReader(row))
+				if err != nil {
+					b.Fatal(err)
+				}
+				io.Copy(io.Discard, resp.Body)
+				resp.Body.Close()
+				if resp.StatusCode != 200 {
+					b.Fatalf("predict: %s", resp.Status)
+				}
+			}
+		}
+	}
+	ours, allocs := bench(call(base + "/v1/predict"))
+	cancel()
+	<-done
+	ln, _ := net.Listen("tcp", "127.0.0.1:0")
+	srv := &http.Server{Handler: api.FloorHandler()}
+	go srv.Serve(ln)
+	floor, _ := bench(call("http://" + ln.Addr().String() + "/v1/predict"))
+	srv.Close()
+	return result{Case: "http-predict", Ours: ours, Floor: floor, Allocs: allocs, Target: 2.0}
+}
+
+func kafkaIntake() result {
+	n := 200_000
+	if quick {
+		n = 60_000
+	}
+	c, err := kfake.NewCluster(kfake.NumBrokers(1), kfake.SeedTopics(3, "events"))
+	if err != nil {
+		panic(err)
+	}
+	defer c.Close()
+	addr := c.ListenAddrs()[0]
+	w := &kafka.Writer{Addr: kafka.TCP(addr), Topic: "events", Balancer: &kafka.RoundRobin{}, BatchSize: 1000, BatchTimeout: 5 * time.Millisecond}
+	lines := bytes.Split(bytes.TrimSpace(scenarioLines(n)), []byte("\n"))
+	var msgs []kafka.Message
+	for _, l := range lines {
+		msgs = append(msgs, kafka.Message{Value: l})
+	}
+	if err := w.WriteMessages(context.Background(), msgs...); err != nil {
+		panic(err)
+	}
+	w.Close()
+	k, _ := intake.NewKafka(intake.KafkaConfig{Brokers: []string{addr}, Topic: "events"})
+	k.Refresh(context.Background())
+	last := k.HighWater()
+
+	got, firstAt, err := intake.Drain(context.Background(), []string{addr}, "events", last)
+	if err != nil {
+		panic(err)
+	}
+	floor := float64(time.Since(firstAt).Nanoseconds()) / float64(got-1) // from the first message, as for ours
+
+	dir, _ := os.MkdirTemp("", "tidemark-bench-")
+	defer os.RemoveAll(dir)
+	spec, _ := learner.ParseSpec("rls:forget=0.995")
+	cfg := api.Config{Listen: "127.0.0.1:0", DataDir: dir, CheckpointEvery: 1 << 40,
+		Engine: learner.Config{Learners: []learner.Spec{spec}, Features: learner.FeatureConfig{HashBuckets: 4}},
+		Kafka:  &intake.KafkaConfig{Brokers: []string{addr}, Topic: "events", Group: "bench"}}
+	svc, err := api.New(cfg)
+	if err != nil {
+		panic(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- svc.Run(ctx) }()
+	// Time from the first handled event to the last: joining the group is
+	// a one-off cost, not a per-event one.
+	total := int64(len(lines))
+	var first time.Time
+	var firstN int64
+	for {
+		n := svc.Handled()
+		if n > 0 && first.IsZero() {
+			first, firstN = time.Now(), n
+		}
+		if n >= total {
+			break
+		}
+		time.Sleep(100 * time.Microsecond)
+	}
+	ours := float64(time.Since(first).Nanoseconds()) / float64(total-firstN)
+	cancel()
+	<-done
+	return result{Case: "kafka-intake", Ours: ours, Floor: floor, Target: 1.5}
+}
+
+// slope is the least-squares slope of log y on log x.
+func slope(xs, ys []float64) float64 {
+	var mx, my float64
+	for i := range xs {
+		mx += math.Log(xs[i])
+		my += math.Log(ys[i])
+	}
+	mx, my = mx/float64(len(xs)), my/float64(len(xs))
+	var num, den float64
+	for i := range xs {
+		dx := math.Log(xs[i]) - mx
+		num += dx * (math.Log(ys[i]) - my)
+		den += dx * dx
+	}
+	return num / den
+}
+
+func growth() string {
+	var b strings.Builder
+	fmt.Fprintln(&b, "growth: knn-predict ns/op (k = 10)")
+	ws := []int{1000, 10_000, 100_000}
+	ds := []int{2, 8, 32}
+	if quick {
+		ws = []int{1000, 10_000, 50_000}
+	}
+	grid := map[[2]int]float64{}
+	fmt.Fprintf(&b, "  %8s", "W \\ d")
+	for _, d := range ds {
+		fmt.Fprintf(&b, " %10d", d)
+	}
+	fmt.Fprintln(&b)
+	for _, w := range ws {
+		fmt.Fprintf(&b, "  %8d", w)
+		for _, d := range ds {
+			ns, _, _ := knnPredictNs(w, d)
+			grid[[2]int{w, d}] = ns
+			fmt.Fprintf(&b, " %10.0f", ns)
+		}
+		fmt.Fprintln(&b)
+	}
+	var xw, yw, xd, yd []float64
+	for _, w := range ws {
+		xw, yw = append(xw, float64(w)), append(yw, grid[[2]int{w, 8}])
+	}
+	for _, d := range ds {
+		xd, yd = append(xd, float64(d)), append(yd, grid[[2]int{10_000, d}])
+	}
+	fmt.Fprintf(&b, "  fitted exponent: %.2f in W (d = 8), %.2f in d (W = 10 000)\n", slope(xw, yw), slope(xd, yd))
+	fmt.Fprintln(&b, "growth: rls-update ns/op")
+	var xp, yp []float64
+	for _, d := range ds {
+		ns, _ := learnNs("rls:forget=0.999", d)
+		fmt.Fprintf(&b, "  d = %2d (p = %2d): %8.0f\n", d, d+1, ns)
+		xp, yp = append(xp, float64(d+1)), append(yp, ns)
+	}
+	fmt.Fprintf(&b, "  fitted exponent: %.2f in p = d + 1\n", slope(xp, yp))
+	return b.String()
+}
+
+func memory() string {
+	const w, d = 10_000, 8
+	runtime.GC()
+	var m0, m1 runtime.MemStats
+	runtime.ReadMemStats(&m0)
+	rows := randRows(1, d, 9)
+	m := mustLearner("knn:k=10,window="+strconv.Itoa(w), d)
+	for i := 0; i < w; i++ {
+		m.Learn(rows[0], 1, int64(i))
+	}
+	runtime.GC()
+	runtime.ReadMemStats(&m1)
+	held := float64(m1.HeapAlloc-m0.HeapAlloc) / w
+	runtime.KeepAlive(m)
+	return fmt.Sprintf("memory: knn holds %.1f bytes per window event (W = %d, d = %d) against the raw d·8 = %d: %.2f× (target ≤ 1.5×)\n",
+		held, w, d, d*8, held/float64(d*8))
+}
+
+// onlineVsBatch compares rls per event with refitting ordinary least squares
+// (gonum) over a week's window once per simulated hour (12 events at five
+// minutes), per event.
+func onlineVsBatch() string {
+	const d, window, perHour = 8, 2016, 12
+	rows := randRows(window+1024, d, 11)
+	online, _ := learnNs("rls:forget=0.995", d)
+	X := mat.NewDense(window, d+1, nil)
+	y := mat.NewVecDense(window, nil)
+	for i := 0; i < window; i++ {
+		X.Set(i, 0, 1)
+		for j := 0; j < d; j++ {
+			X.Set(i, j+1, rows[i][j])
+		}
+		y.SetVec(i, rows[i][0])
+	}
+	refit, _ := bench(func(b *testing.B) {
+		for i := 0; i < b.N; i++ {
+			var theta mat.VecDense
+			theta.SolveVec(X, y)
+		}
+	})
+	batch := refit / perHour
+	return fmt.Sprintf("online against batch: rls %.0f ns per event; refitting OLS (gonum, W = %d, p = %d) once an hour costs %.0f ns per event (%.0f per refit): %.0f× the online cost, and its model is up to an hour old\n",
+		online, window, d+1, batch, refit, batch/online)
+}
