@@ -150,6 +150,12 @@ func TestKafkaServiceAgreesWithReplay(t *testing.T) {
 		t.Fatal(err)
 	}
 	produce(t, addr, lines[1000:])
+	bad := kafka.Message{Key: []byte("room-a"), Value: []byte(`{"key":"room-a","features":{"outdoor_c":"warm"},"target":`)}
+	w := &kafka.Writer{Addr: kafka.TCP(addr), Topic: topic, Balancer: roomBalancer{}}
+	if err := w.WriteMessages(context.Background(), bad); err != nil {
+		t.Fatal(err)
+	}
+	w.Close()
 	r = start(t, kafkaConfig(t, addr, dir))
 	last := lastOffsets(t, addr)
 	if len(last) != 3 {
@@ -157,9 +163,19 @@ func TestKafkaServiceAgreesWithReplay(t *testing.T) {
 	}
 	got := r.waitPositions(t, last)
 	want := replayReport(t, engineConfig(t, serviceSpecs...), partitionOrder(t, addr, last))
-	if got.Events != int64(len(lines)) || got.Duplicates != 0 {
-		t.Errorf("applied %d (duplicates %d), want %d and 0", got.Events, got.Duplicates, len(lines))
+	want.Rejected = 1 // the reference replays the same lines, the malformed one among them
+	if got.Events != int64(len(lines)) || got.Duplicates != 0 || got.Rejected != 1 {
+		t.Errorf("applied %d (duplicates %d, rejected %d), want %d, 0 and 1", got.Events, got.Duplicates, got.Rejected, len(lines))
 	}
+	// The malformed message is in the dead-letter file with its position
+	// (partition 0, room-a's, at its last offset) and reason; it stopped nothing.
+	r.stop()
+	dead, _ := os.ReadFile(filepath.Join(dir, "deadletters.ndjson"))
+	if !strings.Contains(string(dead), fmt.Sprintf(`"position":{"partition":0,"offset":%d}`, last[0].Offset)) || !strings.Contains(string(dead), "not valid JSON") {
+		t.Errorf("dead letters: %s", dead)
+	}
+	r = start(t, kafkaConfig(t, addr, dir))
+	r.waitPositions(t, last)
 	sameJSON(t, "Kafka service and replay reports", withoutPositions(got), withoutPositions(want))
 
 	row := `{"key":"room-c","time":"2026-03-02T23:00:00Z","features":{"outdoor_c":6.5,"door_min":0,"shift":"night"}}`
