@@ -5,9 +5,11 @@ import (
 	"fmt"
 	"log/slog"
 	"net"
+	"os"
 	"time"
 
 	"tidemark/api/intake"
+	"tidemark/checkpoint"
 	"tidemark/learner"
 )
 
@@ -63,6 +65,10 @@ type Config struct {
 	Log *slog.Logger
 	// Journal segment size; zero for the intake default.
 	JournalSegmentBytes int64
+	// JournalFile and CheckpointFS are the file-system seams (nil: the OS);
+	// tests inject failures such as a full disk through them.
+	JournalFile  func(*os.File) intake.File
+	CheckpointFS checkpoint.FS
 }
 
 // Validate reports every problem with c. It changes nothing.

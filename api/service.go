@@ -111,7 +111,7 @@ func New(cfg Config) (*Service, error) {
 	}
 	s := &Service{cfg: cfg, eng: eng, cmds: make(chan command), curves: newCurves(cfg.Engine.Learners, cfg.CurvePoints),
 		listening: make(chan struct{}), ckJournal: map[uint64]int64{}}
-	s.store, err = checkpoint.OpenStore(checkpoint.StoreConfig{Dir: filepath.Join(cfg.DataDir, "checkpoints"), Retain: cfg.Retain})
+	s.store, err = checkpoint.OpenStore(checkpoint.StoreConfig{Dir: filepath.Join(cfg.DataDir, "checkpoints"), Retain: cfg.Retain, FS: cfg.CheckpointFS})
 	if err != nil {
 		return nil, err
 	}
@@ -137,7 +137,7 @@ func New(cfg Config) (*Service, error) {
 		cancel()
 	} else {
 		s.journal, err = intake.OpenJournal(intake.JournalConfig{Dir: filepath.Join(cfg.DataDir, "journal"),
-			SegmentBytes: cfg.JournalSegmentBytes, Log: logWriter{cfg.Log}})
+			SegmentBytes: cfg.JournalSegmentBytes, Log: logWriter{cfg.Log}, File: cfg.JournalFile})
 		if err != nil {
 			s.close()
 			return nil, err

@@ -51,9 +51,10 @@ type Journal struct {
 	dir          string
 	segmentBytes int64
 
+	wrap     func(*os.File) File
 	mu       sync.Mutex
 	cond     *sync.Cond
-	f        *os.File
+	f        File
 	segStart int64 // first offset of the open segment
 	size     int64 // bytes in the open segment
 	next     int64 // offset the next record gets
@@ -71,6 +72,18 @@ type JournalConfig struct {
 	SegmentBytes int64  // roll to a new segment past this size. Default: DefaultSegmentBytes.
 	// Log receives a line when a torn tail is truncated on open. Nil discards it.
 	Log io.Writer
+	// File, when set, wraps each segment file opened for writing: the
+	// file-system seam through which tests inject failures (a full disk).
+	File func(*os.File) File
+}
+
+// File is what the journal writes a segment through.
+type File interface {
+	io.Writer
+	Sync() error
+	Truncate(size int64) error
+	Seek(offset int64, whence int) (int64, error)
+	Close() error
 }
 
 type segment struct {
@@ -118,7 +131,7 @@ func OpenJournal(cfg JournalConfig) (*Journal, error) {
 	if err := os.MkdirAll(cfg.Dir, 0o700); err != nil {
 		return nil, fmt.Errorf("intake: journal: %w", err)
 	}
-	j := &Journal{dir: cfg.Dir, segmentBytes: cfg.SegmentBytes, next: 1, notify: make(chan struct{})}
+	j := &Journal{dir: cfg.Dir, segmentBytes: cfg.SegmentBytes, next: 1, notify: make(chan struct{}), wrap: cfg.File}
 	j.cond = sync.NewCond(&j.mu)
 	segs, err := j.segments()
 	if err != nil {
@@ -158,7 +171,7 @@ func OpenJournal(cfg JournalConfig) (*Journal, error) {
 		f.Close()
 		return nil, fmt.Errorf("intake: journal: %w", err)
 	}
-	j.f, j.segStart, j.size = f, last.start, good
+	j.f, j.segStart, j.size = j.wrapFile(f), last.start, good
 	if lastOff > 0 {
 		j.next = lastOff + 1
 	} else {
@@ -234,8 +247,15 @@ func (j *Journal) createSegment(start int64) error {
 		f.Close()
 		return fmt.Errorf("intake: journal: %w", err)
 	}
-	j.f, j.segStart, j.size = f, start, 0
+	j.f, j.segStart, j.size = j.wrapFile(f), start, 0
 	return nil
+}
+
+func (j *Journal) wrapFile(f *os.File) File {
+	if j.wrap != nil {
+		return j.wrap(f)
+	}
+	return f
 }
 
 func syncDir(dir string) error {

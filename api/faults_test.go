@@ -1,0 +1,126 @@
+package api
+
+import (
+	"os"
+	"strings"
+	"sync/atomic"
+	"syscall"
+	"testing"
+
+	"tidemark/api/intake"
+	"tidemark/checkpoint"
+)
+
+// diskBudget fails writes once its budget of bytes is spent, with ENOSPC, as
+// a full disk does; a write that does not fit writes what fits first.
+type diskBudget struct{ left atomic.Int64 }
+
+func (d *diskBudget) take(n int) (int, error) {
+	if d.left.Add(-int64(n)) >= 0 {
+		return n, nil
+	}
+	fit := int(d.left.Add(int64(n)))
+	if fit < 0 {
+		fit = 0
+	}
+	d.left.Store(0)
+	return fit, &os.PathError{Op: "write", Path: "disk", Err: syscall.ENOSPC}
+}
+
+type budgetFile struct {
+	*os.File
+	d *diskBudget
+}
+
+func (f budgetFile) Write(p []byte) (int, error) {
+	n, err := f.d.take(len(p))
+	if n > 0 {
+		if _, werr := f.File.Write(p[:n]); werr != nil {
+			return 0, werr
+		}
+	}
+	return n, err
+}
+
+type budgetFS struct {
+	checkpoint.OSFS
+	d *diskBudget
+}
+
+type budgetCkFile struct {
+	checkpoint.File
+	d *diskBudget
+}
+
+func (f budgetCkFile) Write(p []byte) (int, error) {
+	n, err := f.d.take(len(p))
+	if n > 0 {
+		f.File.Write(p[:n])
+	}
+	return n, err
+}
+
+func (b budgetFS) Create(path string) (checkpoint.File, error) {
+	f, err := b.OSFS.Create(path)
+	if err != nil {
+		return nil, err
+	}
+	return budgetCkFile{f, b.d}, nil
+}
+
+// TestFullDisk: when the disk fills, POST /v1/events and POST
+// /v1/checkpoints fail with a clear message, what was stored before stays
+// intact, predictions are still served, and both recover once space returns.
+func TestFullDisk(t *testing.T) {
+	disk := &diskBudget{}
+	disk.left.Store(1 << 40)
+	cfg := testConfig(t, t.TempDir())
+	cfg.CheckpointEvery = 1 << 40
+	cfg.JournalFile = func(f *os.File) intake.File { return budgetFile{f, disk} }
+	cfg.CheckpointFS = budgetFS{d: disk}
+	r := start(t, cfg)
+	lines := scenario(t, 1)
+	r.post(t, "", lines[:300])
+	r.waitCovered(t, 300)
+	if code, b := r.call(t, "POST", "/v1/checkpoints", "", nil); code != 201 {
+		t.Fatalf("checkpoint: %d %s", code, b)
+	}
+
+	disk.left.Store(100) // the disk is all but full
+	code, b := r.call(t, "POST", "/v1/events", "", []byte(strings.Join([]string{string(lines[300]), string(lines[301])}, "\n")))
+	if code != 503 || !strings.Contains(string(b), "could not be stored durably") {
+		t.Errorf("POST /v1/events on a full disk: %d %s, want 503 saying so", code, b)
+	}
+	disk.left.Store(100)
+	if code, b := r.call(t, "POST", "/v1/checkpoints", "", nil); code != 503 || !strings.Contains(string(b), "earlier ones are intact") {
+		t.Errorf("POST /v1/checkpoints on a full disk: %d %s, want 503", code, b)
+	}
+	row := []byte(`{"key":"room-a","time":"2026-03-01T12:00:00Z","features":{"outdoor_c":10,"door_min":1,"shift":"day"}}`)
+	if code, b := r.call(t, "POST", "/v1/predict", "", row); code != 200 {
+		t.Errorf("predict on a full disk: %d %s, want answers as before", code, b)
+	}
+	_, m := r.call(t, "GET", "/metrics", "", nil)
+	for _, want := range []string{"tidemark_journal_write_failures_total 1", "tidemark_checkpoint_failures_total 1"} {
+		if !strings.Contains(string(m), want) {
+			t.Errorf("/metrics lacks %q", want)
+		}
+	}
+
+	disk.left.Store(1 << 40) // space is back
+	r.post(t, "", lines[300:400])
+	rep := r.waitCovered(t, 400)
+	if rep.Events != 400 {
+		t.Errorf("after the disk recovered: %d events applied, want 400 (nothing lost, the failed request not applied)", rep.Events)
+	}
+	if code, _ := r.call(t, "POST", "/v1/checkpoints", "", nil); code != 201 {
+		t.Errorf("checkpoint after the disk recovered: %d", code)
+	}
+	if err := r.stop(); err != nil {
+		t.Fatal(err)
+	}
+	// Everything stored survives a restart intact.
+	r2 := start(t, cfg)
+	if got := r2.report(t); got.Events != 400 {
+		t.Errorf("after restart: %d events, want 400", got.Events)
+	}
+}
