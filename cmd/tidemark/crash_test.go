@@ -84,7 +84,7 @@ func startServe(t *testing.T, bin, dir, addr string, extra ...string) *proc {
 	}
 }
 
-func (p *proc) kill()  { p.cmd.Process.Signal(syscall.SIGKILL); p.cmd.Wait() }
+func (p *proc) kill() { p.cmd.Process.Signal(syscall.SIGKILL); p.cmd.Wait() }
 func (p *proc) term(t *testing.T) {
 	p.cmd.Process.Signal(syscall.SIGTERM)
 	if err := p.cmd.Wait(); err != nil {
