@@ -65,6 +65,9 @@ type Config struct {
 	Log *slog.Logger
 	// Journal segment size; zero for the intake default.
 	JournalSegmentBytes int64
+	// TLSCert and TLSKey, both or neither, serve HTTPS with that certificate
+	// and key (PEM files). Default: plain HTTP.
+	TLSCert, TLSKey string
 	// JournalFile and CheckpointFS are the file-system seams (nil: the OS);
 	// tests inject failures such as a full disk through them.
 	JournalFile  func(*os.File) intake.File
@@ -101,6 +104,16 @@ func (c *Config) Validate() error {
 		}
 		if !found {
 			errs = append(errs, fmt.Errorf("default learner %q: not among the configured learners (%s)", c.DefaultLearner, c.Engine.Names()))
+		}
+	}
+	if (c.TLSCert == "") != (c.TLSKey == "") {
+		errs = append(errs, errors.New("TLS: give both --tls-cert and --tls-key, or neither"))
+	}
+	for _, f := range []string{c.TLSCert, c.TLSKey} {
+		if f != "" {
+			if _, err := os.Stat(f); err != nil {
+				errs = append(errs, fmt.Errorf("TLS: %v", err))
+			}
 		}
 	}
 	if c.Kafka != nil {

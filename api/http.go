@@ -8,6 +8,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"log/slog"
 	"math"
 	"net/http"
 	"strconv"
@@ -52,7 +53,8 @@ func (s *Service) newHTTP() *http.Server {
 	e.GET("/", s.handleDashboard)
 	e.GET("/v1/openapi.json", func(c echo.Context) error { return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, openapiDoc) })
 	return &http.Server{Addr: s.cfg.Listen, Handler: e, ReadHeaderTimeout: readHeaderTimeout,
-		ReadTimeout: readTimeout, WriteTimeout: writeTimeout, IdleTimeout: idleTimeout}
+		ReadTimeout: readTimeout, WriteTimeout: writeTimeout, IdleTimeout: idleTimeout,
+		ErrorLog: slog.NewLogLogger(s.cfg.Log.Handler(), slog.LevelWarn)}
 }
 
 // errorHandler renders every error as {"message": ...}; the cause of a 5xx

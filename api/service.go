@@ -255,8 +255,15 @@ func (s *Service) Run(ctx context.Context) error {
 	close(s.listening)
 	srvErr := make(chan error, 1)
 	go func() {
-		s.cfg.Log.Info("listening", "address", s.addr)
-		if err := s.http.Serve(ln); !errors.Is(err, http.ErrServerClosed) {
+		var err error
+		if s.cfg.TLSCert != "" {
+			s.cfg.Log.Info("listening (HTTPS)", "address", s.addr)
+			err = s.http.ServeTLS(ln, s.cfg.TLSCert, s.cfg.TLSKey)
+		} else {
+			s.cfg.Log.Info("listening", "address", s.addr)
+			err = s.http.Serve(ln)
+		}
+		if !errors.Is(err, http.ErrServerClosed) {
 			srvErr <- err
 		}
 		close(srvErr)

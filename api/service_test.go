@@ -521,3 +521,7 @@ func TestDemoSmoke(t *testing.T) {
 		}
 	}
 }
+
+func newCancel() (context.Context, context.CancelFunc) {
+	return context.WithCancel(context.Background())
+}

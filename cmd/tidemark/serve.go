@@ -62,7 +62,11 @@ func runServe(args []string, stdout, stderr io.Writer) error {
 	}
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 	defer stop()
-	fmt.Fprintf(stdout, "tidemark serving on http://%s (learners: %s); Ctrl-C stops with a final checkpoint\n", cfg.Listen, cfg.Engine.Names())
+	scheme := "http"
+	if cfg.TLSCert != "" {
+		scheme = "https"
+	}
+	fmt.Fprintf(stdout, "tidemark serving on %s://%s (learners: %s); Ctrl-C stops with a final checkpoint\n", scheme, cfg.Listen, cfg.Engine.Names())
 	return svc.Run(ctx)
 }
 
@@ -81,6 +85,8 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	topic := fs.String("kafka-topic", "", "Kafka topic of events")
 	group := fs.String("kafka-group", "tidemark", "Kafka consumer group")
 	logLevel := fs.String("log-level", "info", "log level: debug, info, warn, error")
+	tlsCert := fs.String("tls-cert", "", "serve HTTPS with this certificate `FILE` (PEM), with --tls-key")
+	tlsKey := fs.String("tls-key", "", "the certificate's private key `FILE` (PEM)")
 	var ef engineFlags
 	ef.register(fs)
 	pos, err := parse(fs, args)
@@ -122,6 +128,7 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	if cfg.Token == "" {
 		cfg.Token = os.Getenv(TokenEnv)
 	}
+	cfg.TLSCert, cfg.TLSKey = *tlsCert, *tlsKey
 	cfg.CheckpointEvery = *every
 	if !set["checkpoint-every"] && fc.CheckpointEvery != 0 {
 		cfg.CheckpointEvery = fc.CheckpointEvery
