@@ -2,6 +2,7 @@ package learner
 
 import (
 	"bytes"
+	"os"
 	"reflect"
 	"testing"
 
@@ -17,6 +18,11 @@ func FuzzDecodeEvent(f *testing.F) {
 	synth.Write(&buf, synth.Config{Days: 1, Seed: 1})
 	for i, l := range bytes.Split(buf.Bytes(), []byte("\n")) {
 		if i%97 == 0 {
+			f.Add(l)
+		}
+	}
+	if hostile, err := os.ReadFile("../testdata/hostile-events.ndjson"); err == nil {
+		for _, l := range bytes.Split(hostile, []byte("\n")) {
 			f.Add(l)
 		}
 	}
