@@ -373,6 +373,15 @@ func (s *Service) handleRestore(c echo.Context) error {
 }
 
 func (s *Service) handleReady(c echo.Context) error {
+	if s.kafka != nil {
+		if ok, since := s.kafka.Connected(); !ok {
+			msg := "the Kafka brokers are unreachable; reconnecting with backoff"
+			if !since.IsZero() {
+				msg = fmt.Sprintf("the Kafka brokers have been unreachable since %s; reconnecting with backoff", since.UTC().Format(time.RFC3339))
+			}
+			return c.JSON(http.StatusServiceUnavailable, map[string]any{"ready": false, "message": msg})
+		}
+	}
 	if !s.ready.Load() {
 		return c.JSON(http.StatusServiceUnavailable, map[string]any{"ready": false, "message": "restoring or catching up with the stream"})
 	}

@@ -57,11 +57,12 @@ var (
 	descCkBytes  = prometheus.NewDesc("tidemark_checkpoint_bytes", "Size of that checkpoint file.", nil, nil)
 	descLag      = prometheus.NewDesc("tidemark_intake_lag_events", "Events in the source not yet applied, per partition.", []string{"partition"}, nil)
 	descReady    = prometheus.NewDesc("tidemark_ready", "1 once restored and caught up with the stream.", nil, nil)
+	descConn     = prometheus.NewDesc("tidemark_intake_connected", "1 while the Kafka brokers answer (Kafka intake only).", nil, nil)
 )
 
 func (c *snapshotCollector) Describe(ch chan<- *prometheus.Desc) {
 	for _, d := range []*prometheus.Desc{descApplied, descRejected, descSkipped, descDead, descRMSE, descMAE, descSkill,
-		descScored, descDrift, descAlarms, descCkVer, descCkAge, descCkBytes, descLag, descReady} {
+		descScored, descDrift, descAlarms, descCkVer, descCkAge, descCkBytes, descLag, descReady, descConn} {
 		ch <- d
 	}
 }
@@ -106,6 +107,13 @@ func (c *snapshotCollector) Collect(ch chan<- prometheus.Metric) {
 	}
 	for _, l := range c.s.lag(snap) {
 		gauge(descLag, float64(l.Offset), strconv.Itoa(int(l.Partition)))
+	}
+	if c.s.kafka != nil {
+		conn := 0.0
+		if ok, _ := c.s.kafka.Connected(); ok {
+			conn = 1
+		}
+		gauge(descConn, conn)
 	}
 	ready := 0.0
 	if c.s.ready.Load() {

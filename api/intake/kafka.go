@@ -131,6 +131,8 @@ func (k *Kafka) HighWater() []learner.Position {
 
 // Refresh reads the topic's high watermarks.
 func (k *Kafka) Refresh(ctx context.Context) error {
+	ctx, cancel := context.WithTimeout(ctx, 2*time.Second)
+	defer cancel()
 	md, err := k.client.Metadata(ctx, &kafka.MetadataRequest{Topics: []string{k.cfg.Topic}})
 	if err != nil {
 		return err
@@ -262,6 +264,8 @@ func (k *Kafka) watchHighWater(ctx context.Context) {
 	for {
 		if err := k.Refresh(ctx); err != nil && ctx.Err() == nil {
 			k.setConnected(false, err)
+		} else if err == nil {
+			k.setConnected(true, nil)
 		}
 		select {
 		case <-ctx.Done():
