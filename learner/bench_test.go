@@ -1,14 +1,14 @@
 package learner
 
 import (
-	"math"
 	"math/rand/v2"
 	"strconv"
 	"testing"
 )
 
-// Benchmarks of the hot path, each beside a floor measured in the same run:
-// report ratios, not absolute times (the machine is shared).
+// Benchmarks of the hot path. Their floors (a plain distance scan, the
+// covariance-form RLS update) and the ratios live in the harness,
+// go run ./bench, which measures each case beside its floor in one run.
 
 func randRows(n, d int, seed uint64) [][]float64 {
 	rng := rand.New(rand.NewPCG(seed, 1))
@@ -48,30 +48,6 @@ func BenchmarkKNNPredict(b *testing.B) {
 	}
 }
 
-// BenchmarkKNNPredictFloor: a plain loop over the same window storage
-// computing every squared distance and keeping the minimum.
-func BenchmarkKNNPredictFloor(b *testing.B) {
-	m, qs := fullKNN(b, 10000, 8, "none")
-	x, d := m.w.x, m.d
-	b.ReportAllocs()
-	b.ResetTimer()
-	var sink float64
-	for i := 0; i < b.N; i++ {
-		q := qs[i%len(qs)]
-		best := math.Inf(1)
-		for s := 0; s+d <= len(x); s += d {
-			var sum float64
-			for j, v := range x[s : s+d] {
-				diff := v - q[j]
-				sum += diff * diff
-			}
-			best = math.Min(best, sum)
-		}
-		sink += best
-	}
-	_ = sink
-}
-
 func BenchmarkKNNLearn(b *testing.B) {
 	m, qs := fullKNN(b, 10000, 8, "zscore")
 	b.ReportAllocs()
@@ -92,49 +68,6 @@ func BenchmarkRLSUpdate(b *testing.B) {
 			for i := 0; i < b.N; i++ {
 				x := rows[i%len(rows)]
 				m.Learn(x, x[0], 0)
-			}
-		})
-	}
-}
-
-// BenchmarkRLSUpdateFloor: the plain covariance-form rank-one update of the
-// same size (p = d+1), the arithmetic floor of RLS:
-// k = Pu/(λ + uᵀPu), θ += k·e, P = (P − k·(Pu)ᵀ)/λ.
-func BenchmarkRLSUpdateFloor(b *testing.B) {
-	for _, d := range []int{2, 8, 32} {
-		b.Run("d="+strconv.Itoa(d), func(b *testing.B) {
-			p := d + 1
-			P := make([]float64, p*p)
-			for i := 0; i < p; i++ {
-				P[i*p+i] = 1e6
-			}
-			theta, pu, u := make([]float64, p), make([]float64, p), make([]float64, p)
-			rows := randRows(1024, d, 2)
-			const lambda = 0.999
-			b.ReportAllocs()
-			b.ResetTimer()
-			for i := 0; i < b.N; i++ {
-				x := rows[i%len(rows)]
-				u[0] = 1
-				copy(u[1:], x)
-				var den, pred float64
-				for r := 0; r < p; r++ {
-					var s float64
-					for c := 0; c < p; c++ {
-						s += P[r*p+c] * u[c]
-					}
-					pu[r] = s
-					den += u[r] * s
-					pred += u[r] * theta[r]
-				}
-				den += lambda
-				e := x[0] - pred
-				for r := 0; r < p; r++ {
-					theta[r] += pu[r] / den * e
-					for c := 0; c < p; c++ {
-						P[r*p+c] = (P[r*p+c] - pu[r]*pu[c]/den) / lambda
-					}
-				}
 			}
 		})
 	}
