@@ -141,3 +141,31 @@ func selfSigned(t *testing.T) (certPEM, keyPEM []byte) {
 	kb, _ := x509.MarshalECPrivateKey(k)
 	return pem.EncodeToMemory(&pem.Block{Type: "CERTIFICATE", Bytes: der}), pem.EncodeToMemory(&pem.Block{Type: "EC PRIVATE KEY", Bytes: kb})
 }
+
+// TestServerTimeouts: a client that opens a connection and sends half a
+// header is cut off after the read-header timeout instead of holding the
+// connection for ever; every server timeout is set.
+func TestServerTimeouts(t *testing.T) {
+	r := start(t, testConfig(t, t.TempDir()))
+	srv := r.svc.http
+	if srv.ReadHeaderTimeout <= 0 || srv.ReadTimeout <= 0 || srv.WriteTimeout <= 0 || srv.IdleTimeout <= 0 {
+		t.Fatalf("timeouts %v %v %v %v: all must be set", srv.ReadHeaderTimeout, srv.ReadTimeout, srv.WriteTimeout, srv.IdleTimeout)
+	}
+	conn, err := net.Dial("tcp", r.svc.Addr())
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer conn.Close()
+	conn.Write([]byte("POST /v1/predict HTTP/1.1\r\nHost: x\r\n")) // and then nothing
+	conn.SetReadDeadline(time.Now().Add(readHeaderTimeout + 5*time.Second))
+	t0 := time.Now()
+	buf := make([]byte, 512)
+	for {
+		if _, err := conn.Read(buf); err != nil {
+			break
+		}
+	}
+	if el := time.Since(t0); el > readHeaderTimeout+4*time.Second {
+		t.Errorf("a half-sent header held the connection for %v", el)
+	}
+}
