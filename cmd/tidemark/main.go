@@ -39,7 +39,7 @@ func commands() []command {
 		{"replay", "prequential comparison of learners on a recorded history file", runReplay},
 		{"checkpoints", "list, show, verify, pin or unpin the checkpoints in a directory", runCheckpoints},
 		{"synth", "write the demo scenario's history (a cold-storage warehouse)", runSynth},
-		{"demo", "run the learners over the embedded demo scenario, no setup", runDemo},
+		{"demo", "the whole service on this machine, fed the demo scenario at a day a minute; no setup", runDemo},
 	}
 }
 
