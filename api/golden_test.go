@@ -5,6 +5,7 @@ import (
 	"context"
 	"encoding/json"
 	"flag"
+	"fmt"
 	"os"
 	"path/filepath"
 	"reflect"
@@ -92,11 +93,43 @@ func TestGoldenCheckpointV1(t *testing.T) {
 	var want, got map[string]any
 	json.Unmarshal(wantJSON, &want)
 	json.Unmarshal(gotJSON, &got)
-	// Every field recorded then must hold the same value now; fields added
-	// to the report since are allowed.
-	for k, w := range want {
-		if !reflect.DeepEqual(got[k], w) {
-			t.Errorf("report field %q: golden %v, now %v", k, w, got[k])
-		}
+	// Every field recorded then must hold the same value now, at any depth;
+	// fields added to the report since are allowed.
+	if where := recorded(want, got, "report"); where != "" {
+		t.Errorf("the golden checkpoint reports something else than recorded at %s", where)
 	}
+}
+
+// recorded returns "" when every value in want appears, equal, at the same
+// place in got (got may hold more map keys), else the path of the first
+// difference.
+func recorded(want, got any, path string) string {
+	switch w := want.(type) {
+	case map[string]any:
+		g, ok := got.(map[string]any)
+		if !ok {
+			return path
+		}
+		for k, v := range w {
+			if p := recorded(v, g[k], path+"."+k); p != "" {
+				return p
+			}
+		}
+		return ""
+	case []any:
+		g, ok := got.([]any)
+		if !ok || len(g) != len(w) {
+			return path
+		}
+		for i := range w {
+			if p := recorded(w[i], g[i], fmt.Sprintf("%s[%d]", path, i)); p != "" {
+				return p
+			}
+		}
+		return ""
+	}
+	if !reflect.DeepEqual(want, got) {
+		return fmt.Sprintf("%s (golden %v, now %v)", path, want, got)
+	}
+	return ""
 }

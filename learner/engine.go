@@ -91,6 +91,8 @@ type Engine struct {
 
 	x []float64
 
+	stateVer uint32 // while decoding: the version of the state being read
+
 	lastPred []float64 // each learner's prediction for the last applied event
 	lastOK   []bool    // whether it predicted (was ready)
 }

@@ -67,7 +67,20 @@ type Scorer struct {
 	recEvicted               int
 	alpha                    float64
 	fadAbs, fadSq, fadWeight float64
+
+	// Interval coverage: how often the target fell inside the interval the
+	// service would have quoted before the event, prediction ± 1.96 × the
+	// recent RMSE (once the recent window holds MinIntervalEvents errors).
+	intervals, covered int64
 }
+
+// IntervalZ is the half-width of the quoted interval in recent RMSEs: the
+// two-sided 95 % point of the normal distribution (common practice).
+const IntervalZ = 1.96
+
+// MinIntervalEvents is how many recent errors a key needs before an interval
+// is quoted and its coverage counted.
+const MinIntervalEvents = 30
 
 func newScorer(recent int, alpha float64) Scorer {
 	n := min(recent, 8)
@@ -96,6 +109,12 @@ func (s *Scorer) pushRecent(e float64) (old float64, evicted bool) {
 // Score records one scored event.
 func (s *Scorer) Score(target, prediction float64) {
 	e := target - prediction
+	if n := s.idx.Len(); n >= MinIntervalEvents {
+		s.intervals++
+		if math.Abs(e) <= IntervalZ*math.Sqrt(math.Max(s.recSq, 0)/float64(n)) {
+			s.covered++
+		}
+	}
 	s.Scored++
 	s.sumAbs += math.Abs(e)
 	s.sumSq += e * e
@@ -137,6 +156,12 @@ type Metrics struct {
 	Bias     *float64      `json:"bias"`
 	Recent   RecentMetrics `json:"recent"`
 	Fading   Fading        `json:"fading"`
+	// Intervals is how many prediction intervals were quoted (prediction ±
+	// 1.96 × recent RMSE, before the event) and Coverage the share that held
+	// the target: near 0.95 when errors are roughly normal and steady, lower
+	// after a shift.
+	Intervals int64    `json:"intervals"`
+	Coverage  *float64 `json:"interval_coverage"`
 }
 
 // RecentMetrics is the error over the recent window of scored events.
@@ -172,6 +197,7 @@ type pooled struct {
 	recN                     int
 	recAbs, recSq, recErr    float64
 	fadAbs, fadSq, fadWeight float64
+	intervals, covered       int64
 }
 
 func (p *pooled) add(s *Scorer) {
@@ -188,10 +214,15 @@ func (p *pooled) add(s *Scorer) {
 	p.fadAbs += s.fadAbs
 	p.fadSq += s.fadSq
 	p.fadWeight += s.fadWeight
+	p.intervals += s.intervals
+	p.covered += s.covered
 }
 
 func (p *pooled) metrics() Metrics {
-	m := Metrics{Scored: p.scored, Unscored: p.unscored, Fading: Fading{Alpha: p.alpha}}
+	m := Metrics{Scored: p.scored, Unscored: p.unscored, Fading: Fading{Alpha: p.alpha}, Intervals: p.intervals}
+	if p.intervals > 0 {
+		m.Coverage = ptr(float64(p.covered) / float64(p.intervals))
+	}
 	if p.scored > 0 {
 		n := float64(p.scored)
 		m.MAE, m.RMSE, m.Bias = ptr(p.sumAbs/n), ptr(math.Sqrt(p.sumSq/n)), ptr(p.sumErr/n)
@@ -223,9 +254,11 @@ func (s *Scorer) encode(w *encoder) {
 	w.f64(s.fadAbs)
 	w.f64(s.fadSq)
 	w.f64(s.fadWeight)
+	w.i64(s.intervals)
+	w.i64(s.covered)
 }
 
-func (s *Scorer) decode(r *decoder) {
+func (s *Scorer) decode(r *decoder, version uint32) {
 	s.Scored, s.Unscored = r.i64(), r.i64()
 	s.sumAbs, s.sumSq, s.sumErr = r.f64(), r.f64(), r.f64()
 	n := r.count(s.recMax, 8)
@@ -238,4 +271,7 @@ func (s *Scorer) decode(r *decoder) {
 	s.recAbs, s.recSq, s.recErr = r.f64(), r.f64(), r.f64()
 	s.recEvicted = r.int()
 	s.fadAbs, s.fadSq, s.fadWeight = r.f64(), r.f64(), r.f64()
+	if version >= 4 {
+		s.intervals, s.covered = r.i64(), r.i64()
+	}
 }

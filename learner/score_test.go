@@ -109,3 +109,25 @@ func TestPageHinkleyStationaryNoAlarm(t *testing.T) {
 		}
 	}
 }
+
+// TestIntervalCoverage: with steady normal errors the quoted interval,
+// prediction ± 1.96 × recent RMSE, holds the target about 95 % of the time
+// (1.96 is the two-sided 95 % point of the standard normal, textbook value);
+// none is quoted before MinIntervalEvents errors are in the window.
+func TestIntervalCoverage(t *testing.T) {
+	s := newScorer(500, 0.999)
+	rng := rand.New(rand.NewPCG(12, 1))
+	for i := 0; i < MinIntervalEvents; i++ {
+		s.Score(rng.NormFloat64(), 0)
+	}
+	if m := s.Metrics(); m.Intervals != 0 || m.Coverage != nil {
+		t.Fatalf("an interval was counted before %d errors: %+v", MinIntervalEvents, m)
+	}
+	for i := 0; i < 200_000; i++ {
+		s.Score(3*rng.NormFloat64(), 0)
+	}
+	m := s.Metrics()
+	if m.Intervals != 200_000 || math.Abs(*m.Coverage-0.95) > 0.005 {
+		t.Errorf("coverage %.4f over %d intervals, want 0.95 ± 0.005", *m.Coverage, m.Intervals)
+	}
+}

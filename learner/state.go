@@ -31,7 +31,8 @@ const (
 	// stateVersion 2 added the skipped counter; 3 dropped the per-learner
 	// scorer across keys (overall metrics are pooled from the keys). Versions
 	// 1 and 2 are still read.
-	stateVersion = 3
+	// 4 added interval coverage to the per-key scorers.
+	stateVersion = 4
 	maxNames     = MaxFeatures
 	maxSections  = 1 << 20
 )
@@ -194,6 +195,7 @@ func (e *Engine) decodeGlobal(b []byte) error {
 		return fmt.Errorf("%w: bad magic in the global section", ErrCorruptState)
 	}
 	v := r.u32()
+	e.stateVer = v
 	if v < 1 || v > stateVersion {
 		return fmt.Errorf("%w: state version %d, this build reads 1 to %d", ErrCorruptState, v, stateVersion)
 	}
@@ -227,7 +229,7 @@ func (e *Engine) decodeGlobal(b []byte) error {
 			// versions 1 and 2 kept an arrival-order scorer per learner
 			// across keys; its figures are now pooled from the keys.
 			old := newScorer(maxRecent, DefaultFading)
-			old.decode(r)
+			old.decode(r, v)
 		}
 		t.alarms = r.i64()
 		if r.bool() {
@@ -270,7 +272,7 @@ func (e *Engine) decodePartition(s Section) error {
 			if err := l.decode(r); err != nil {
 				break
 			}
-			ks.scores[j].decode(r)
+			ks.scores[j].decode(r, e.stateVer)
 			ks.drift[j].decode(r)
 		}
 		e.keys[key] = ks

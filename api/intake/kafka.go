@@ -187,7 +187,14 @@ func (k *Kafka) Run(ctx context.Context, covered []learner.Position, deliver fun
 		if ctx.Err() != nil {
 			return nil
 		}
-		k.setConnected(false, err)
+		var kerr kafka.Error
+		if errors.As(err, &kerr) {
+			// The brokers answered: a group protocol condition (a rebalance
+			// in progress, a member that died and has not timed out yet).
+			k.cfg.Log.Info("kafka: rejoining the consumer group", "reason", err)
+		} else {
+			k.setConnected(false, err)
+		}
 		select {
 		case <-time.After(backoff):
 		case <-ctx.Done():

@@ -94,7 +94,9 @@ func (p *proc) term(t *testing.T) {
 
 func (p *proc) waitReady(t *testing.T) {
 	t.Helper()
-	deadline := time.Now().Add(30 * time.Second)
+	// Long enough for a consumer group to forget members killed earlier
+	// (session timeout 10 s, then a rebalance).
+	deadline := time.Now().Add(60 * time.Second)
 	for time.Now().Before(deadline) {
 		resp, err := http.Get(p.base + "/readyz")
 		if err == nil {
