@@ -24,6 +24,7 @@ const (
 	DefaultPublishEvery       = 200 * time.Millisecond
 	DefaultCurvePoints        = 2000
 	DefaultCurveEvery         = 100
+	DefaultMaxDriftPins       = 10
 )
 
 // Config configures the service. Zero fields take the defaults.
@@ -48,6 +49,10 @@ type Config struct {
 	// key before predict answers for it. Default: DefaultMinScored; negative
 	// means no minimum.
 	MinScored int64
+	// MaxDriftPins is how many checkpoints pinned automatically before drift
+	// alarms are kept pinned (the newest); older automatic pins are lifted.
+	// Pins an operator made are never lifted. Default: DefaultMaxDriftPins.
+	MaxDriftPins int
 	// DefaultLearner answers predict requests that name none. Default: the first.
 	DefaultLearner string
 	// PublishEvery is the longest a published snapshot (what predict and the
@@ -151,6 +156,9 @@ func (c *Config) setDefaults() {
 	}
 	if c.CurveEvery == 0 {
 		c.CurveEvery = DefaultCurveEvery
+	}
+	if c.MaxDriftPins == 0 {
+		c.MaxDriftPins = DefaultMaxDriftPins
 	}
 	if c.CurvePoints == 0 {
 		c.CurvePoints = DefaultCurvePoints

@@ -94,3 +94,34 @@ func TestOperatorStory(t *testing.T) {
 	t.Logf("burst of %d events from offset %d; restored pinned checkpoint %d (offset %d), skipped the burst",
 		len(poisoned)-len(clean), firstBurst, before.Version, before.Position[0].Offset)
 }
+
+// TestDriftPinsAreCapped: automatic pins before drift alarms keep only the
+// newest MaxDriftPins; a pin an operator made stays.
+func TestDriftPinsAreCapped(t *testing.T) {
+	cfg := testConfig(t, t.TempDir())
+	cfg.CheckpointEvery, cfg.MaxDriftPins, cfg.Retain = 50, 2, 3
+	r := start(t, cfg)
+	lines := scenario(t, 3)
+	r.post(t, "", lines[:200])
+	r.waitCovered(t, 200)
+	vs, _ := r.svc.store.Versions()
+	mine := vs[len(vs)-1]
+	if err := r.svc.store.Pin(mine); err != nil { // the operator's
+		t.Fatal(err)
+	}
+	r.post(t, "", lines[200:])
+	r.waitCovered(t, int64(len(lines)))
+	pins, _ := r.svc.store.Pins()
+	drift := 0
+	for _, why := range pins {
+		if why == "drift" {
+			drift++
+		}
+	}
+	if why, ok := pins[mine]; !ok || why != "" || drift != 2 {
+		t.Errorf("pins %v: want the operator's version %d and exactly 2 drift pins", pins, mine)
+	}
+	if rep := r.report(t); rep.Learners[3].Drift.Alarms < 3 {
+		t.Errorf("only %d alarms: the cap was not exercised", rep.Learners[3].Drift.Alarms)
+	}
+}

@@ -470,11 +470,28 @@ func (s *Service) pinBeforeAlarm() {
 	if s.lastCk.Version == 0 {
 		return
 	}
-	if err := s.store.Pin(s.lastCk.Version); err != nil {
+	if err := s.store.PinFor(s.lastCk.Version, "drift"); err != nil {
 		s.cfg.Log.Error("could not pin the checkpoint before a drift alarm", "version", s.lastCk.Version, "error", err)
 		return
 	}
 	s.cfg.Log.Warn("drift alarm: pinned the checkpoint taken before it", "version", s.lastCk.Version)
+	// Keep the newest MaxDriftPins automatic pins: a stream that alarms
+	// often would otherwise pin without end. An operator's pins stay.
+	pins, err := s.store.Pins()
+	if err != nil {
+		return
+	}
+	var drift []uint64
+	for v, why := range pins {
+		if why == "drift" {
+			drift = append(drift, v)
+		}
+	}
+	slices.Sort(drift)
+	for len(drift) > s.cfg.MaxDriftPins {
+		s.store.Unpin(drift[0])
+		drift = drift[1:]
+	}
 }
 
 // checkpoint writes the engine's state; parent 0 means the last checkpoint.

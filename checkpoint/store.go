@@ -375,7 +375,11 @@ func (s *Store) Latest() (c *Checkpoint, skipped []error, err error) {
 }
 
 // Pin protects version v from retention.
-func (s *Store) Pin(v uint64) error {
+func (s *Store) Pin(v uint64) error { return s.PinFor(v, "") }
+
+// PinFor pins version v and records why (kept in the pin file; "drift" for
+// the automatic pin before a drift alarm, "" for an operator's).
+func (s *Store) PinFor(v uint64, why string) error {
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	vs, pins, err := s.scan()
@@ -385,13 +389,34 @@ func (s *Store) Pin(v uint64) error {
 	if !slices.Contains(vs, v) {
 		return fmt.Errorf("%w: version %d", ErrNotFound, v)
 	}
+	path := filepath.Join(s.cfg.Dir, pinName(v))
 	if pins[v] {
-		return nil
+		if why != "" {
+			return nil // an automatic pin never overrides an existing one
+		}
+		s.cfg.FS.Remove(path) // the operator's pin replaces an automatic one
 	}
-	if err := s.writeFile(filepath.Join(s.cfg.Dir, pinName(v)), nil); err != nil {
+	if err := s.writeFile(path, []byte(why)); err != nil {
 		return fmt.Errorf("checkpoint: pin version %d: %w", v, err)
 	}
 	return s.cfg.FS.SyncDir(s.cfg.Dir)
+}
+
+// Pins returns every pinned version and why it was pinned.
+func (s *Store) Pins() (map[uint64]string, error) {
+	_, pins, err := s.scan()
+	if err != nil {
+		return nil, err
+	}
+	out := map[uint64]string{}
+	for v := range pins {
+		b, err := s.cfg.FS.ReadFile(filepath.Join(s.cfg.Dir, pinName(v)))
+		if err != nil {
+			continue
+		}
+		out[v] = string(b)
+	}
+	return out, nil
 }
 
 // Unpin lets retention remove version v again.
