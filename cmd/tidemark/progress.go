@@ -5,6 +5,7 @@ import (
 	"os"
 	"strconv"
 	"sync"
+	"time"
 
 	"github.com/schollz/progressbar/v3"
 	"golang.org/x/term"
@@ -15,9 +16,10 @@ import (
 // stderr is a terminal; lines logged meanwhile (rejections) are printed
 // above the bar.
 type progress struct {
-	mu  sync.Mutex
-	bar *progressbar.ProgressBar
-	out io.Writer
+	mu    sync.Mutex
+	bar   *progressbar.ProgressBar
+	out   io.Writer
+	start time.Time
 }
 
 func newProgress(stderr io.Writer, size int64, quiet bool) *progress {
@@ -34,14 +36,15 @@ func newProgress(stderr io.Writer, size int64, quiet bool) *progress {
 		progressbar.OptionThrottle(100_000_000),
 		progressbar.OptionClearOnFinish(),
 	)
-	return &progress{bar: bar, out: stderr}
+	return &progress{bar: bar, out: stderr, start: time.Now()}
 }
 
 func (p *progress) update(read, size, lines int64) {
 	p.mu.Lock()
 	defer p.mu.Unlock()
 	p.bar.Set64(read)
-	p.bar.Describe("replay: " + strconv.FormatInt(lines, 10) + " lines")
+	rate := float64(lines) / max(time.Since(p.start).Seconds(), 1e-3)
+	p.bar.Describe("replay: " + strconv.FormatInt(lines, 10) + " lines, " + strconv.FormatFloat(rate, 'f', 0, 64) + " events/s")
 }
 
 func (p *progress) finish() {
