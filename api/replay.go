@@ -10,6 +10,7 @@ import (
 	"fmt"
 	"hash"
 	"io"
+	"sync"
 
 	"tidemark/api/intake"
 	"tidemark/checkpoint"
@@ -51,6 +52,10 @@ type ReplayConfig struct {
 	// Sequential reads and decodes on the engine's goroutine instead of a
 	// second one (the results are the same; it exists to measure the gain).
 	Sequential bool
+	// Helpers are further engines, each with its own learners, fed the same
+	// lines as the main one on goroutines of their own (ReplayParallel sets
+	// them). Not with Checkpoints or Resume.
+	Helpers []*learner.Engine
 	// Resume restores the newest good checkpoint in Checkpoints and continues
 	// after the line it covers. It refuses (ErrResume) when the checkpoint was
 	// taken under another configuration or over a history this one does not
@@ -93,6 +98,9 @@ func Replay(ctx context.Context, h *intake.History, eng *learner.Engine, cfg Rep
 		cfg.RejectLog = DefaultRejectLog
 	}
 	r := &replayer{cfg: cfg, eng: eng, prefix: sha256.New()}
+	if len(cfg.Helpers) > 0 && (cfg.Checkpoints != nil || cfg.Resume || cfg.Sequential) {
+		return errors.New("api: helper engines cannot be combined with checkpoints, resume or a sequential run")
+	}
 	if cfg.Resume {
 		if cfg.Checkpoints == nil {
 			return fmt.Errorf("%w: no checkpoint directory given", ErrResume)
@@ -236,16 +244,43 @@ func (r *replayer) run(ctx context.Context, h *intake.History) error {
 		}
 	}()
 	go r.read(rctx, h, out, free)
+	helpers := make([]chan []lineItem, len(r.cfg.Helpers))
+	var batchDone sync.WaitGroup
+	for i, eng := range r.cfg.Helpers {
+		helpers[i] = make(chan []lineItem)
+		go func() {
+			for batch := range helpers[i] {
+				applyLines(eng, batch)
+				batchDone.Done()
+			}
+		}()
+	}
+	defer func() {
+		for _, ch := range helpers {
+			close(ch)
+		}
+	}()
 	for batch := range out {
+		batchDone.Add(len(helpers))
+		for _, ch := range helpers {
+			ch <- batch
+		}
+		var err error
+		eof := false
 		for i := range batch {
 			it := &batch[i]
-			if err := r.step(it); err != nil {
-				return err
+			if err = r.step(it); err != nil {
+				break
 			}
 			if it.kind == lineEOF {
 				r.finalDigest = it.digest
-				return nil
+				eof = true
+				break
 			}
+		}
+		batchDone.Wait() // the helpers are done with the batch too
+		if err != nil || eof {
+			return err
 		}
 		free <- batch
 		if ctx.Err() != nil {
@@ -256,6 +291,22 @@ func (r *replayer) run(ctx context.Context, h *intake.History) error {
 		return ctx.Err()
 	}
 	return nil
+}
+
+// applyLines applies a batch to a helper engine: the same positions, the
+// same events, the same refusals as the main engine (which alone logs them).
+func applyLines(eng *learner.Engine, batch []lineItem) {
+	for i := range batch {
+		it := &batch[i]
+		pos := learner.Position{Partition: 0, Offset: it.no}
+		switch {
+		case it.readErr != nil || it.kind == lineEOF || it.kind == lineBlank || eng.Covers(pos):
+		case it.kind == lineTooLong || it.kind == lineBad:
+			eng.Skip(pos)
+		default:
+			eng.Apply(pos, &it.ev)
+		}
+	}
 }
 
 // runSequential reads and applies on one goroutine (for comparison).

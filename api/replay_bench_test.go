@@ -16,9 +16,10 @@ import (
 // one goroutine. Run with -benchtime 1000000x for the million-event figure.
 func BenchmarkReplay(b *testing.B) {
 	for _, mode := range []struct {
-		name string
-		seq  bool
-	}{{"pipelined", false}, {"sequential", true}} {
+		name     string
+		seq      bool
+		parallel bool
+	}{{"pipelined", false, false}, {"sequential", true, false}, {"learners-spread", false, true}} {
 		b.Run(mode.name, func(b *testing.B) {
 			days := b.N/864 + 1
 			var buf bytes.Buffer
@@ -32,7 +33,16 @@ func BenchmarkReplay(b *testing.B) {
 			b.ReportAllocs()
 			b.ResetTimer()
 			t0 := time.Now()
-			if err := Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(buf.Bytes())), eng, ReplayConfig{Sequential: mode.seq}); err != nil {
+			h := intake.NewHistoryReader(bytes.NewReader(buf.Bytes()))
+			if mode.parallel {
+				rep, err := ReplayParallel(context.Background(), h, cfg, 0, ReplayConfig{})
+				if err != nil {
+					b.Fatal(err)
+				}
+				b.ReportMetric(float64(rep.Events)/time.Since(t0).Seconds(), "events/s")
+				return
+			}
+			if err := Replay(context.Background(), h, eng, ReplayConfig{Sequential: mode.seq}); err != nil {
 				b.Fatal(err)
 			}
 			el := time.Since(t0)

@@ -525,3 +525,22 @@ func TestDemoSmoke(t *testing.T) {
 func newCancel() (context.Context, context.CancelFunc) {
 	return context.WithCancel(context.Background())
 }
+
+func TestReplayParallelEqualsSingle(t *testing.T) {
+	var buf bytes.Buffer
+	synth.Write(&buf, synth.Config{Days: 3, Seed: 2}) // malformed lines included
+	cfg := engineConfig(t, "knn:k=3,window=300", "rls:forget=0.99", "mean:window=100", "knn:k=7,window=all,max=500",
+		"sliding-rls:window=200", "rls:half_life=6h", "mean")
+	single, _ := learner.NewEngine(cfg)
+	if err := Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(buf.Bytes())), single, ReplayConfig{}); err != nil {
+		t.Fatal(err)
+	}
+	want := single.Report(true)
+	for _, workers := range []int{2, 3, 7} {
+		got, err := ReplayParallel(context.Background(), intake.NewHistoryReader(bytes.NewReader(buf.Bytes())), cfg, workers, ReplayConfig{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		sameJSON(t, fmt.Sprintf("%d workers against one engine", workers), got, want)
+	}
+}

@@ -95,6 +95,7 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 	units := fs.String("units", "", "the target's units, for the plot's axes (e.g. kW)")
 	quiet := fs.Bool("quiet", false, "no progress bar")
 	sequential := fs.Bool("sequential", false, "decode on the learning goroutine instead of a second one (same results; for measuring)")
+	workers := fs.Int("workers", 0, "spread the learners over this many goroutines (0: one per CPU; same results;\nnot with --checkpoints, --curve or --plot, which use one)")
 	pos, err := parse(fs, args)
 	if err != nil {
 		return err
@@ -150,7 +151,13 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 		rc.Progress = bar.update
 		rc.Log = bar.writer()
 	}
-	err = api.Replay(ctx, h, eng, rc)
+	parallel := *workers != 1 && store == nil && rec == nil && !*sequential && len(cfg.Learners) > 1
+	var report learner.Report
+	if parallel {
+		report, err = api.ReplayParallel(ctx, h, cfg, *workers, rc)
+	} else {
+		err = api.Replay(ctx, h, eng, rc)
+	}
 	if bar != nil {
 		bar.finish()
 	}
@@ -173,7 +180,15 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 			}
 		}
 	}
-	return writeReport(stdout, eng.Report(*perKey), *asJSON)
+	if !parallel {
+		report = eng.Report(true)
+	}
+	if !*perKey {
+		for i := range report.Learners {
+			report.Learners[i].Keys = nil
+		}
+	}
+	return writeReport(stdout, report, *asJSON)
 }
 
 func writeFile(path string, write func(io.Writer) error) error {
