@@ -93,7 +93,12 @@ func RunDemo(ctx context.Context, dc DemoConfig) error {
 	sctx, stop := context.WithCancel(context.Background())
 	done := make(chan error, 1)
 	go func() { done <- svc.Run(sctx) }()
-	base := "http://" + svc.Addr()
+	addr := svc.Addr()
+	if addr == "" {
+		stop()
+		return <-done
+	}
+	base := "http://" + addr
 	printDemoIntro(dc, base)
 	feedErr := feedDemo(ctx, dc, base, hist.Bytes(), svc)
 	stop()

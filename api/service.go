@@ -66,7 +66,8 @@ type Service struct {
 // without waiting for a snapshot (benchmarks poll it).
 func (s *Service) Handled() int64 { return s.handled.Load() }
 
-// Addr waits until Run listens and returns the address it listens on.
+// Addr waits until Run listens and returns the address it listens on, or ""
+// when Run failed before it could listen.
 func (s *Service) Addr() string {
 	<-s.listening
 	return s.addr
@@ -249,7 +250,8 @@ func (s *Service) Run(ctx context.Context) error {
 	defer s.close()
 	ln, err := net.Listen("tcp", s.cfg.Listen)
 	if err != nil {
-		return fmt.Errorf("http: %w", err)
+		close(s.listening) // Addr returns "": Run failed before listening
+		return fmt.Errorf("http: %w (choose another address with --listen)", err)
 	}
 	s.addr = ln.Addr().String()
 	close(s.listening)

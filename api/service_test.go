@@ -6,6 +6,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
+	"net"
 	"net/http"
 	"path/filepath"
 	"strings"
@@ -542,5 +543,34 @@ func TestReplayParallelEqualsSingle(t *testing.T) {
 			t.Fatal(err)
 		}
 		sameJSON(t, fmt.Sprintf("%d workers against one engine", workers), got, want)
+	}
+}
+
+// TestListenFailureIsReported: an address in use is an error that says what
+// to do, not a hang (Addr returns "" when Run could not listen).
+func TestListenFailureIsReported(t *testing.T) {
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer ln.Close()
+	cfg := testConfig(t, t.TempDir())
+	cfg.Listen = ln.Addr().String()
+	svc, err := New(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	done := make(chan error, 1)
+	go func() { done <- svc.Run(context.Background()) }()
+	if a := svc.Addr(); a != "" {
+		t.Errorf("Addr %q after a failed listen, want \"\"", a)
+	}
+	select {
+	case err := <-done:
+		if err == nil || !strings.Contains(err.Error(), "--listen") {
+			t.Errorf("Run: %v, want an error suggesting --listen", err)
+		}
+	case <-time.After(10 * time.Second):
+		t.Fatal("Run did not return after a failed listen")
 	}
 }
