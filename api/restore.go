@@ -1,7 +1,6 @@
 package api
 
 import (
-	"encoding/json"
 	"errors"
 	"fmt"
 	"time"
@@ -211,9 +210,4 @@ func (s *Service) restore(v uint64, req RestoreRequest) cmdResult {
 	s.startSource()
 	s.publish()
 	return cmdResult{info: info}
-}
-
-func mustJSON(v any) []byte {
-	b, _ := json.Marshal(v)
-	return b
 }

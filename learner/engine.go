@@ -411,12 +411,3 @@ func (c Config) Digest() string {
 		c.Drift.Delta, c.Drift.Lambda, c.Drift.MinEvents, c.Drift.Raw)
 	return hex.EncodeToString(h.Sum(nil))
 }
-
-// Describe returns the learner specs as written, for messages.
-func (c Config) Describe() string {
-	var names []string
-	for _, s := range c.Learners {
-		names = append(names, s.Text)
-	}
-	return strings.Join(names, " ")
-}
