@@ -87,3 +87,21 @@ func BenchmarkSlidingRLSUpdate(b *testing.B) {
 		m.Learn(x, x[0], 0)
 	}
 }
+
+// BenchmarkReport: a report over 10 000 keys, as the service builds one every
+// curve point and every published snapshot.
+func BenchmarkReport(b *testing.B) {
+	s, _ := ParseSpec("rls:forget=0.99")
+	e, _ := NewEngine(Config{Learners: []Spec{s}})
+	ev := &Event{Features: []Feature{{Name: "x", Num: 1}}}
+	for i := 0; i < 30_000; i++ {
+		ev.Key = "key-" + strconv.Itoa(i%10_000)
+		ev.Target = float64(i % 7)
+		e.Apply(Position{Offset: int64(i)}, ev)
+	}
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		e.Report(false)
+	}
+}

@@ -83,6 +83,7 @@ type Engine struct {
 	needTime string // the first learner that needs event time, or ""
 	baseline int    // index of the first mean learner, or −1
 	keys     map[string]*keyState
+	byName   []*keyState // the same, sorted by key: reports pool in this order
 	totals   []total
 	hwm      map[int32]int64
 
@@ -245,7 +246,7 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 		}
 		e.schema = schema
 		ks = e.newKey(ev.Key, pos.Partition)
-		e.keys[ev.Key] = ks
+		e.addKey(ks)
 	}
 	e.schema = schema
 	e.ignored += int64(ignored)
@@ -373,21 +374,19 @@ func (e *Engine) Clone() *Engine {
 	return c
 }
 
-// Key reports whether the key has learners yet.
-func (e *Engine) Key(key string) bool { return e.keys[key] != nil }
+// addKey registers a new key's state, keeping byName sorted (O(keys) for a
+// new key, which is rare; reports then need no sort).
+func (e *Engine) addKey(ks *keyState) {
+	e.keys[ks.key] = ks
+	i, _ := slices.BinarySearchFunc(e.byName, ks.key, func(k *keyState, name string) int { return strings.Compare(k.key, name) })
+	e.byName = slices.Insert(e.byName, i, ks)
+}
 
-// sortedKeys returns the key states ordered by (partition, key).
+// sortedKeys returns the key states ordered by (partition, key), for the
+// partition sections of the state.
 func (e *Engine) sortedKeys() []*keyState {
-	out := make([]*keyState, 0, len(e.keys))
-	for _, ks := range e.keys {
-		out = append(out, ks)
-	}
-	slices.SortFunc(out, func(a, b *keyState) int {
-		if a.partition != b.partition {
-			return int(a.partition) - int(b.partition)
-		}
-		return strings.Compare(a.key, b.key)
-	})
+	out := slices.Clone(e.byName)
+	slices.SortStableFunc(out, func(a, b *keyState) int { return int(a.partition) - int(b.partition) })
 	return out
 }
 

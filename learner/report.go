@@ -1,10 +1,6 @@
 package learner
 
-import (
-	"slices"
-	"strings"
-	"time"
-)
+import "time"
 
 // Report is a snapshot of every learner's prequential metrics; it is the
 // object `tidemark replay --json` prints and GET /v1/learners serves.
@@ -62,8 +58,7 @@ func (e *Engine) Report(withKeys bool) Report {
 		Keys: len(e.keys), RecentWindow: e.cfg.Score.Recent, Positions: e.Positions()}
 	// Keys by name alone, not by partition: the pooled sums then do not
 	// depend on which partition a key landed in.
-	keys := e.sortedKeys()
-	slices.SortFunc(keys, func(a, b *keyState) int { return strings.Compare(a.key, b.key) })
+	keys := e.byName
 	for i := range e.cfg.Learners {
 		s := &e.cfg.Learners[i]
 		t := &e.totals[i]

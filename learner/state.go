@@ -275,7 +275,7 @@ func (e *Engine) decodePartition(s Section) error {
 			ks.scores[j].decode(r, e.stateVer)
 			ks.drift[j].decode(r)
 		}
-		e.keys[key] = ks
+		e.addKey(ks)
 	}
 	if r.err == nil && r.off != len(s.Bytes) {
 		r.fail("trailing bytes")
