@@ -312,18 +312,7 @@ func replayThroughput() result {
 }
 
 func httpPredict() result {
-	dir, _ := os.MkdirTemp("", "tidemark-bench-")
-	defer os.RemoveAll(dir)
-	spec, _ := learner.ParseSpec("rls:forget=0.995")
-	cfg := api.Config{Listen: "127.0.0.1:0", DataDir: dir, MinScored: -1,
-		Engine: learner.Config{Learners: []learner.Spec{spec}, Features: learner.FeatureConfig{HashBuckets: 4}}}
-	svc, err := api.New(cfg)
-	if err != nil {
-		panic(err)
-	}
-	ctx, cancel := context.WithCancel(context.Background())
-	done := make(chan error, 1)
-	go func() { done <- svc.Run(ctx) }()
+	svc, stop := runService(api.Config{MinScored: -1})
 	base := "http://" + svc.Addr()
 	client := &http.Client{Transport: &http.Transport{MaxIdleConnsPerHost: 4}}
 	resp, err := client.Post(base+"/v1/events", "application/x-ndjson", bytes.NewReader(scenarioLines(2000)))
@@ -349,8 +338,7 @@ func httpPredict() result {
 		}
 	}
 	ours, allocs := bench(call(base + "/v1/predict"))
-	cancel()
-	<-done
+	stop()
 	ln, _ := net.Listen("tcp", "127.0.0.1:0")
 	srv := &http.Server{Handler: api.FloorHandler()}
 	go srv.Serve(ln)
@@ -390,19 +378,8 @@ func kafkaIntake() result {
 	}
 	floor := float64(time.Since(firstAt).Nanoseconds()) / float64(got-1) // from the first message, as for ours
 
-	dir, _ := os.MkdirTemp("", "tidemark-bench-")
-	defer os.RemoveAll(dir)
-	spec, _ := learner.ParseSpec("rls:forget=0.995")
-	cfg := api.Config{Listen: "127.0.0.1:0", DataDir: dir, CheckpointEvery: 1 << 40,
-		Engine: learner.Config{Learners: []learner.Spec{spec}, Features: learner.FeatureConfig{HashBuckets: 4}},
-		Kafka:  &intake.KafkaConfig{Brokers: []string{addr}, Topic: "events", Group: "bench"}}
-	svc, err := api.New(cfg)
-	if err != nil {
-		panic(err)
-	}
-	ctx, cancel := context.WithCancel(context.Background())
-	done := make(chan error, 1)
-	go func() { done <- svc.Run(ctx) }()
+	svc, stop := runService(api.Config{CheckpointEvery: 1 << 40,
+		Kafka: &intake.KafkaConfig{Brokers: []string{addr}, Topic: "events", Group: "bench"}})
 	// Time from the first handled event to the last: joining the group is
 	// a one-off cost, not a per-event one.
 	total := int64(len(lines))
@@ -419,9 +396,29 @@ func kafkaIntake() result {
 		time.Sleep(100 * time.Microsecond)
 	}
 	ours := float64(time.Since(first).Nanoseconds()) / float64(total-firstN)
-	cancel()
-	<-done
+	stop()
 	return result{Case: "kafka-intake", Ours: ours, Floor: floor, Target: 1.5}
+}
+
+// runService starts the service with one rls learner in a temporary data
+// directory, on a loopback port, on top of cfg; stop ends it and removes the
+// directory.
+func runService(cfg api.Config) (*api.Service, func()) {
+	dir, err := os.MkdirTemp("", "tidemark-bench-")
+	if err != nil {
+		panic(err)
+	}
+	spec, _ := learner.ParseSpec("rls:forget=0.995")
+	cfg.Listen, cfg.DataDir = "127.0.0.1:0", dir
+	cfg.Engine = learner.Config{Learners: []learner.Spec{spec}, Features: learner.FeatureConfig{HashBuckets: 4}}
+	svc, err := api.New(cfg)
+	if err != nil {
+		panic(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- svc.Run(ctx) }()
+	return svc, func() { cancel(); <-done; os.RemoveAll(dir) }
 }
 
 // slope is the least-squares slope of log y on log x.

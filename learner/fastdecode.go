@@ -31,16 +31,10 @@ func decodeFast(data []byte, ev *Event, needTarget bool) (ok bool, err error) {
 		goto done
 	}
 	for {
-		p.ws()
-		name, ok := p.str()
+		name, ok := p.member()
 		if !ok {
 			return false, nil
 		}
-		p.ws()
-		if !p.eat(':') {
-			return false, nil
-		}
-		p.ws()
 		switch string(name) {
 		case "time":
 			if hasTime || p.null() {
@@ -76,16 +70,10 @@ func decodeFast(data []byte, ev *Event, needTarget bool) (ok bool, err error) {
 			p.ws()
 			if !p.eat('}') {
 				for {
-					p.ws()
-					fname, ok := p.str()
+					fname, ok := p.member()
 					if !ok {
 						return false, nil
 					}
-					p.ws()
-					if !p.eat(':') {
-						return false, nil
-					}
-					p.ws()
 					f := Feature{}
 					if p.peek() == '"' {
 						v, ok := p.str()
@@ -199,6 +187,22 @@ func (p *fastParser) eat(c byte) bool {
 }
 
 func (p *fastParser) null() bool { return bytes.HasPrefix(p.b[p.i:], []byte("null")) }
+
+// member reads an object member's name and the colon after it, with the
+// whitespace around them, leaving the parser at the value.
+func (p *fastParser) member() ([]byte, bool) {
+	p.ws()
+	name, ok := p.str()
+	if !ok {
+		return nil, false
+	}
+	p.ws()
+	if !p.eat(':') {
+		return nil, false
+	}
+	p.ws()
+	return name, true
+}
 
 // str reads a string of printable ASCII without escapes.
 func (p *fastParser) str() ([]byte, bool) {
