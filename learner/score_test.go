@@ -80,6 +80,10 @@ func TestPageHinkleyHand(t *testing.T) {
 	}
 }
 
+// TestPageHinkleyGaussianShift: the requirement (an alarm within 100
+// events of a 3σ mean shift at event 1000, default settings). By the
+// argument beside the defaults in drift.go (drift 3 − δ = 2.5 per event
+// against λ = 25) it should come after about 10.
 func TestPageHinkleyGaussianShift(t *testing.T) {
 	rng := rand.New(rand.NewPCG(2026, 12))
 	p := newPageHinkley(DriftConfig{})
@@ -97,6 +101,9 @@ func TestPageHinkleyGaussianShift(t *testing.T) {
 	t.Fatal("no alarm within 100 events of a 3σ shift")
 }
 
+// TestPageHinkleyStationaryNoAlarm: the requirement (no alarm on 10⁵
+// stationary events), on three seeds; drift.go puts the false-alarm chance
+// per excursion near e⁻²⁵.
 func TestPageHinkleyStationaryNoAlarm(t *testing.T) {
 	for seed := uint64(1); seed <= 3; seed++ {
 		rng := rand.New(rand.NewPCG(seed, 1))
@@ -127,6 +134,9 @@ func TestIntervalCoverage(t *testing.T) {
 		s.Score(3*rng.NormFloat64(), 0)
 	}
 	m := s.Metrics()
+	// ±0.005: the binomial standard error over 2·10⁵ intervals is 0.0005;
+	// the running RMSE estimate and the overlap of windows widen it, so ten
+	// times that is allowed (our own bound).
 	if m.Intervals != 200_000 || math.Abs(*m.Coverage-0.95) > 0.005 {
 		t.Errorf("coverage %.4f over %d intervals, want 0.95 ± 0.005", *m.Coverage, m.Intervals)
 	}

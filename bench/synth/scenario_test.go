@@ -53,7 +53,7 @@ func TestScenarioShowsWhyOnlineLearningMatters(t *testing.T) {
 	for _, l := range rep.Learners[:4] {
 		best = min(best, *l.RMSE)
 	}
-	if best > 0.8*base {
+	if best > 0.8*base { // the issue's requirement: 20 % better than the mean baseline
 		t.Errorf("best RMSE %.3f is not 20%% below the mean baseline's %.3f", best, base)
 	}
 	onset := synth.Start.Add(7 * 24 * time.Hour) // the middle of 14 days
@@ -64,7 +64,7 @@ func TestScenarioShowsWhyOnlineLearningMatters(t *testing.T) {
 			break
 		}
 	}
-	if first == nil || first.at.Sub(onset) > 4*time.Hour {
+	if first == nil || first.at.Sub(onset) > 4*time.Hour { // "within a few hours", the issue says; 4 h is our reading
 		t.Errorf("no alarm on room-b within 4 h of the fault at %s; alarms: %v", onset, alarms)
 	} else {
 		t.Logf("first alarm on room-b: %s, %v after the fault", first.learner, first.at.Sub(onset))
