@@ -96,22 +96,14 @@ func mergeReports(cfg learner.Config, groups [][]int, engines []*learner.Engine)
 		l.Skill = nil
 		if base >= 0 {
 			b := out.Learners[base]
-			l.Skill = skillOf(l.RMSE, b.RMSE)
+			l.Skill = learner.Skill(l.Metrics, b.Metrics)
 			for k := range l.Keys {
 				l.Keys[k].Skill = nil
 				if k < len(b.Keys) && b.Keys[k].Key == l.Keys[k].Key {
-					l.Keys[k].Skill = skillOf(l.Keys[k].RMSE, b.Keys[k].RMSE)
+					l.Keys[k].Skill = learner.Skill(l.Keys[k].Metrics, b.Keys[k].Metrics)
 				}
 			}
 		}
 	}
 	return out
-}
-
-func skillOf(rmse, base *float64) *float64 {
-	if rmse == nil || base == nil || *base == 0 {
-		return nil
-	}
-	v := 1 - *rmse / *base
-	return &v
 }

@@ -71,7 +71,7 @@ func (e *Engine) Report(withKeys bool) Report {
 		}
 		lr := LearnerReport{Name: s.Name, Spec: s.Text, Kind: s.Kind.String(), Metrics: all.metrics()}
 		if e.baseline >= 0 {
-			lr.Skill = skill(lr.Metrics, base.metrics())
+			lr.Skill = Skill(lr.Metrics, base.metrics())
 		}
 		state := Stable
 		for _, ks := range keys {
@@ -79,7 +79,7 @@ func (e *Engine) Report(withKeys bool) Report {
 			if withKeys {
 				kr := KeyReport{Key: ks.key, Metrics: ks.scores[i].Metrics(), Drift: ks.drift[i].State().String()}
 				if e.baseline >= 0 {
-					kr.Skill = skill(kr.Metrics, ks.scores[e.baseline].Metrics())
+					kr.Skill = Skill(kr.Metrics, ks.scores[e.baseline].Metrics())
 				}
 				lr.Keys = append(lr.Keys, kr)
 			}
@@ -96,9 +96,9 @@ func (e *Engine) Report(withKeys bool) Report {
 	return r
 }
 
-// skill is 1 − rmse/rmse_baseline, or nil when either has no score or the
+// Skill is 1 − rmse/rmse_baseline, or nil when either has no score or the
 // baseline's error is zero.
-func skill(m, b Metrics) *float64 {
+func Skill(m, b Metrics) *float64 {
 	if m.RMSE == nil || b.RMSE == nil || *b.RMSE == 0 {
 		return nil
 	}
