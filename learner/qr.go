@@ -47,38 +47,68 @@ func (q *sqrtInfo) scale(s float64) {
 }
 
 // add appends the row (x, y): A += xxᵀ, b += x·y. x is not modified.
+//
+// Rank rule. Where row i of R is still empty (no pivot yet), rotating the
+// row's remainder wᵢ in would make |wᵢ| the diagonal Rᵢᵢ. The remainder is
+// discarded instead when it is at most rankTol times the norm of column i of
+// R with this row included, ‖R[:,i]‖ = √(Aᵢᵢ): the same rule by which solve
+// and remove count a diagonal as zero, so add never creates a pivot that the
+// solve would drop (and with it the rest of the row, which the rotation would
+// have moved into row i). The test is relative to the column's own scale,
+// never to the row's: a feature of magnitude 10¹² beside the intercept leaves
+// the intercept's 1 intact. A remainder above the rule is always kept.
 func (q *sqrtInfo) add(x []float64, y float64) {
 	p := q.p
 	w := q.a
 	copy(w, x)
-	var xn float64
-	for _, v := range x {
-		xn += v * v
-	}
-	noise := rankTol * math.Sqrt(xn)
 	for i := 0; i < p; i++ {
 		wi := w[i]
 		ri := q.r[i*p : i*p+p]
 		a := ri[i]
-		// Where R has no pivot yet (a zero row) and the row's remainder is
-		// rounding noise, the column is a combination of earlier ones (one-hot
-		// buckets beside the intercept): rotating the noise in would move the
-		// rest of the row into this row of R, where the solve cannot use it.
-		if wi == 0 || a == 0 && math.Abs(wi) <= noise {
+		if wi == 0 || a == 0 && q.negligible(i, wi) {
 			continue
 		}
+		// The rotation [c s; −s c] with c = a/h, s = wᵢ/h, h = √(a² + wᵢ²),
+		// applied as (a·rᵢⱼ + wᵢ·wⱼ)/h and (a·wⱼ − wᵢ·rᵢⱼ)/h: each numerator is
+		// a two-term dot product rounded once (dot2), so the row's
+		// remainder keeps its relative accuracy however much cancels, and
+		// column i is eliminated exactly; the one rounding of 1/h scales
+		// each whole row alike, which leaves θ unchanged.
 		h := math.Sqrt(a*a + wi*wi)
-		c, s := a/h, wi/h
-		ri[i] = h
+		inv := 1 / h
+		ri[i] = dot2(a, a, wi, wi) * inv
 		for j := i + 1; j < p; j++ {
 			rij, wj := ri[j], w[j]
-			ri[j] = c*rij + s*wj
-			w[j] = c*wj - s*rij
+			ri[j] = dot2(a, rij, wi, wj) * inv
+			w[j] = dot2(a, wj, -wi, rij) * inv
 		}
 		zi := q.z[i]
-		q.z[i] = c*zi + s*y
-		y = c*y - s*zi
+		q.z[i] = dot2(a, zi, wi, y) * inv
+		y = dot2(a, y, -wi, zi) * inv
 	}
+}
+
+// dot2 returns a·b + c·d rounded about once: the product c·d is split
+// exactly into its rounded value and its error with a fused multiply-add, an
+// error-free transformation (Ogita, Rump & Oishi 2005, "Accurate sum and dot
+// product", SIAM J. Sci. Comput. 26(6):1955–1988; the same as Kahan's
+// algorithm for a 2×2 determinant). Cost 4 flops.
+func dot2(a, b, c, d float64) float64 {
+	p := c * d
+	e := math.FMA(c, d, -p)
+	return math.FMA(a, b, p) + e
+}
+
+// negligible reports whether a remainder wi in column i, whose row of R is
+// empty, is at most rankTol·√(‖R[0:i, i]‖² + wi²) (see add). Cost O(i); it
+// runs only while row i of R has no pivot.
+func (q *sqrtInfo) negligible(i int, wi float64) bool {
+	p := q.p
+	col := wi * wi
+	for k := 0; k < i; k++ {
+		col += q.r[k*p+i] * q.r[k*p+i]
+	}
+	return math.Abs(wi) <= rankTol*math.Sqrt(col)
 }
 
 // remove takes the row (x, y) out: A −= xxᵀ, b −= x·y, by dchdd. It returns

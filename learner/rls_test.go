@@ -410,3 +410,51 @@ func TestSlidingRLSOnScenarioMatchesMinimumNorm(t *testing.T) {
 		n++
 	}
 }
+
+// TestRankRuleUsesColumnScale is the regression test for issue 10's first
+// defect: with no prior, a feature of magnitude ~10¹² beside the intercept
+// made the intercept's 1 look like rounding noise relative to the row's
+// norm, so the intercept was never fitted (prequential MAE ≈ 31 where least
+// squares gives ≈ 0.09). Rows y = 100 + 1e-10·bytes + 2·alpha + N(0, 0.1²);
+// the reference is gonum's least squares (QR) on the same rows.
+func TestRankRuleUsesColumnScale(t *testing.T) {
+	rng := rand.New(rand.NewPCG(10, 1))
+	const n = 3000
+	var us [][]float64
+	var ys []float64
+	for i := 0; i < n; i++ {
+		bytes := 1e12 * (1 + rng.Float64())
+		alpha := rng.NormFloat64()
+		us = append(us, []float64{1, alpha, bytes}) // features in name order: alpha, bytes
+		ys = append(ys, 100+1e-10*bytes+2*alpha+0.1*rng.NormFloat64())
+	}
+	for _, spec := range []string{"rls:p0=inf", "sliding-rls:window=5000"} {
+		s, err := ParseSpec(spec)
+		if err != nil {
+			t.Fatal(err)
+		}
+		m := New(&s, 2)
+		var sumAbs float64
+		scored := 0
+		for i, u := range us {
+			if p, ok := m.Predict(u[1:]); ok && i >= 100 {
+				sumAbs += math.Abs(ys[i] - p)
+				scored++
+			}
+			m.Learn(u[1:], ys[i], 0)
+		}
+		want := batchLS(t, us, ys)
+		got := m.(Coefficients).Coefficients(nil)
+		// Compared per coefficient, each relative to itself: the intercept is
+		// 100, the bytes coefficient 1e-10.
+		for i := range want {
+			if e := math.Abs(got[i]-want[i]) / math.Abs(want[i]); !(e < 1e-6) {
+				t.Errorf("%s: coefficient %d = %.10g, least squares %.10g (relative error %.2g)", spec, i, got[i], want[i], e)
+			}
+		}
+		// Noise N(0, 0.1²) has mean absolute value 0.1·√(2/π) ≈ 0.08.
+		if mae := sumAbs / float64(scored); !(mae < 0.1) {
+			t.Errorf("%s: prequential MAE %.3g after the first 100 events, want about 0.08", spec, mae)
+		}
+	}
+}
