@@ -4,6 +4,8 @@ import (
 	"encoding/binary"
 	"fmt"
 	"math"
+
+	"tidemark/window"
 )
 
 // encoder appends a deterministic little-endian encoding: fixed-width
@@ -38,6 +40,7 @@ type decoder struct {
 	b   []byte
 	off int
 	err error
+	ver uint32 // the state version being read
 }
 
 func (r *decoder) fail(what string) {
@@ -137,4 +140,36 @@ func (r *decoder) expect(v int, what string) {
 	if got := r.int(); got != v && r.err == nil {
 		r.fail(fmt.Sprintf("%s is %d, want %d", what, got, v))
 	}
+}
+
+// encodeMoments writes a window.Moments (state version 5 on).
+func encodeMoments(w *encoder, m *window.Moments) {
+	st := m.State()
+	w.i64(st.N)
+	w.f64(st.Shift)
+	for _, s := range [2]window.SumState{st.S1, st.S2} {
+		w.f64(s.Hi)
+		w.f64(s.Lo)
+		w.f64(s.Bound)
+	}
+}
+
+// decodeMoments reads what encodeMoments wrote; before state version 5 the
+// fields were Welford's n, mean and M2, which the shifted form holds exactly
+// (shift = mean, S1 = 0, S2 = M2). Owners rebuild such moments from their
+// window, since Welford's removal may have left them inexact.
+func decodeMoments(r *decoder, m *window.Moments) {
+	var st window.MomentsState
+	st.N = r.i64()
+	st.Shift = r.f64()
+	if r.ver >= 5 {
+		st.S1 = window.SumState{Hi: r.f64(), Lo: r.f64(), Bound: r.f64()}
+		st.S2 = window.SumState{Hi: r.f64(), Lo: r.f64(), Bound: r.f64()}
+	} else {
+		st.S2 = window.SumState{Hi: r.f64()}
+	}
+	if st.N < 0 {
+		r.fail("negative count")
+	}
+	m.SetState(st)
 }

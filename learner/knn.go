@@ -15,9 +15,9 @@ import (
 //	dist(x, q) = sqrt( Σⱼ ((xⱼ − qⱼ)/sⱼ)² )
 //
 // where sⱼ = 1 with scale=none, and with scale=zscore sⱼ is the population
-// standard deviation of feature j over the window's current contents (1 when
-// that deviation is zero: a constant feature then counts in raw units,
-// common practice). With weight=inverse the targets are weighted by 1/dist
+// standard deviation of feature j over the window's current contents, the
+// query excluded (1 when that deviation is zero: a feature constant in the
+// window then counts in raw units, as a standard scaler does). With weight=inverse the targets are weighted by 1/dist
 // (Shepard 1968, "A two-dimensional interpolation function for irregularly-
 // spaced data", Proc. ACM national conference); when some neighbours are at
 // distance 0 the prediction is the mean of those alone. If the window holds
@@ -25,10 +25,14 @@ import (
 // favour of the more recent event. Targets are summed nearest first.
 //
 // The window is a count, a span of event time, or all events up to a memory
-// cap (see rows). The per-feature running moments are updated by Welford's
-// add and remove as events enter and leave, and rebuilt from the window's
-// contents after every window-length of evictions so that rounding cannot
-// accumulate.
+// cap (see rows); "more recent" is later in the window's order (arrival for
+// a count, event time for a span). An event already older than a time
+// window's bound on arrival is predicted and scored but not stored (Late
+// counts it); after a gap longer than the window the window is empty and the
+// next event goes unscored. The per-feature moments (window.Moments) follow
+// events in and out exactly and are rebuilt from the window's contents when
+// their rounding bound grows past window.RelTol, so the scales equal a fresh
+// two-pass computation over the window.
 //
 // Cost: Predict O(n·d + n·k) worst case for n events in the window, usually
 // O(n·d) since few candidates enter the k best; Learn O(d) amortised.
@@ -37,8 +41,8 @@ type KNN struct {
 	d       int
 	w       rows
 	moms    []window.Moments
-	evicted int // evictions since the moments were last rebuilt
 	trained int64
+	late    int64 // events older than the time window on arrival, not stored
 
 	inv  []float64  // scratch: 1/sⱼ² for the current predict
 	best []neighbor // scratch: the k best, nearest first
@@ -65,10 +69,19 @@ func newKNN(cfg KNNConfig, d int) *KNN {
 // Advance implements Learner.
 func (m *KNN) Advance(t int64) {
 	m.w.advance(t)
+	evicted := false
 	for s, ok := m.w.popExpired(); ok; s, ok = m.w.popExpired() {
 		m.forget(s)
+		evicted = true
+	}
+	if evicted {
+		m.settle()
 	}
 }
+
+// Late returns the number of events that were older than the time window's
+// bound on arrival and so were not stored.
+func (m *KNN) Late() int64 { return m.late }
 
 // Trained implements Learner.
 func (m *KNN) Trained() int64 { return m.trained }
@@ -185,6 +198,10 @@ func (m *KNN) Learn(x []float64, y float64, t int64) {
 		panic(badDim)
 	}
 	m.Advance(t)
+	if m.w.late(t) {
+		m.late++
+		return
+	}
 	if s, ok := m.w.makeRoom(); ok {
 		m.forget(s)
 	}
@@ -193,9 +210,7 @@ func (m *KNN) Learn(x []float64, y float64, t int64) {
 		for j, v := range x {
 			m.moms[j].Add(v)
 		}
-		if m.evicted >= max(m.w.idx.Size(), 1) {
-			m.rebuild()
-		}
+		m.settle()
 	}
 	m.trained++
 }
@@ -208,41 +223,50 @@ func (m *KNN) forget(s int) {
 	for j, v := range m.w.row(s) {
 		m.moms[j].Remove(v)
 	}
-	m.evicted++
 }
 
-// rebuild recomputes the moments from the window's contents.
-func (m *KNN) rebuild() {
+// settle rebuilds the moments of every feature whose rounding bound has grown
+// past window.RelTol (after a huge value left, or the window moved far from
+// the moments' shift). Cost O(d) when none does, O(n) per rebuilt feature.
+func (m *KNN) settle() {
 	for j := range m.moms {
-		m.moms[j].Reset()
-	}
-	for i := 0; i < m.w.len(); i++ {
-		for j, v := range m.w.row(m.w.idx.Slot(i)) {
-			m.moms[j].Add(v)
+		if m.moms[j].Imprecise() {
+			m.rebuild(j)
 		}
 	}
-	m.evicted = 0
+}
+
+// rebuild recomputes feature j's moments from the window's contents.
+func (m *KNN) rebuild(j int) {
+	d := m.d
+	m.moms[j].Rebuild(m.w.len(), func(i int) float64 { return m.w.x[m.w.idx.Slot(i)*d+j] })
 }
 
 func (m *KNN) encode(w *encoder) {
 	w.i64(m.trained)
-	w.int(m.evicted)
+	w.i64(m.late)
 	m.w.encode(w)
 	for i := range m.moms {
-		n, mean, m2 := m.moms[i].State()
-		w.i64(n)
-		w.f64(mean)
-		w.f64(m2)
+		encodeMoments(w, &m.moms[i])
 	}
 }
 
 func (m *KNN) decode(r *decoder) error {
 	m.trained = r.i64()
-	m.evicted = r.int()
+	if r.ver >= 5 {
+		m.late = r.i64()
+	} else {
+		r.i64() // evictions since the last rebuild
+	}
 	m.w.decode(r)
 	for i := range m.moms {
-		n, mean, m2 := r.i64(), r.f64(), r.f64()
-		m.moms[i].SetState(n, mean, m2)
+		decodeMoments(r, &m.moms[i])
+	}
+	if r.ver < 5 && m.cfg.Scale == ScaleZScore {
+		// Older states kept Welford moments; rebuild them from the window.
+		for j := range m.moms {
+			m.rebuild(j)
+		}
 	}
 	return r.err
 }

@@ -6,15 +6,18 @@ import "tidemark/window"
 // those within Span of event time, or all (the default). It is the baseline
 // every learner's skill is measured against: 1 − rmse/rmse_mean.
 //
-// The running mean is Welford's (window.Moments) with removal, rebuilt from
-// the window after every window-length of evictions. Cost O(1) amortised.
-// Ready once the window holds an event.
+// The running mean is window.Moments, which follows targets in and out
+// exactly and is rebuilt from the window when its rounding bound grows past
+// window.RelTol (after a huge target leaves). Cost O(1) amortised. Ready once
+// the window holds an event; after a gap longer than a time window the
+// window is empty and the next event goes unscored. A target older than a
+// time window's bound on arrival is not stored (Late counts it).
 type Mean struct {
 	cfg     MeanConfig
 	w       rows // d = 0: targets and times only; unused for All
 	m       window.Moments
-	evicted int
 	trained int64
+	late    int64
 }
 
 var _ Learner = (*Mean)(nil)
@@ -33,10 +36,19 @@ func (m *Mean) Advance(t int64) {
 		return
 	}
 	m.w.advance(t)
+	evicted := false
 	for s, ok := m.w.popExpired(); ok; s, ok = m.w.popExpired() {
-		m.drop(s)
+		m.m.Remove(m.w.y[s])
+		evicted = true
+	}
+	if evicted {
+		m.settle()
 	}
 }
+
+// Late returns the number of targets that were older than the time window's
+// bound on arrival and so were not stored.
+func (m *Mean) Late() int64 { return m.late }
 
 // Trained implements Learner.
 func (m *Mean) Trained() int64 { return m.trained }
@@ -51,38 +63,43 @@ func (m *Mean) Predict([]float64) (float64, bool) {
 
 // Learn implements Learner.
 func (m *Mean) Learn(_ []float64, y float64, t int64) {
-	m.trained++
 	if m.cfg.Window.All {
+		// Cumulative: nothing leaves, so the compensated sums stay exact
+		// to their final rounding and need no rebuild.
+		m.trained++
 		m.m.Add(y)
 		return
 	}
 	m.Advance(t)
+	if m.w.late(t) {
+		m.late++
+		return
+	}
+	m.trained++
 	if s, ok := m.w.makeRoom(); ok {
-		m.drop(s)
+		m.m.Remove(m.w.y[s])
 	}
 	m.w.push(nil, y, t)
 	m.m.Add(y)
-	if m.evicted >= m.w.idx.Size() {
-		m.m.Reset()
-		for i := 0; i < m.w.len(); i++ {
-			m.m.Add(m.w.y[m.w.idx.Slot(i)])
-		}
-		m.evicted = 0
+	m.settle()
+}
+
+// settle rebuilds the moments from the window when their rounding bound has
+// grown past window.RelTol.
+func (m *Mean) settle() {
+	if m.m.Imprecise() {
+		m.rebuild()
 	}
 }
 
-func (m *Mean) drop(s int) {
-	m.m.Remove(m.w.y[s])
-	m.evicted++
+func (m *Mean) rebuild() {
+	m.m.Rebuild(m.w.len(), func(i int) float64 { return m.w.y[m.w.idx.Slot(i)] })
 }
 
 func (m *Mean) encode(w *encoder) {
 	w.i64(m.trained)
-	w.int(m.evicted)
-	n, mean, m2 := m.m.State()
-	w.i64(n)
-	w.f64(mean)
-	w.f64(m2)
+	w.i64(m.late)
+	encodeMoments(w, &m.m)
 	if !m.cfg.Window.All {
 		m.w.encode(w)
 	}
@@ -90,11 +107,17 @@ func (m *Mean) encode(w *encoder) {
 
 func (m *Mean) decode(r *decoder) error {
 	m.trained = r.i64()
-	m.evicted = r.int()
-	n, mean, m2 := r.i64(), r.f64(), r.f64()
-	m.m.SetState(n, mean, m2)
+	if r.ver >= 5 {
+		m.late = r.i64()
+	} else {
+		r.i64() // evictions since the last rebuild
+	}
+	decodeMoments(r, &m.m)
 	if !m.cfg.Window.All {
 		m.w.decode(r)
+		if r.ver < 5 && r.err == nil {
+			m.rebuild()
+		}
 	}
 	return r.err
 }

@@ -26,8 +26,14 @@ type LearnerReport struct {
 	// configured; nil without one or before both have scored.
 	Skill *float64    `json:"skill"`
 	Drift DriftReport `json:"drift"`
-	Keys  []KeyReport `json:"keys,omitempty"`
+	// Late counts the events that were already older than this learner's
+	// time window on arrival: scored, but not stored (0 without a time window).
+	Late int64       `json:"late"`
+	Keys []KeyReport `json:"keys,omitempty"`
 }
+
+// lateCounter is implemented by learners with a time window.
+type lateCounter interface{ Late() int64 }
 
 // KeyReport is a learner's metrics on one key.
 type KeyReport struct {
@@ -76,6 +82,9 @@ func (e *Engine) Report(withKeys bool) Report {
 		state := Stable
 		for _, ks := range keys {
 			state = max(state, ks.drift[i].State())
+			if l, ok := ks.learners[i].(lateCounter); ok {
+				lr.Late += l.Late()
+			}
 			if withKeys {
 				kr := KeyReport{Key: ks.key, Metrics: ks.scores[i].Metrics(), Drift: ks.drift[i].State().String()}
 				if e.baseline >= 0 {

@@ -14,8 +14,14 @@ import (
 // (Haykin, Adaptive Filter Theory, 4th ed., ch. 9; Ljung & Söderström,
 // Theory and Practice of Recursive Identification, 1983), with P(0) = p0·I,
 // p0 = +Inf meaning no prior. λ is fixed (forget, in (0, 1]; 1 is cumulative)
-// or, with half_life h, λ = 0.5^(Δt/h) for the event time Δt since the
-// previous event (λ = 1 for the first event and for a Δt ≤ 0).
+// or, with half_life h, λ = 0.5^(Δt/h) where Δt is how far the event moves
+// the newest event time seen (λ = 1 for the first event and for an event at
+// or before the newest time). Forgetting thus follows the advance of event
+// time only, never its arrival order: with Tᵢ the newest time seen once
+// event i has arrived, the weight of event i after n events is
+// 0.5^((Tₙ − Tᵢ)/h) and the prior's is 0.5^((Tₙ − T₁)/h); an event that
+// arrives late is weighted as if it had come at Tᵢ, and no interval of time
+// is ever decayed twice.
 //
 // The textbook recursion (gain k = Pu/(λ + uᵀPu), θ ← θ + k(y − uᵀθ),
 // P ← (P − kuᵀP)/λ) propagates P = A⁻¹ and loses every digit on
@@ -37,7 +43,7 @@ type RLS struct {
 	theta   []float64
 	u       []float64 // scratch
 	trained int64
-	last    int64 // event time of the previous Learn
+	last    int64 // newest event time seen by Learn
 	hasLast bool
 	rankDef int // dependent columns at the last solve
 }
@@ -85,7 +91,9 @@ func (m *RLS) Learn(x []float64, y float64, t int64) {
 		if m.hasLast && t > m.last {
 			lambda = math.Pow(0.5, float64(t-m.last)/float64(m.cfg.HalfLife/time.Nanosecond))
 		}
-		m.last, m.hasLast = t, true
+		if !m.hasLast || t > m.last {
+			m.last, m.hasLast = t, true
+		}
 	}
 	if lambda != 1 {
 		m.qr.scale(math.Sqrt(lambda))

@@ -7,10 +7,13 @@ import "tidemark/window"
 // (slot s occupies x[s*d:(s+1)*d]) so that a scan over the window streams
 // through memory. Its bookkeeping is a window.Index.
 //
-// Bounds: a Count window holds the last Count rows, storage allocated up
-// front; a Span window holds rows no older than newest − Span (newest = the
-// latest event time seen), and an All window every row, both up to max rows,
-// storage doubling from a small start.
+// Bounds: a Count window holds the last Count rows (in arrival order),
+// storage allocated up front; a Span window holds the rows whose time t
+// satisfies t ≥ newest − Span (inclusive; newest = the latest event time
+// seen), kept in order of event time (rows of equal time in arrival order),
+// and an All window every row, both up to max rows, storage doubling from a
+// small start. A row that arrives late is inserted at its place in time; one
+// already older than the bound on arrival is not stored (late reports it).
 type rows struct {
 	d      int
 	x      []float64
@@ -52,8 +55,16 @@ func (r *rows) advance(t int64) {
 	}
 }
 
+// late reports whether a row at time t lies outside a time window's bound on
+// arrival (t < newest − Span, once the clock has moved to t): it would be
+// evicted at once, so it is not stored.
+func (r *rows) late(t int64) bool {
+	return r.span != 0 && r.seen && t < r.newest-r.span
+}
+
 // popExpired removes the oldest row if a time window no longer covers it and
-// returns its slot, readable until the next push.
+// returns its slot, readable until the next push. Rows of a time window are
+// in time order, so the oldest is the first.
 func (r *rows) popExpired() (slot int, ok bool) {
 	if r.span == 0 || r.idx.Len() == 0 {
 		return 0, false
@@ -89,12 +100,25 @@ func (r *rows) grow(size int) {
 	r.idx.Restore(size, old.idx.Len())
 }
 
-// push stores a row in the slot makeRoom freed and returns that slot.
-func (r *rows) push(x []float64, y float64, t int64) int {
+// push stores a row in the slot makeRoom freed. In a time window a row older
+// than the newest held moves back to its place in time, after the rows of
+// the same time: cost O(d) per row it passes, nothing for rows in order.
+func (r *rows) push(x []float64, y float64, t int64) {
 	s := r.idx.Push()
+	i := r.idx.Len() - 1
+	if r.span != 0 {
+		for ; i > 0; i-- {
+			prev := r.idx.Slot(i - 1)
+			if r.t[prev] <= t {
+				break
+			}
+			copy(r.row(s), r.row(prev))
+			r.y[s], r.t[s] = r.y[prev], r.t[prev]
+			s = prev
+		}
+	}
 	copy(r.row(s), x)
 	r.y[s], r.t[s] = y, t
-	return s
 }
 
 func (r *rows) encode(w *encoder) {

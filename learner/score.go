@@ -45,9 +45,11 @@ func (c ScoreConfig) withDefaults() ScoreConfig {
 //	E_α(i) = S_α(i)/B_α(i),  S_α(i) = L_i + α·S_α(i−1),  B_α(i) = 1 + α·B_α(i−1)
 //
 // with L = |e| for the fading MAE and L = e² for the fading RMSE (which is
-// √E_α). The windowed sums are rebuilt from the window every window-length
-// of evictions, so they stay exact to rounding. Sums over all events are
-// plain running sums, in event order.
+// √E_α). The windowed sums are compensated (window.Sum): an error that leaves
+// the window is subtracted exactly, however large it was, and the sums are
+// rebuilt from the window if their rounding bound ever exceeds window.RelTol
+// of their scale, so recent figures equal a fresh computation over the
+// window. Sums over all events are plain running sums, in event order.
 //
 // A learner's overall metrics pool its keys' scorers (see pooled): they
 // depend only on each key's events in order, never on how the partitions of
@@ -63,8 +65,7 @@ type Scorer struct {
 	rec                      []float64 // recent errors e, ring storage growing to recMax
 	idx                      window.Index
 	recMax                   int
-	recAbs, recSq, recErr    float64
-	recEvicted               int
+	recAbs, recSq, recErr    window.Sum
 	alpha                    float64
 	fadAbs, fadSq, fadWeight float64
 
@@ -111,7 +112,7 @@ func (s *Scorer) Score(target, prediction float64) {
 	e := target - prediction
 	if n := s.idx.Len(); n >= MinIntervalEvents {
 		s.intervals++
-		if math.Abs(e) <= IntervalZ*math.Sqrt(math.Max(s.recSq, 0)/float64(n)) {
+		if math.Abs(e) <= IntervalZ*math.Sqrt(math.Max(s.recSq.Value(), 0)/float64(n)) {
 			s.covered++
 		}
 	}
@@ -120,27 +121,40 @@ func (s *Scorer) Score(target, prediction float64) {
 	s.sumSq += e * e
 	s.sumErr += e
 	if old, ok := s.pushRecent(e); ok {
-		s.recAbs -= math.Abs(old)
-		s.recSq -= old * old
-		s.recErr -= old
-		s.recEvicted++
+		s.recAbs.Sub(math.Abs(old))
+		s.recSq.Sub(old * old)
+		s.recErr.Sub(old)
 	}
-	s.recAbs += math.Abs(e)
-	s.recSq += e * e
-	s.recErr += e
-	if s.recEvicted >= s.recMax {
-		s.recAbs, s.recSq, s.recErr = 0, 0, 0
-		for i := 0; i < s.idx.Len(); i++ {
-			v := s.rec[s.idx.Slot(i)]
-			s.recAbs += math.Abs(v)
-			s.recSq += v * v
-			s.recErr += v
-		}
-		s.recEvicted = 0
+	s.recAbs.Add(math.Abs(e))
+	s.recSq.Add(e * e)
+	s.recErr.Add(e)
+	if s.recentImprecise() {
+		s.rebuildRecent()
 	}
 	s.fadAbs = math.Abs(e) + s.alpha*s.fadAbs
 	s.fadSq = e*e + s.alpha*s.fadSq
 	s.fadWeight = 1 + s.alpha*s.fadWeight
+}
+
+// recentImprecise reports whether a recent sum's rounding bound exceeds
+// window.RelTol of its scale (Σ|e| for Σ|e| and Σe, Σe² for itself).
+func (s *Scorer) recentImprecise() bool {
+	abs := s.recAbs.Value()
+	return s.recAbs.Bound() > window.RelTol*abs || s.recErr.Bound() > window.RelTol*abs ||
+		s.recSq.Bound() > window.RelTol*s.recSq.Value()
+}
+
+// rebuildRecent recomputes the recent sums from the recent window. O(n).
+func (s *Scorer) rebuildRecent() {
+	s.recAbs.Reset()
+	s.recSq.Reset()
+	s.recErr.Reset()
+	for i := 0; i < s.idx.Len(); i++ {
+		v := s.rec[s.idx.Slot(i)]
+		s.recAbs.Add(math.Abs(v))
+		s.recSq.Add(v * v)
+		s.recErr.Add(v)
+	}
 }
 
 // Unscore records an event the learner was not ready to predict.
@@ -208,9 +222,9 @@ func (p *pooled) add(s *Scorer) {
 	p.sumSq += s.sumSq
 	p.sumErr += s.sumErr
 	p.recN += s.idx.Len()
-	p.recAbs += s.recAbs
-	p.recSq += s.recSq
-	p.recErr += s.recErr
+	p.recAbs += s.recAbs.Value()
+	p.recSq += s.recSq.Value()
+	p.recErr += s.recErr.Value()
 	p.fadAbs += s.fadAbs
 	p.fadSq += s.fadSq
 	p.fadWeight += s.fadWeight
@@ -247,10 +261,12 @@ func (s *Scorer) encode(w *encoder) {
 	for i := 0; i < s.idx.Len(); i++ {
 		w.f64(s.rec[s.idx.Slot(i)])
 	}
-	w.f64(s.recAbs)
-	w.f64(s.recSq)
-	w.f64(s.recErr)
-	w.int(s.recEvicted)
+	for _, sum := range [3]*window.Sum{&s.recAbs, &s.recSq, &s.recErr} {
+		st := sum.State()
+		w.f64(st.Hi)
+		w.f64(st.Lo)
+		w.f64(st.Bound)
+	}
 	w.f64(s.fadAbs)
 	w.f64(s.fadSq)
 	w.f64(s.fadWeight)
@@ -268,8 +284,18 @@ func (s *Scorer) decode(r *decoder, version uint32) {
 		s.rec[i] = r.f64()
 	}
 	s.idx.Restore(size, n)
-	s.recAbs, s.recSq, s.recErr = r.f64(), r.f64(), r.f64()
-	s.recEvicted = r.int()
+	if version >= 5 {
+		for _, sum := range [3]*window.Sum{&s.recAbs, &s.recSq, &s.recErr} {
+			sum.SetState(window.SumState{Hi: r.f64(), Lo: r.f64(), Bound: r.f64()})
+		}
+	} else {
+		// Plain sums and an eviction count: rebuild from the window.
+		r.f64()
+		r.f64()
+		r.f64()
+		r.int()
+		s.rebuildRecent()
+	}
 	s.fadAbs, s.fadSq, s.fadWeight = r.f64(), r.f64(), r.f64()
 	if version >= 4 {
 		s.intervals, s.covered = r.i64(), r.i64()

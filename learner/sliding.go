@@ -16,6 +16,10 @@ package learner
 //   - at once whenever a downdate reports that the downdated matrix would not
 //     be positive definite.
 //
+// A time window holds the events with t ≥ newest − Span (see rows); an
+// event already older than that on arrival is predicted and scored but not
+// stored (Late counts it), and Trained does not count it.
+//
 // Cost per event O(p²) amortised; memory the window's rows, n·p floats.
 // Ready once the window holds at least p events (and it has trained on p).
 // Dependent columns get coefficient 0, as for RLS.
@@ -27,6 +31,7 @@ type SlidingRLS struct {
 	theta   []float64
 	u       []float64
 	trained int64
+	late    int64 // events older than the time window on arrival, not stored
 	evicted int
 	stale   bool // a downdate failed: refactorise before solving
 	rankDef int
@@ -59,6 +64,10 @@ func (m *SlidingRLS) Advance(t int64) {
 // Trained implements Learner.
 func (m *SlidingRLS) Trained() int64 { return m.trained }
 
+// Late returns the number of events that were older than the time window's
+// bound on arrival and so were not stored.
+func (m *SlidingRLS) Late() int64 { return m.late }
+
 // Refactorisations returns how many times the factor was rebuilt from the window.
 func (m *SlidingRLS) Refactorisations() int64 { return m.refacts }
 
@@ -78,6 +87,11 @@ func (m *SlidingRLS) Learn(x []float64, y float64, t int64) {
 	m.w.advance(t)
 	for s, ok := m.w.popExpired(); ok; s, ok = m.w.popExpired() {
 		m.drop(s)
+	}
+	if m.w.late(t) {
+		m.late++
+		m.refresh()
+		return
 	}
 	if s, ok := m.w.makeRoom(); ok {
 		m.drop(s)
@@ -126,6 +140,7 @@ func (m *SlidingRLS) Coefficients(dst []float64) []float64 {
 
 func (m *SlidingRLS) encode(w *encoder) {
 	w.i64(m.trained)
+	w.i64(m.late)
 	w.int(m.evicted)
 	w.i64(m.refacts)
 	m.w.encode(w)
@@ -134,6 +149,9 @@ func (m *SlidingRLS) encode(w *encoder) {
 
 func (m *SlidingRLS) decode(r *decoder) error {
 	m.trained = r.i64()
+	if r.ver >= 5 {
+		m.late = r.i64()
+	}
 	m.evicted = r.int()
 	m.refacts = r.i64()
 	m.w.decode(r)

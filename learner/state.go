@@ -31,8 +31,11 @@ const (
 	// stateVersion 2 added the skipped counter; 3 dropped the per-learner
 	// scorer across keys (overall metrics are pooled from the keys). Versions
 	// 1 and 2 are still read.
-	// 4 added interval coverage to the per-key scorers.
-	stateVersion = 4
+	// 4 added interval coverage to the per-key scorers. 5 keeps windowed
+	// sums compensated (window.Sum, window.Moments) with their rounding
+	// bounds, and counts late events per windowed learner; older moments are
+	// rebuilt from their windows on decode.
+	stateVersion = 5
 	maxNames     = MaxFeatures
 	maxSections  = 1 << 20
 )
@@ -243,7 +246,7 @@ func (e *Engine) decodeGlobal(b []byte) error {
 }
 
 func (e *Engine) decodePartition(s Section) error {
-	r := &decoder{b: s.Bytes}
+	r := &decoder{b: s.Bytes, ver: e.stateVer}
 	if string(r.take(len(partitionMagic))) != partitionMagic {
 		return fmt.Errorf("%w: bad magic in the section of partition %d", ErrCorruptState, s.Partition)
 	}

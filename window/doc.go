@@ -1,10 +1,13 @@
 // Package window keeps bounded windows over a stream: the bookkeeping of a
-// count-bounded ring, a generic ring of values, an event-time-bounded window and
-// running moments that support both adding and removing a value.
+// count-bounded ring, a generic ring of values, an event-time-bounded window,
+// and running sums and moments that support both adding and removing a value
+// without rounding error building up (compensated, with a rounding bound that
+// tells the owner when to rebuild from the window's contents).
 //
 // Invariants, for every type here:
 //   - bounds are fixed at construction;
-//   - the oldest element is evicted first, and elements keep arrival order;
+//   - the oldest element is evicted first; elements keep arrival order, except
+//     in an event-time window, which keeps them in order of time;
 //   - nothing here reads a clock: time comes only from the values pushed.
 //
 // None of the types is safe for concurrent use; the owner serialises access.

@@ -1,9 +1,11 @@
 package window
 
 // Timed is an event-time-bounded window of values: after a push at time t it
-// holds only the values whose time is at least newest − span, where newest is
-// the latest time pushed so far (a value that arrives out of order keeps its
-// place in arrival order and is evicted once it is older than newest − span).
+// holds only the values whose time is at least newest − span (inclusive),
+// where newest is the latest time pushed so far. Values are kept in order of
+// time (equal times in arrival order): one that arrives out of order is
+// inserted at its place, and one already older than newest − span on arrival
+// is not stored (Push reports it).
 // A count cap bounds its memory: pushing onto a window that already holds cap
 // values evicts the oldest one whatever its time. Storage starts small and
 // doubles up to cap, so a window that only ever holds a few values stays small.
@@ -59,10 +61,16 @@ func (w *Timed[T]) Advance(t int64, evict func(T)) {
 	}
 }
 
-// Push advances the clock to t, evicting as Advance does, then appends v. If
-// the window holds cap values the oldest is evicted first.
-func (w *Timed[T]) Push(t int64, v T, evict func(T)) {
+// Push advances the clock to t, evicting as Advance does, then inserts v at
+// its place in time; it returns false, storing nothing, when t is already
+// older than newest − span. If the window holds cap values the oldest is
+// evicted first. Cost O(1) for a value in order, plus one move per newer
+// value it passes.
+func (w *Timed[T]) Push(t int64, v T, evict func(T)) bool {
 	w.Advance(t, evict)
+	if t < w.newest-w.span {
+		return false
+	}
 	if w.idx.Full() {
 		if w.idx.Size() < w.cap {
 			w.grow()
@@ -74,7 +82,16 @@ func (w *Timed[T]) Push(t int64, v T, evict func(T)) {
 		}
 	}
 	s := w.idx.Push()
+	for i := w.idx.Len() - 1; i > 0; i-- {
+		prev := w.idx.Slot(i - 1)
+		if w.times[prev] <= t {
+			break
+		}
+		w.vals[s], w.times[s] = w.vals[prev], w.times[prev]
+		s = prev
+	}
 	w.vals[s], w.times[s] = v, t
+	return true
 }
 
 func (w *Timed[T]) grow() {

@@ -62,16 +62,18 @@ func TestTimedEvictsOlderThanNewestMinusSpan(t *testing.T) {
 	ev := func(s string) { evicted = append(evicted, s) }
 	w.Push(0, "a", ev)
 	w.Push(5, "b", ev)
-	w.Push(3, "late", ev) // out of order: kept in arrival order
+	w.Push(3, "late", ev) // out of order: inserted at its place in time, before "b"
 	w.Push(10, "c", ev)   // limit 0: "a" (t=0) stays, since 0 ≥ 10−10
-	w.Push(14, "d", ev)   // limit 4: "a" and "late" (t=3) go, in arrival order
-	if got := fmt.Sprint(evicted); got != "[a]" {
-		// "a" is oldest; "late" is behind "b" (t=5 ≥ 4), so it waits.
-		t.Errorf("evicted %s, want [a]", got)
+	w.Push(14, "d", ev)   // limit 4: "a" and "late" (t=3) go, oldest first
+	if got := fmt.Sprint(evicted); got != "[a late]" {
+		t.Errorf("evicted %s, want [a late]", got)
 	}
-	w.Push(16, "e", ev) // limit 6: "b" (5) goes, then "late" (3)
-	if got := fmt.Sprint(evicted); got != "[a b late]" {
-		t.Errorf("evicted %s, want [a b late]", got)
+	if w.Push(2, "too late", ev) {
+		t.Error("a value older than newest − span on arrival was stored")
+	}
+	w.Push(16, "e", ev) // limit 6: "b" (5) goes
+	if got := fmt.Sprint(evicted); got != "[a late b]" {
+		t.Errorf("evicted %s, want [a late b]", got)
 	}
 	if w.Len() != 3 {
 		t.Errorf("Len %d, want 3", w.Len())
@@ -153,4 +155,55 @@ func ExampleRing() {
 	old, evicted := r.Push("c")
 	fmt.Println(old, evicted, r.At(0), r.At(1))
 	// Output: a true b c
+}
+
+// TestMomentsConstantAfterRemoval is issue 10's second defect at its root: a
+// window whose values become all equal has variance exactly 0, even after
+// other values have left it (Welford's removal left ~1e-34).
+func TestMomentsConstantAfterRemoval(t *testing.T) {
+	var m Moments
+	for _, x := range []float64{0.1, 0.1, 0.1, 0.1, 0.1} {
+		m.Add(x)
+	}
+	m.Add(0.3)
+	m.Remove(0.3)
+	if v := m.PopVariance(); v != 0 {
+		t.Errorf("variance of five 0.1s after 0.3 left: %g, want exactly 0", v)
+	}
+	// A window that was never constant and becomes constant at another value
+	// is reported imprecise; the rebuild makes the variance exactly 0.
+	var w Moments
+	vals := []float64{5, 0.1, 0.1, 0.1}
+	for _, x := range vals {
+		w.Add(x)
+	}
+	w.Remove(5)
+	if !w.Imprecise() && w.PopVariance() != 0 {
+		t.Errorf("variance %g and not imprecise", w.PopVariance())
+	}
+	w.Rebuild(3, func(i int) float64 { return vals[i+1] })
+	if w.PopVariance() != 0 || w.Mean() != 0.1 || w.Imprecise() {
+		t.Errorf("after rebuild: variance %g mean %v imprecise %v, want 0, 0.1, false", w.PopVariance(), w.Mean(), w.Imprecise())
+	}
+}
+
+// TestSumHugeValueLeaves: a value 1e20 times larger (its unit in the last place is 16384) than the rest enters and
+// leaves; the sum of what remains is exact to the last bit. Hand check: the
+// remaining values are 1000 copies of 0.5 and 1000 of −0.25, sum 250.
+func TestSumHugeValueLeaves(t *testing.T) {
+	var s Sum
+	s.Add(1e20)
+	for i := 0; i < 1000; i++ {
+		s.Add(0.5)
+		s.Add(-0.25)
+	}
+	s.Sub(1e20)
+	if s.Value() != 250 {
+		t.Errorf("sum %v, want 250", s.Value())
+	}
+	// The bound is what an owner compares with the sum's scale: here it
+	// stays far below 1e-9 of the remaining sum, so no rebuild is asked for.
+	if s.Bound() > 1e-9*250 {
+		t.Errorf("bound %g", s.Bound())
+	}
 }
