@@ -141,13 +141,16 @@ type PredictAnswer struct {
 	Scored     int64     `json:"events_scored"`
 }
 
-// PredictResponse is the body of a predict answer.
+// PredictResponse is the body of a predict answer. A one-row request is
+// answered with the row's fields at the top level (the embedded
+// PredictAnswer); a {"rows": […]} request with predictions, one per row in
+// order, and no top-level row fields.
 type PredictResponse struct {
 	Learner     string          `json:"learner"`
 	Checkpoint  uint64          `json:"checkpoint_version"`
 	Events      int64           `json:"events_applied"`
 	Predictions []PredictAnswer `json:"predictions,omitempty"`
-	PredictAnswer
+	*PredictAnswer
 	Caution string `json:"caution"`
 }
 
@@ -212,7 +215,7 @@ func (s *Service) handlePredict(c echo.Context) error {
 			a.Interval = &Interval{Low: p.Value - 1.96**p.RecentRMSE, High: p.Value + 1.96**p.RecentRMSE}
 		}
 		if single {
-			resp.PredictAnswer = a
+			resp.PredictAnswer = &a
 		} else {
 			resp.Predictions = append(resp.Predictions, a)
 		}

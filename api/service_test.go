@@ -574,3 +574,35 @@ func TestListenFailureIsReported(t *testing.T) {
 		t.Fatal("Run did not return after a failed listen")
 	}
 }
+
+// TestPredictRowsAnswerHasNoStrayRow: a {"rows": […]} answer carries its
+// answers under predictions only; a one-row request carries its answer at
+// the top level and no predictions (issue 10, defect 5: a multi-row answer
+// also carried "key":"","prediction":0 at the top level).
+func TestPredictRowsAnswerHasNoStrayRow(t *testing.T) {
+	lines := scenario(t, 1)
+	r := start(t, testConfig(t, t.TempDir()))
+	r.post(t, "", lines)
+	r.waitCovered(t, int64(len(lines)))
+	row := `{"key":"room-a","time":"2026-03-02T12:00:00Z","features":{"outdoor_c":14.2,"door_min":2,"shift":"day"}}`
+	code, b := r.call(t, "POST", "/v1/predict", "", []byte(`{"learner":"mean:window=50","rows":[`+row+`,`+row+`]}`))
+	if code != 200 {
+		t.Fatalf("rows: %d %s", code, b)
+	}
+	var m map[string]any
+	json.Unmarshal(b, &m)
+	for _, k := range []string{"key", "prediction", "interval", "recent_rmse", "events_trained", "events_scored"} {
+		if _, ok := m[k]; ok {
+			t.Errorf("a rows answer has a top-level %q: %s", k, b)
+		}
+	}
+	if ps, _ := m["predictions"].([]any); len(ps) != 2 {
+		t.Errorf("a rows answer has %d predictions, want 2: %s", len(ps), b)
+	}
+	code, b = r.call(t, "POST", "/v1/predict", "", []byte(`{"learner":"mean:window=50","key":"room-a","time":"2026-03-02T12:00:00Z","features":{"outdoor_c":14.2,"door_min":2,"shift":"day"}}`))
+	m = nil
+	json.Unmarshal(b, &m)
+	if code != 200 || m["key"] != "room-a" || m["prediction"] == nil || m["predictions"] != nil {
+		t.Errorf("one row: %d %s", code, b)
+	}
+}
