@@ -34,7 +34,11 @@ func (q *sqrtInfo) reset(diag float64) {
 	}
 }
 
-// scale multiplies R and z by s: A and b are scaled by s².
+// scale multiplies R and z by s: A and b are scaled by s². An entry that
+// falls below flushRel of its row's diagonal is set to 0: it can no longer
+// change θ by a rounding unit, and without the flush an entry whose exact
+// value is 0 (z of a stream the model fits exactly) would decay under
+// forgetting into subnormal numbers, which run ten times slower.
 func (q *sqrtInfo) scale(s float64) {
 	p := q.p
 	for i := 0; i < p; i++ {
@@ -43,8 +47,22 @@ func (q *sqrtInfo) scale(s float64) {
 			row[j] *= s
 		}
 		q.z[i] *= s
+		tiny := flushRel * math.Abs(row[0])
+		for j := 1; j < len(row); j++ {
+			if math.Abs(row[j]) < tiny {
+				row[j] = 0
+			}
+		}
+		if math.Abs(q.z[i]) < tiny {
+			q.z[i] = 0
+		}
 	}
 }
+
+// flushRel is the size relative to its row's diagonal below which scale sets
+// an entry of R or z to 0: 2⁻¹²⁰ ≈ 7.5e-37, the square of the unit roundoff
+// and then some, far below anything that reaches θ.
+const flushRel = 0x1p-120
 
 // add appends the row (x, y): A += xxᵀ, b += x·y. x is not modified.
 //

@@ -158,4 +158,38 @@ func (r *rows) decode(dec *decoder) {
 		r.t[i] = dec.i64()
 	}
 	r.idx.Restore(size, n)
+	if r.span != 0 && dec.err == nil && !r.timeOrdered(n) {
+		if dec.ver >= 5 {
+			dec.fail("time window out of time order")
+			return
+		}
+		// Before state version 5 a time window kept late rows in arrival
+		// order; put them in time order (stably). Rows older than the
+		// window's bound leave at the next Advance.
+		r.sortByTime(n)
+	}
+}
+
+func (r *rows) timeOrdered(n int) bool {
+	for i := 1; i < n; i++ {
+		if r.t[i] < r.t[i-1] {
+			return false
+		}
+	}
+	return true
+}
+
+// sortByTime orders the first n slots (slot i = the i-th oldest, as decode
+// leaves them) by time, stably, by insertion. Only for old states.
+func (r *rows) sortByTime(n int) {
+	tmp := make([]float64, r.d)
+	for i := 1; i < n; i++ {
+		for j := i; j > 0 && r.t[j] < r.t[j-1]; j-- {
+			copy(tmp, r.row(j))
+			copy(r.row(j), r.row(j-1))
+			copy(r.row(j-1), tmp)
+			r.y[j], r.y[j-1] = r.y[j-1], r.y[j]
+			r.t[j], r.t[j-1] = r.t[j-1], r.t[j]
+		}
+	}
 }

@@ -116,23 +116,35 @@ func (m *Moments) Merge(o Moments) {
 // Imprecise reports whether rounding may have moved the mean by more than
 // RelTol of (|mean| + standard deviation), or M2 by more than RelTol of M2;
 // the owner should then Rebuild. It is false for an exact zero variance.
+// Cost: about 20 flops and one division, no square root.
 func (m *Moments) Imprecise() bool {
 	if m.n == 0 {
 		return false
 	}
 	n := float64(m.n)
+	inv := 1 / n
 	s1, s2 := m.s1.Value(), m.s2.Value()
-	m2 := math.Max(s2-s1*s1/n, 0)
+	q := s1 * s1 * inv
+	m2 := s2 - q
+	if m2 < 0 {
+		m2 = 0
+	}
 	// M2's error: the sums' bounds, the rounding of x − K and (x − K)²
-	// (about 3u·S2), and of the final subtraction.
-	e2 := m.s2.bound + 2*math.Abs(s1)/n*m.s1.bound + 4*unitRoundoff*(s2+s1*s1/n)
+	// (about 3u·S2), and of the final subtraction. The u·Σ|x − K| part of
+	// the mean's error is covered here too: it exceeds RelTol of the mean's
+	// scale only when K lies thousands of deviations from the mean, where
+	// 4u·S2 has long exceeded RelTol·M2.
+	e2 := m.s2.bound + 2*math.Abs(s1)*inv*m.s1.bound + 4*unitRoundoff*(s2+q)
 	if e2 > RelTol*m2 {
 		return true
 	}
-	// The mean's error: S1's bound and the rounding of each x − K, at most
-	// u·Σ|x − K| ≤ u·√(n·S2), over n.
-	em := (m.s1.bound + unitRoundoff*math.Sqrt(n*s2)) / n
-	return em > RelTol*(math.Abs(m.Mean())+math.Sqrt(m2/n))
+	if m.s1.bound == 0 {
+		return false
+	}
+	// The mean's error S1.bound/n against RelTol·(|mean| + √(M2/n)), in a
+	// form without a square root: b > tol·n·|mean| + tol·√(n·M2).
+	r := m.s1.bound - RelTol*n*math.Abs(m.shift+s1*inv)
+	return r > 0 && r*r > RelTol*RelTol*n*m2
 }
 
 // Reset empties the set.
