@@ -72,10 +72,12 @@ func (s *Service) handleDashboard(c echo.Context) error {
 		data.Rows = append(data.Rows, dashRow{Name: l.Name, Kind: l.Kind, Drift: l.Drift.State, Scored: l.Scored, Alarms: l.Drift.Alarms,
 			RecentRMSE: l.Recent.RMSE, RecentMAE: l.Recent.MAE, RMSE: l.RMSE, Skill: l.Skill, Spark: sparkline(pts)})
 	}
-	if vs, err := s.store.Versions(); err == nil {
-		for i := len(vs) - 1; i >= 0 && len(data.Checkpoints) < 10; i-- {
-			if m, err := s.store.ReadManifest(vs[i]); err == nil {
-				data.Checkpoints = append(data.Checkpoints, checkpoint.Info{Version: m.Version, Created: m.Created, Reason: m.Reason, Events: m.Events})
+	// The store's listing reads each manifest once and keeps it: a refresh
+	// costs a directory read, not ten checkpoint files.
+	if list, err := s.store.List(); err == nil {
+		for i := len(list) - 1; i >= 0 && len(data.Checkpoints) < 10; i-- {
+			if list[i].Error == "" {
+				data.Checkpoints = append(data.Checkpoints, list[i])
 			}
 		}
 	}

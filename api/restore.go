@@ -189,22 +189,31 @@ func (s *Service) restore(v uint64, req RestoreRequest) cmdResult {
 		}
 		return cmdResult{err: errors.New(msg), code: 409}
 	}
-	if err := s.adopt(c); err != nil {
+	// The restored state is built beside the live one and becomes live only
+	// once the checkpoint recording it is durable: a restore happens as a
+	// whole or not at all.
+	eng, err := learner.NewEngine(s.eng.Config())
+	if err != nil {
+		return cmdResult{err: err, code: 500}
+	}
+	if err := s.decodeInto(eng, c); err != nil {
 		return cmdResult{err: err, code: 409}
 	}
-	s.skip = nil
-	switch mode {
-	case ResumeFromNow:
-		s.eng.CoverUpTo(live)
-	case ResumeSkip:
+	if mode == ResumeFromNow {
+		eng.CoverUpTo(live)
+	}
+	prevEng, prevSkip, prevAlarms := s.eng, s.skip, s.lastAlarms
+	s.eng, s.skip, s.lastAlarms = eng, nil, eng.Alarms()
+	if mode == ResumeSkip {
 		s.skip = rule
 	}
-	info := c.Info
 	if err := s.checkpoint(checkpoint.Manual, v); err != nil {
-		s.cfg.Log.Error("restore: could not record the restore in a checkpoint", "error", err)
-	} else {
-		info = s.lastCk
+		s.eng, s.skip, s.lastAlarms = prevEng, prevSkip, prevAlarms
+		s.cfg.Log.Error("restore not done: the checkpoint recording it could not be written; the state is unchanged", "version", v, "error", err)
+		return cmdResult{err: fmt.Errorf("restore of checkpoint %d not done: the checkpoint recording it could not be written (%v); "+
+			"the service goes on from its state before this request", v, err), code: 503}
 	}
+	info := s.lastCk
 	s.cfg.Log.Warn("restored", "version", v, "resume", mode.String())
 	s.setCatchUp()
 	s.startSource()

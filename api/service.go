@@ -203,14 +203,22 @@ func (s *Service) restoreLatest() error {
 
 // adopt decodes checkpoint c into the engine after checking its configuration.
 func (s *Service) adopt(c *checkpoint.Checkpoint) error {
-	if want := s.eng.Config().Digest(); c.Manifest.ConfigSHA256 != want {
-		return fmt.Errorf("%w: checkpoint %d in %s was taken under another configuration of learners or features; "+
-			"start with the same settings, or point --data at another directory", ErrResume, c.Manifest.Version, s.store.Dir())
-	}
-	if err := s.eng.DecodeSections(FromCheckpoint(c.Sections)); err != nil {
-		return fmt.Errorf("checkpoint %d: %w", c.Manifest.Version, err)
+	if err := s.decodeInto(s.eng, c); err != nil {
+		return err
 	}
 	s.lastAlarms = s.eng.Alarms()
+	return nil
+}
+
+// decodeInto decodes checkpoint c into eng after checking its configuration.
+func (s *Service) decodeInto(eng *learner.Engine, c *checkpoint.Checkpoint) error {
+	if want := eng.Config().Digest(); c.Manifest.ConfigSHA256 != want {
+		return fmt.Errorf("%w: checkpoint %d was taken under another configuration of learners or features; "+
+			"start with the same settings, or point --data at another directory", ErrResume, c.Manifest.Version)
+	}
+	if err := eng.DecodeSections(FromCheckpoint(c.Sections)); err != nil {
+		return fmt.Errorf("checkpoint %d: %w", c.Manifest.Version, err)
+	}
 	return nil
 }
 

@@ -47,9 +47,23 @@
 // to a temporary file (".tmp-" in its name), is synced, renamed into place, and
 // the directory is synced: a crash leaves either the old set or the new file,
 // never a partial one under a checkpoint name. Temporary files left by a crash
-// are ignored and removed when the store opens. A pin is an empty file
-// ckpt-<version>.pin. Retention keeps the newest StoreConfig.Retain versions and
-// every pinned one. The directory is created 0700 and files 0600.
+// are ignored by every reader.
+//
+// Ownership. A store opened for writing holds a shared advisory lock on the
+// file LOCK in its directory until Close. Only a writer that can first take
+// that lock exclusively — no other writer has the store open — removes
+// temporary files, so a file in flight is never taken from under its writer;
+// the lock ends with its holder's process, so a crashed writer's leftovers
+// go to the next writer that opens the store alone. A store opened read-only
+// (StoreConfig.ReadOnly) creates, locks and removes nothing: the inspecting
+// commands use it beside a running service.
+//
+// A pin is a file ckpt-<version>.pin (holding why it was pinned). Retention
+// keeps the newest StoreConfig.Retain versions and every pinned one. The
+// directory is created 0700 and files 0600. List reads manifests only (file
+// structure and CRC checked, state not decompressed) and keeps what it read
+// per version until the file changes; Load, Latest and Verify check
+// everything.
 //
 // A Store is safe for concurrent use.
 package checkpoint

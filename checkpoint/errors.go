@@ -17,4 +17,10 @@ var (
 	ErrTooLarge = errors.New("checkpoint: state too large")
 	// ErrNotFound: no checkpoint of that version, or none at all.
 	ErrNotFound = errors.New("checkpoint: not found")
+	// ErrNoStore: a read-only open found no store directory.
+	ErrNoStore = errors.New("checkpoint: no store")
+	// ErrReadOnly: a change was asked of a store opened read-only.
+	ErrReadOnly = errors.New("checkpoint: store opened read-only")
+	// ErrLocked: a lock is held by another process.
+	ErrLocked = errors.New("checkpoint: locked by another process")
 )

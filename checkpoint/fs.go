@@ -2,6 +2,7 @@ package checkpoint
 
 import (
 	"io"
+	"io/fs"
 	"os"
 	"path/filepath"
 )
@@ -12,10 +13,13 @@ type FS interface {
 	MkdirAll(dir string) error            // create with mode 0700
 	ReadDir(dir string) ([]string, error) // names in the directory
 	ReadFile(path string) ([]byte, error) //
+	Stat(path string) (fs.FileInfo, error)
 	Create(path string) (File, error)     // new file, mode 0600, failing if it exists
 	Rename(oldpath, newpath string) error //
 	Remove(path string) error             //
 	SyncDir(dir string) error             // make renames and removals in dir durable
+	// Lock takes an advisory lock without waiting (see OSFS.Lock).
+	Lock(path string, exclusive bool) (Locker, error)
 }
 
 // File is a file being written.
@@ -49,6 +53,9 @@ func (OSFS) ReadDir(dir string) ([]string, error) {
 // ReadFile implements FS.
 func (OSFS) ReadFile(path string) ([]byte, error) { return os.ReadFile(path) }
 
+// Stat implements FS.
+func (OSFS) Stat(path string) (fs.FileInfo, error) { return os.Stat(path) }
+
 // Create implements FS.
 func (OSFS) Create(path string) (File, error) {
 	return os.OpenFile(path, os.O_WRONLY|os.O_CREATE|os.O_EXCL, 0o600)
@@ -68,4 +75,18 @@ func (OSFS) SyncDir(dir string) error {
 	}
 	defer d.Close()
 	return d.Sync()
+}
+
+// Lock takes an advisory lock on the file at path, creating it empty (mode
+// 0600) if missing: exclusive, or shared with other shared holders. It does
+// not wait: when another holder prevents it, the error wraps ErrLocked.
+// Closing the returned Locker releases the lock; so does the end of the
+// process, however it ends (a crashed writer holds nothing).
+func (OSFS) Lock(path string, exclusive bool) (Locker, error) { return lockFile(path, exclusive) }
+
+// Locker is a held lock.
+type Locker interface {
+	// Share turns an exclusive lock into a shared one without letting go.
+	Share() error
+	Close() error
 }

@@ -30,6 +30,10 @@ type StoreConfig struct {
 	MaxRawBytes int64            // limit on a checkpoint's decoded state. Default: DefaultMaxRawBytes.
 	FS          FS               // Default: OSFS.
 	Now         func() time.Time // clock for Manifest.Created. Default: time.Now.
+	// ReadOnly opens the store for inspection: it creates nothing, removes
+	// nothing and takes no lock, and Write, Pin and Unpin return ErrReadOnly.
+	// A missing directory is ErrNoStore. Default: false.
+	ReadOnly bool
 }
 
 // Validate reports every problem with c. It changes nothing.
@@ -89,20 +93,47 @@ type Checkpoint struct {
 // Store is a directory of versioned checkpoints. See the package doc for the
 // guarantees. Safe for concurrent use.
 type Store struct {
-	cfg StoreConfig
-	mu  sync.Mutex
-	enc *zstd.Encoder
-	dec *zstd.Decoder
+	cfg  StoreConfig
+	mu   sync.Mutex
+	enc  *zstd.Encoder
+	dec  *zstd.Decoder
+	lock Locker // shared while open for writing; nil when read-only
+
+	listMu sync.Mutex
+	listed map[uint64]listed // manifests read for List, by version
 }
 
-// OpenStore opens (creating if need be) the store in cfg.Dir and removes
-// temporary files a crash left behind.
+// listed is a version's Info as List read it, with the file's size and
+// modification time then: a file is never rewritten in place, and one that
+// changes (damage, an operator's copy) is read again.
+type listed struct {
+	info  Info
+	size  int64
+	mtime time.Time
+}
+
+// lockName is the file writers lock (see OpenStore).
+const lockName = "LOCK"
+
+// OpenStore opens the store in cfg.Dir. Open for writing, it creates the
+// directory if need be and holds a shared lock on its LOCK file until Close;
+// a writer that can first take the lock exclusively — no other writer has the
+// store open — removes the temporary files a crash left behind. A read-only
+// open (cfg.ReadOnly) changes nothing at all, so inspecting commands are safe
+// beside a running service.
 func OpenStore(cfg StoreConfig) (*Store, error) {
 	if err := cfg.Validate(); err != nil {
 		return nil, err
 	}
 	cfg.setDefaults()
-	if err := cfg.FS.MkdirAll(cfg.Dir); err != nil {
+	if cfg.ReadOnly {
+		if _, err := cfg.FS.ReadDir(cfg.Dir); err != nil {
+			if errors.Is(err, fs.ErrNotExist) {
+				return nil, fmt.Errorf("%w in %s: the directory does not exist", ErrNoStore, cfg.Dir)
+			}
+			return nil, fmt.Errorf("checkpoint: %w", err)
+		}
+	} else if err := cfg.FS.MkdirAll(cfg.Dir); err != nil {
 		return nil, fmt.Errorf("checkpoint: %w", err)
 	}
 	enc, err := zstd.NewWriter(nil, zstd.WithEncoderConcurrency(1), zstd.WithEncoderLevel(zstd.SpeedDefault))
@@ -113,24 +144,69 @@ func OpenStore(cfg StoreConfig) (*Store, error) {
 	if err != nil {
 		return nil, fmt.Errorf("checkpoint: %w", err)
 	}
-	s := &Store{cfg: cfg, enc: enc, dec: dec}
-	names, err := cfg.FS.ReadDir(cfg.Dir)
-	if err != nil {
-		return nil, fmt.Errorf("checkpoint: %w", err)
+	s := &Store{cfg: cfg, enc: enc, dec: dec, listed: map[uint64]listed{}}
+	if cfg.ReadOnly {
+		return s, nil
 	}
-	for _, n := range names {
-		if strings.HasPrefix(n, filePrefix) && strings.Contains(n, tmpMark) {
-			cfg.FS.Remove(filepath.Join(cfg.Dir, n)) // a crash's leftover; failing to remove it is harmless
+	lockPath := filepath.Join(cfg.Dir, lockName)
+	l, err := cfg.FS.Lock(lockPath, true)
+	switch {
+	case err == nil:
+		s.cleanTemporary()
+		if err := l.Share(); err != nil {
+			l.Close()
+			s.Close()
+			return nil, fmt.Errorf("checkpoint: lock %s: %w", lockPath, err)
 		}
+	case errors.Is(err, ErrLocked):
+		// Another writer has the store open: its temporary files may be in
+		// flight, so leave them. Its exclusive hold, if any, lasts only
+		// while it cleans up.
+		for i := 0; ; i++ {
+			if l, err = cfg.FS.Lock(lockPath, false); err == nil || !errors.Is(err, ErrLocked) || i == 100 {
+				break
+			}
+			time.Sleep(10 * time.Millisecond)
+		}
+		if err != nil {
+			s.Close()
+			return nil, fmt.Errorf("checkpoint: lock %s: %w", lockPath, err)
+		}
+	default:
+		s.Close()
+		return nil, fmt.Errorf("checkpoint: lock %s: %w", lockPath, err)
 	}
+	s.lock = l
 	return s, nil
 }
 
-// Close releases the compressors.
+// cleanTemporary removes the temporary files of writes a crash interrupted.
+// Only a writer holding the exclusive lock calls it.
+func (s *Store) cleanTemporary() {
+	names, err := s.cfg.FS.ReadDir(s.cfg.Dir)
+	if err != nil {
+		return
+	}
+	for _, n := range names {
+		if strings.HasPrefix(n, filePrefix) && strings.Contains(n, tmpMark) {
+			s.cfg.FS.Remove(filepath.Join(s.cfg.Dir, n)) // failing to remove it is harmless
+		}
+	}
+}
+
+// Close releases the compressors and the lock.
 func (s *Store) Close() error {
 	s.dec.Close()
-	return s.enc.Close()
+	err := s.enc.Close()
+	if s.lock != nil {
+		err = errors.Join(err, s.lock.Close())
+		s.lock = nil
+	}
+	return err
 }
+
+// ReadOnly reports whether the store was opened read-only.
+func (s *Store) ReadOnly() bool { return s.cfg.ReadOnly }
 
 // Dir returns the store's directory.
 func (s *Store) Dir() string { return s.cfg.Dir }
@@ -185,6 +261,9 @@ func (s *Store) scan() ([]uint64, map[uint64]bool, error) {
 // included — earlier versions are untouched, no partial file is left under
 // a checkpoint name, and the error says what failed.
 func (s *Store) Write(m Manifest, secs []Section) (Info, error) {
+	if s.cfg.ReadOnly {
+		return Info{}, fmt.Errorf("%w: cannot write a checkpoint in %s", ErrReadOnly, s.cfg.Dir)
+	}
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	vs, pins, err := s.scan()
@@ -223,7 +302,9 @@ func (s *Store) Write(m Manifest, secs []Section) (Info, error) {
 	}
 	vs = append(vs, m.Version)
 	s.retain(vs, pins)
-	return info(&m, name, int64(len(b)), pins[m.Version]), nil
+	in := info(&m, name, int64(len(b)), pins[m.Version])
+	s.remember(in)
+	return in, nil
 }
 
 func (s *Store) writeFile(path string, b []byte) error {
@@ -294,6 +375,7 @@ func (s *Store) load(v uint64, only []int32) (*Checkpoint, error) {
 	}
 	c, err := s.decode(name, b, only)
 	if err != nil {
+		s.forget(v)
 		return nil, err
 	}
 	if c.Manifest.Version != v {
@@ -304,7 +386,43 @@ func (s *Store) load(v uint64, only []int32) (*Checkpoint, error) {
 		return nil, err
 	}
 	c.Info = info(&c.Manifest, name, int64(len(b)), pins[v])
+	if only == nil {
+		s.remember(c.Info)
+	}
 	return c, nil
+}
+
+// remember caches a version's Info for List, with the file's current size
+// and modification time.
+func (s *Store) remember(in Info) {
+	st, err := s.cfg.FS.Stat(filepath.Join(s.cfg.Dir, in.File))
+	if err != nil {
+		return
+	}
+	s.listMu.Lock()
+	s.listed[in.Version] = listed{in, st.Size(), st.ModTime()}
+	s.listMu.Unlock()
+}
+
+func (s *Store) forget(v uint64) {
+	s.listMu.Lock()
+	delete(s.listed, v)
+	s.listMu.Unlock()
+}
+
+// cached returns a version's cached Info if its file is unchanged.
+func (s *Store) cached(v uint64) (Info, bool) {
+	s.listMu.Lock()
+	l, ok := s.listed[v]
+	s.listMu.Unlock()
+	if !ok {
+		return Info{}, false
+	}
+	st, err := s.cfg.FS.Stat(filepath.Join(s.cfg.Dir, l.info.File))
+	if err != nil || st.Size() != l.size || !st.ModTime().Equal(l.mtime) {
+		return Info{}, false
+	}
+	return l.info, true
 }
 
 // decode verifies a checkpoint file's bytes and decompresses its sections
@@ -337,9 +455,54 @@ func (s *Store) decode(name string, b []byte, only []int32) (*Checkpoint, error)
 	return c, nil
 }
 
-// List returns every checkpoint in the store, oldest first, each verified as
-// Load does; a file that fails has only Version, File and Error set.
+// List returns every checkpoint in the store, oldest first, from its
+// manifest: the file's structure and CRC-32C are checked, its state is not
+// decompressed (Load and Verify do that). A file that fails has only Version,
+// File and Error set. A version's Info is read once and kept (a file is never
+// rewritten in place), so listing again costs a directory read.
 func (s *Store) List() ([]Info, error) {
+	vs, pins, err := s.scan()
+	if err != nil {
+		return nil, err
+	}
+	out := make([]Info, 0, len(vs))
+	for _, v := range vs {
+		in, ok := s.cached(v)
+		if !ok {
+			name := FileName(v)
+			b, err := s.cfg.FS.ReadFile(filepath.Join(s.cfg.Dir, name))
+			if errors.Is(err, fs.ErrNotExist) {
+				continue // removed by retention since the scan
+			}
+			if err == nil {
+				var p *parsed
+				if p, err = parseFile(name, b, s.cfg.MaxRawBytes); err == nil {
+					in = info(&p.manifest, name, int64(len(b)), false)
+					s.remember(in)
+				}
+			}
+			if err != nil {
+				s.forget(v)
+				out = append(out, Info{Version: v, File: name, Error: err.Error()})
+				continue
+			}
+		}
+		in.Pinned = pins[v]
+		out = append(out, in)
+	}
+	s.listMu.Lock()
+	for v := range s.listed {
+		if !slices.Contains(vs, v) {
+			delete(s.listed, v)
+		}
+	}
+	s.listMu.Unlock()
+	return out, nil
+}
+
+// Verify loads every version completely, as Load does, and returns each
+// one's Info; a file that fails has only Version, File and Error set.
+func (s *Store) Verify() ([]Info, error) {
 	vs, _, err := s.scan()
 	if err != nil {
 		return nil, err
@@ -380,6 +543,9 @@ func (s *Store) Pin(v uint64) error { return s.PinFor(v, "") }
 // PinFor pins version v and records why (kept in the pin file; "drift" for
 // the automatic pin before a drift alarm, "" for an operator's).
 func (s *Store) PinFor(v uint64, why string) error {
+	if s.cfg.ReadOnly {
+		return fmt.Errorf("%w: cannot pin in %s", ErrReadOnly, s.cfg.Dir)
+	}
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	vs, pins, err := s.scan()
@@ -421,6 +587,9 @@ func (s *Store) Pins() (map[uint64]string, error) {
 
 // Unpin lets retention remove version v again.
 func (s *Store) Unpin(v uint64) error {
+	if s.cfg.ReadOnly {
+		return fmt.Errorf("%w: cannot unpin in %s", ErrReadOnly, s.cfg.Dir)
+	}
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	err := s.cfg.FS.Remove(filepath.Join(s.cfg.Dir, pinName(v)))

@@ -251,8 +251,14 @@ func TestDiskFullLeavesEarlierVersionsIntact(t *testing.T) {
 	if !errors.Is(err, syscall.ENOSPC) || !strings.Contains(err.Error(), "version 2") {
 		t.Fatalf("write on a full disk: %v, want ENOSPC naming version 2", err)
 	}
-	names, _ := os.ReadDir(dir)
-	if len(names) != 1 || names[0].Name() != FileName(1) {
+	var names []string // besides the writers' LOCK file
+	ents, _ := os.ReadDir(dir)
+	for _, e := range ents {
+		if e.Name() != lockName {
+			names = append(names, e.Name())
+		}
+	}
+	if len(names) != 1 || names[0] != FileName(1) {
 		t.Errorf("directory holds %v, want only version 1", names)
 	}
 	if c, _, err := s.Latest(); err != nil || c.Manifest.Version != 1 {
@@ -277,9 +283,49 @@ func TestLeftoverTempFileIgnoredAndCleaned(t *testing.T) {
 	if len(list) != 1 {
 		t.Errorf("list shows %d checkpoints, want 1 (the temp file is not one)", len(list))
 	}
+	// While a writer has the store open, its temporary files may be in
+	// flight: neither a read-only open nor a second writer touches them.
+	openTest(t, StoreConfig{Dir: dir, ReadOnly: true})
+	second := openTest(t, StoreConfig{Dir: dir})
+	if _, err := os.Stat(tmp); err != nil {
+		t.Errorf("temp file removed while a writer had the store open: %v", err)
+	}
+	second.Close()
+	// Once no writer has it open, the next writer cleans up.
+	s.Close()
 	openTest(t, StoreConfig{Dir: dir})
 	if _, err := os.Stat(tmp); !os.IsNotExist(err) {
 		t.Errorf("temp file still there after reopening: %v", err)
+	}
+}
+
+// TestReadOnlyChangesNothing: a read-only open of a missing directory fails
+// with ErrNoStore and creates nothing; on a store it refuses every change.
+func TestReadOnlyChangesNothing(t *testing.T) {
+	missing := filepath.Join(t.TempDir(), "nothing-here")
+	if _, err := OpenStore(StoreConfig{Dir: missing, ReadOnly: true}); !errors.Is(err, ErrNoStore) {
+		t.Errorf("read-only open of a missing directory: %v, want ErrNoStore", err)
+	}
+	if _, err := os.Stat(missing); !os.IsNotExist(err) {
+		t.Errorf("read-only open created %s", missing)
+	}
+	dir := t.TempDir()
+	w := openTest(t, StoreConfig{Dir: dir})
+	w.Write(manifest(1), testSections(1))
+	w.Close()
+	os.Remove(filepath.Join(dir, lockName))
+	r := openTest(t, StoreConfig{Dir: dir, ReadOnly: true})
+	if _, err := r.Write(manifest(2), testSections(1)); !errors.Is(err, ErrReadOnly) {
+		t.Errorf("write on a read-only store: %v", err)
+	}
+	if err := r.Pin(1); !errors.Is(err, ErrReadOnly) {
+		t.Errorf("pin on a read-only store: %v", err)
+	}
+	if list, err := r.List(); err != nil || len(list) != 1 {
+		t.Errorf("list: %v %v", list, err)
+	}
+	if _, err := os.Stat(filepath.Join(dir, lockName)); !os.IsNotExist(err) {
+		t.Error("a read-only open created the LOCK file")
 	}
 }
 

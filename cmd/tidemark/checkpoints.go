@@ -39,7 +39,11 @@ func runCheckpoints(args []string, stdout, stderr io.Writer) error {
 		}
 		return v, nil
 	}
-	store, err := checkpoint.OpenStore(checkpoint.StoreConfig{Dir: dir})
+	// Inspecting commands open the store read-only: they create, remove and
+	// lock nothing, so they are safe beside a running service. Pin and unpin
+	// change it, as a writer that shares the store.
+	readOnly := sub == "list" || sub == "show" || sub == "verify"
+	store, err := checkpoint.OpenStore(checkpoint.StoreConfig{Dir: dir, ReadOnly: readOnly})
 	if err != nil {
 		return err
 	}
@@ -91,7 +95,7 @@ func runCheckpoints(args []string, stdout, stderr io.Writer) error {
 				info = c.Info
 			}
 			list = []checkpoint.Info{info}
-		} else if list, err = store.List(); err != nil {
+		} else if list, err = store.Verify(); err != nil {
 			return err
 		}
 		if len(list) == 0 {
