@@ -47,7 +47,8 @@ func (s *Service) newHTTP() *http.Server {
 	e.GET("/v1/checkpoints", s.handleCheckpoints)
 	e.POST("/v1/checkpoints", s.handleTakeCheckpoint, auth)
 	e.POST("/v1/checkpoints/:version/restore", s.handleRestore, auth)
-	e.GET("/healthz", func(c echo.Context) error { return c.JSON(http.StatusOK, map[string]string{"status": "ok"}) })
+	e.POST("/v1/intake/skip-damaged", s.handleSkipDamaged, auth)
+	e.GET("/healthz", s.handleHealth)
 	e.GET("/readyz", s.handleReady)
 	e.GET("/metrics", echo.WrapHandler(s.metrics.handler()))
 	e.GET("/", s.handleDashboard)
@@ -98,6 +99,24 @@ func (s *Service) requireToken(next echo.HandlerFunc) echo.HandlerFunc {
 		}
 		return next(c)
 	}
+}
+
+// decodeJSONBody reads a JSON object body into v strictly: unknown fields
+// and anything after the object are refused with 400.
+func decodeJSONBody(c echo.Context, v any) error {
+	body, err := readBody(c)
+	if err != nil {
+		return err
+	}
+	dec := json.NewDecoder(bytes.NewReader(body))
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(v); err != nil {
+		return httpErr(http.StatusBadRequest, "the body is not the JSON object this endpoint takes: %v", err)
+	}
+	if _, err := dec.Token(); err != io.EOF {
+		return httpErr(http.StatusBadRequest, "the body has data after its JSON object; send one object")
+	}
+	return nil
 }
 
 func readBody(c echo.Context) ([]byte, error) {
@@ -241,6 +260,9 @@ func (s *Service) handleEvents(c echo.Context) error {
 	if s.journal == nil {
 		return httpErr(http.StatusConflict, "this service learns from Kafka; produce events to its topic instead of posting them")
 	}
+	if f := s.fault.Load(); f != nil {
+		return httpErr(http.StatusServiceUnavailable, "events refused: %s", f.message)
+	}
 	body, err := readBody(c)
 	if err != nil {
 		return err
@@ -269,6 +291,9 @@ func (s *Service) handleEvents(c echo.Context) error {
 	first, last, err := s.journal.Append(ok)
 	if err != nil {
 		s.metrics.journalFailures.Inc()
+		if s.vanished(err) {
+			return echo.NewHTTPError(http.StatusServiceUnavailable, "events refused: "+s.fault.Load().message).SetInternal(err)
+		}
 		return echo.NewHTTPError(http.StatusServiceUnavailable, "the events could not be stored durably and were not accepted; retry later").SetInternal(err)
 	}
 	s.metrics.eventsReceived.Add(float64(len(ok)))
@@ -375,7 +400,18 @@ func (s *Service) handleRestore(c echo.Context) error {
 	return c.JSON(http.StatusOK, RestoreResult{Restored: v, Resume: req.Resume, Checkpoint: res.info, Position: s.snap.Load().eng.Positions()})
 }
 
+func (s *Service) handleHealth(c echo.Context) error {
+	if f := s.fault.Load(); f != nil && f.kind == faultVanished {
+		return c.JSON(http.StatusServiceUnavailable, map[string]any{"status": "failing", "message": f.message})
+	}
+	return c.JSON(http.StatusOK, map[string]string{"status": "ok"})
+}
+
 func (s *Service) handleReady(c echo.Context) error {
+	if f := s.fault.Load(); f != nil {
+		return c.JSON(http.StatusServiceUnavailable, map[string]any{"ready": false, "message": f.message,
+			"since": f.since.UTC().Format(time.RFC3339)})
+	}
 	if s.kafka != nil {
 		if ok, since := s.kafka.Connected(); !ok {
 			msg := "the Kafka brokers are unreachable; reconnecting with backoff"

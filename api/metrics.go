@@ -18,6 +18,8 @@ type metrics struct {
 	eventsReceived     prometheus.Counter
 	journalFailures    prometheus.Counter
 	checkpointFailures prometheus.Counter
+	faults             *prometheus.CounterVec
+	lost               prometheus.Counter
 }
 
 func newMetrics(s *Service) *metrics {
@@ -30,7 +32,11 @@ func newMetrics(s *Service) *metrics {
 		Help: "POST /v1/events requests refused because the journal could not store them."})
 	m.checkpointFailures = prometheus.NewCounter(prometheus.CounterOpts{Name: "tidemark_checkpoint_failures_total",
 		Help: "Checkpoints that could not be written."})
-	m.reg.MustRegister(m.predictLatency, m.eventsReceived, m.journalFailures, m.checkpointFailures, &snapshotCollector{s})
+	m.faults = prometheus.NewCounterVec(prometheus.CounterOpts{Name: "tidemark_intake_faults_total",
+		Help: "Conditions of the data directory that stopped intake: vanished (journal files gone) or damage (a journal record cannot be read)."}, []string{"kind"})
+	m.lost = prometheus.NewCounter(prometheus.CounterOpts{Name: "tidemark_journal_lost_events_total",
+		Help: "Events given up because the journal was damaged, on the operator's request (POST /v1/intake/skip-damaged)."})
+	m.reg.MustRegister(m.predictLatency, m.eventsReceived, m.journalFailures, m.checkpointFailures, m.faults, m.lost, &snapshotCollector{s})
 	return m
 }
 
@@ -44,7 +50,7 @@ type snapshotCollector struct{ s *Service }
 var (
 	descApplied  = prometheus.NewDesc("tidemark_events_applied_total", "Events trained on.", nil, nil)
 	descRejected = prometheus.NewDesc("tidemark_events_rejected_total", "Events refused (bad input or schema), never trained on.", nil, nil)
-	descSkipped  = prometheus.NewDesc("tidemark_events_skipped_total", "Events passed over by a restore that skipped a range.", nil, nil)
+	descSkipped  = prometheus.NewDesc("tidemark_events_skipped_total", "Events passed over: by a restore that skipped a range, or lost to journal damage the operator skipped.", nil, nil)
 	descDead     = prometheus.NewDesc("tidemark_dead_letters_total", "Rejected stream events written to the dead-letter file since start.", nil, nil)
 	descRMSE     = prometheus.NewDesc("tidemark_learner_rmse", "Prequential RMSE of a learner over all scored events or the recent window.", []string{"learner", "window"}, nil)
 	descMAE      = prometheus.NewDesc("tidemark_learner_mae", "Prequential MAE of a learner over all scored events or the recent window.", []string{"learner", "window"}, nil)
@@ -58,11 +64,12 @@ var (
 	descLag      = prometheus.NewDesc("tidemark_intake_lag_events", "Events in the source not yet applied, per partition.", []string{"partition"}, nil)
 	descReady    = prometheus.NewDesc("tidemark_ready", "1 once restored and caught up with the stream.", nil, nil)
 	descConn     = prometheus.NewDesc("tidemark_intake_connected", "1 while the Kafka brokers answer (Kafka intake only).", nil, nil)
+	descStopped  = prometheus.NewDesc("tidemark_intake_stopped", "1 while a fault of the data directory stops intake (see /readyz for what and why).", nil, nil)
 )
 
 func (c *snapshotCollector) Describe(ch chan<- *prometheus.Desc) {
 	for _, d := range []*prometheus.Desc{descApplied, descRejected, descSkipped, descDead, descRMSE, descMAE, descSkill,
-		descScored, descDrift, descAlarms, descCkVer, descCkAge, descCkBytes, descLag, descReady, descConn} {
+		descScored, descDrift, descAlarms, descCkVer, descCkAge, descCkBytes, descLag, descReady, descConn, descStopped} {
 		ch <- d
 	}
 }
@@ -115,9 +122,13 @@ func (c *snapshotCollector) Collect(ch chan<- prometheus.Metric) {
 		}
 		gauge(descConn, conn)
 	}
-	ready := 0.0
-	if c.s.ready.Load() {
+	ready, stopped := 0.0, 0.0
+	if c.s.ready.Load() && c.s.fault.Load() == nil {
 		ready = 1
 	}
+	if c.s.fault.Load() != nil {
+		stopped = 1
+	}
 	gauge(descReady, ready)
+	gauge(descStopped, stopped)
 }

@@ -39,6 +39,7 @@ type Service struct {
 	snap  atomic.Pointer[snapshot]
 	cmds  chan command
 	ready atomic.Bool
+	fault atomic.Pointer[fault] // what stopped intake, or nil
 
 	// loop state
 	lastCk       checkpoint.Info
@@ -340,8 +341,14 @@ func (s *Service) startSource() {
 			for {
 				off, p, err := r.Next(ctx)
 				if err != nil {
-					if ctx.Err() == nil && !errors.Is(err, intake.ErrJournalClosed) {
-						s.cfg.Log.Error("journal read failed; intake stopped", "error", err)
+					var d *intake.DamageError
+					switch {
+					case ctx.Err() != nil || errors.Is(err, intake.ErrJournalClosed):
+					case errors.As(err, &d):
+						s.damaged(d)
+					default:
+						s.setFault(&fault{kind: faultDamage, message: fmt.Sprintf("the journal cannot be read: %v. Intake has stopped and new events are refused; "+
+							"put back the journal's files and restart", err)})
 					}
 					return
 				}
@@ -416,6 +423,9 @@ func (s *Service) loop(ctx context.Context) error {
 		case cmd := <-s.cmds:
 			cmd.reply <- cmd.run(s)
 		case <-tick.C:
+			if s.journal != nil && s.fault.Load() == nil {
+				s.vanished(s.journal.Check())
+			}
 			if s.sinceCk > 0 && time.Since(s.lastCkTime) >= s.cfg.CheckpointInterval {
 				if err := s.checkpoint(checkpoint.Periodic, 0); err != nil {
 					s.cfg.Log.Error("timed checkpoint failed; will retry", "error", err)

@@ -11,8 +11,10 @@ import (
 
 // FuzzJournalSegment opens a journal whose only segment holds arbitrary
 // bytes: it must either refuse with ErrJournalCorrupt or open (after cutting
-// a torn tail) and then read back exactly the records it reports durable —
-// never panic, hang or allocate past the record limit.
+// an invalid tail) and then read back, in order, every offset it reports
+// durable — each either read or named lost by a DamageError, after which a
+// reader started at its To goes on — never panic, hang or allocate past the
+// record limit.
 func FuzzJournalSegment(f *testing.F) {
 	dir := f.TempDir()
 	j, _ := OpenJournal(JournalConfig{Dir: dir})
@@ -23,6 +25,8 @@ func FuzzJournalSegment(f *testing.F) {
 	f.Add(good[:len(good)-3])
 	f.Add([]byte{})
 	f.Add([]byte{0xff, 0xff, 0xff, 0xff, 0, 0, 0, 0, 1, 0, 0, 0, 0, 0, 0, 0})
+	f.Add(good[recordHeader+len(`{"target":1}`):])                    // the first record lost: offsets start at 2
+	f.Add(append(append([]byte(nil), good...), make([]byte, 512)...)) // a zero tail
 	f.Fuzz(func(t *testing.T, seg []byte) {
 		dir := t.TempDir()
 		os.WriteFile(filepath.Join(dir, segName(1)), seg, 0o600)
@@ -35,11 +39,21 @@ func FuzzJournalSegment(f *testing.F) {
 		}
 		defer j.Close()
 		r := j.Reader(1)
-		defer r.Close()
+		defer func() { r.Close() }()
 		ctx, cancel := context.WithTimeout(context.Background(), time.Second)
 		defer cancel()
 		for off := int64(1); off <= j.Durable(); off++ {
 			got, _, err := r.Next(ctx)
+			var d *DamageError
+			if errors.As(err, &d) {
+				if d.From != off || d.To <= d.From || d.To > j.Durable()+1 {
+					t.Fatalf("at offset %d of %d durable: damage %v", off, j.Durable(), d)
+				}
+				r.Close()
+				r = j.Reader(d.To)
+				off = d.To - 1
+				continue
+			}
 			if err != nil || got != off {
 				t.Fatalf("record %d of %d durable: offset %d, %v", off, j.Durable(), got, err)
 			}

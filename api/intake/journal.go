@@ -28,9 +28,19 @@ import (
 // writes a batch of records and returns only once they are on stable storage
 // (fsync); concurrent appends share one fsync (group commit). Readers see
 // only records that are durable, so the engine never applies an event that a
-// crash could take back. On open, a torn final record (a crash mid-write) is
-// cut off the last segment and reported; a damaged record anywhere else is an
-// error that names the segment and byte offset.
+// crash could take back. On open, whatever follows the last valid record of
+// the last segment — a torn record from a crash mid-write, or zeros a power
+// cut left in a pre-extended page — is cut off and reported with its size.
+// Damage with valid records after it (in any segment) is not cut: a reader
+// that meets it returns a *DamageError naming the segment, the byte and
+// exactly which offsets cannot be read, and a reader started past those
+// offsets reads on.
+//
+// While open for writing, the journal checks before acknowledging a batch
+// that its segment file is still the one in its directory: a data directory
+// removed or moved under a running service makes Append fail with
+// ErrJournalVanished (and every later Append), never acknowledge events
+// written into a deleted file. Check runs the same test on demand.
 //
 // A Journal is safe for concurrent use.
 
@@ -44,6 +54,26 @@ const (
 // ErrJournalCorrupt marks damage in the journal other than a torn tail.
 var ErrJournalCorrupt = errors.New("intake: journal corrupt")
 
+// ErrJournalVanished: the open segment file is no longer in the journal's
+// directory (the directory was removed or moved).
+var ErrJournalVanished = errors.New("intake: journal files vanished")
+
+// DamageError is damage a reader met: the records from offset From up to
+// (not including) To cannot be read. It wraps ErrJournalCorrupt. A reader
+// started at To or later reads past it.
+type DamageError struct {
+	Segment string // file name
+	Byte    int64  // where the damage starts in it
+	From    int64  // first offset lost
+	To      int64  // first offset readable after it
+}
+
+func (e *DamageError) Error() string {
+	return fmt.Sprintf("%v: %s is damaged at byte %d: offsets %d to %d cannot be read", ErrJournalCorrupt, e.Segment, e.Byte, e.From, e.To-1)
+}
+
+func (e *DamageError) Unwrap() error { return ErrJournalCorrupt }
+
 var crcTable = crc32.MakeTable(crc32.Castagnoli)
 
 // Journal is the local append-only event log.
@@ -55,6 +85,8 @@ type Journal struct {
 	mu       sync.Mutex
 	cond     *sync.Cond
 	f        File
+	raw      *os.File // the open segment, for Check
+	rawPath  string
 	segStart int64 // first offset of the open segment
 	size     int64 // bytes in the open segment
 	next     int64 // offset the next record gets
@@ -144,35 +176,42 @@ func OpenJournal(cfg JournalConfig) (*Journal, error) {
 		return j, nil
 	}
 	last := segs[len(segs)-1]
-	good, lastOff, err := scanSegment(last.path, last.start)
-	if err != nil && !errors.Is(err, errTorn) {
-		return nil, err
+	b, err := os.ReadFile(last.path)
+	if err != nil {
+		return nil, fmt.Errorf("intake: journal: %w", err)
+	}
+	res := scanBytes(b, last.start)
+	good, lastOff := res.end, res.last
+	for _, d := range res.damage {
+		if cfg.Log != nil {
+			fmt.Fprintf(cfg.Log, "journal: %s is damaged at byte %d: offsets %d to %d cannot be read; valid records follow\n",
+				filepath.Base(last.path), d.byteAt, d.from, d.to-1)
+		}
 	}
 	f, err := os.OpenFile(last.path, os.O_RDWR, 0o600)
 	if err != nil {
 		return nil, fmt.Errorf("intake: journal: %w", err)
 	}
-	st, _ := f.Stat()
-	if st.Size() > good {
+	if size := int64(len(b)); size > good {
 		if err := f.Truncate(good); err != nil {
 			f.Close()
-			return nil, fmt.Errorf("intake: journal: truncate torn tail of %s: %w", last.path, err)
+			return nil, fmt.Errorf("intake: journal: cut the invalid tail of %s: %w", last.path, err)
 		}
 		if err := f.Sync(); err != nil {
 			f.Close()
 			return nil, fmt.Errorf("intake: journal: %w", err)
 		}
 		if cfg.Log != nil {
-			fmt.Fprintf(cfg.Log, "journal: %s ended in a torn record; truncated from %d to %d bytes (the last good record is offset %d)\n",
-				filepath.Base(last.path), st.Size(), good, lastOff)
+			fmt.Fprintf(cfg.Log, "journal: %s ended in a torn record or invalid bytes; cut %d bytes (from %d to %d bytes; the last good record is offset %d)\n",
+				filepath.Base(last.path), size-good, size, good, lastOff)
 		}
 	}
 	if _, err := f.Seek(good, io.SeekStart); err != nil {
 		f.Close()
 		return nil, fmt.Errorf("intake: journal: %w", err)
 	}
-	j.f, j.segStart, j.size = j.wrapFile(f), last.start, good
-	if lastOff > 0 {
+	j.f, j.raw, j.rawPath, j.segStart, j.size = j.wrapFile(f), f, last.path, last.start, good
+	if lastOff >= last.start {
 		j.next = lastOff + 1
 	} else {
 		j.next = last.start
@@ -181,54 +220,73 @@ func OpenJournal(cfg JournalConfig) (*Journal, error) {
 	return j, nil
 }
 
-var errTorn = errors.New("torn record")
+// scanned is what scanBytes finds in a segment.
+type scanned struct {
+	end    int64 // byte position after the last valid record
+	last   int64 // offset of the last valid record (start − 1 when none)
+	damage []damageAt
+}
 
-// scanSegment validates a segment and returns the length of its valid prefix
-// and the last offset in it. A damaged or short final record is errTorn; a
-// damaged record followed by more data is ErrJournalCorrupt.
-func scanSegment(path string, start int64) (good int64, last int64, err error) {
-	f, err := os.Open(path)
-	if err != nil {
-		return 0, 0, fmt.Errorf("intake: journal: %w", err)
-	}
-	defer f.Close()
-	st, err := f.Stat()
-	if err != nil {
-		return 0, 0, fmt.Errorf("intake: journal: %w", err)
-	}
-	r := bufio.NewReaderSize(f, 1<<16)
+// damageAt is a damaged region with valid records after it.
+type damageAt struct {
+	byteAt   int64 // where it starts
+	from, to int64 // offsets lost: from ≤ offset < to
+	resume   int64 // byte position of the next valid record
+}
+
+// scanBytes walks the records of a segment whose first offset is start. A
+// record that fails a check starts a damaged region; the scan resumes at the
+// next valid record (one whose length fits, whose offset is past the last
+// good one and whose CRC matches). Bytes after the last valid record are the
+// tail: end excludes them.
+func scanBytes(b []byte, start int64) scanned {
+	res := scanned{last: start - 1}
+	var pos int64
 	want := start
-	var hdr [recordHeader]byte
-	var payload []byte
-	for {
-		if _, err := io.ReadFull(r, hdr[:]); err != nil {
-			if err == io.EOF {
-				return good, last, nil
+	for pos < int64(len(b)) {
+		if n, off, ok := validAt(b, pos, want); ok {
+			if off > want { // a valid record, but offsets before it are missing
+				res.damage = append(res.damage, damageAt{byteAt: pos, from: want, to: off, resume: pos})
 			}
-			return good, last, errTorn
+			pos += recordHeader + n
+			res.end, res.last, want = pos, off, off+1
+			continue
 		}
-		n := binary.LittleEndian.Uint32(hdr[0:])
-		sum := binary.LittleEndian.Uint32(hdr[4:])
-		off := int64(binary.LittleEndian.Uint64(hdr[8:]))
-		end := good + recordHeader + int64(n)
-		if n > MaxRecordBytes || end > st.Size() {
-			if end >= st.Size() || n > MaxRecordBytes && good+recordHeader >= st.Size() {
-				return good, last, errTorn
-			}
-			return good, last, fmt.Errorf("%w: %s: record at byte %d declares %d bytes", ErrJournalCorrupt, filepath.Base(path), good, n)
+		q, off, ok := resync(b, pos+1, want)
+		if !ok {
+			break // the tail
 		}
-		payload = slices.Grow(payload[:0], int(n))[:n]
-		if _, err := io.ReadFull(r, payload); err != nil {
-			return good, last, errTorn
-		}
-		if recordCRC(off, payload) != sum || off != want {
-			if end == st.Size() {
-				return good, last, errTorn
-			}
-			return good, last, fmt.Errorf("%w: %s: record at byte %d fails its checksum (offset %d, want %d)", ErrJournalCorrupt, filepath.Base(path), good, off, want)
-		}
-		good, last, want = end, off, off+1
+		res.damage = append(res.damage, damageAt{byteAt: pos, from: want, to: off, resume: q})
+		pos, want = q, off
 	}
+	return res
+}
+
+// validAt reports whether a valid record with an offset of at least minOff
+// starts at byte p of b, and returns its payload length and offset.
+func validAt(b []byte, p, minOff int64) (n, off int64, ok bool) {
+	if int64(len(b))-p < recordHeader {
+		return 0, 0, false
+	}
+	h := b[p : p+recordHeader]
+	n = int64(binary.LittleEndian.Uint32(h[0:]))
+	off = int64(binary.LittleEndian.Uint64(h[8:]))
+	if n > MaxRecordBytes || p+recordHeader+n > int64(len(b)) || off < minOff || off-minOff > 1<<40 {
+		return 0, 0, false
+	}
+	payload := b[p+recordHeader : p+recordHeader+n]
+	return n, off, recordCRC(off, payload) == binary.LittleEndian.Uint32(h[4:])
+}
+
+// resync finds the first valid record at or after byte p with an offset of
+// at least minOff.
+func resync(b []byte, p, minOff int64) (at, off int64, ok bool) {
+	for ; p+recordHeader <= int64(len(b)); p++ {
+		if _, off, ok := validAt(b, p, minOff); ok {
+			return p, off, true
+		}
+	}
+	return 0, 0, false
 }
 
 func recordCRC(off int64, payload []byte) uint32 {
@@ -247,7 +305,37 @@ func (j *Journal) createSegment(start int64) error {
 		f.Close()
 		return fmt.Errorf("intake: journal: %w", err)
 	}
-	j.f, j.segStart, j.size = j.wrapFile(f), start, 0
+	j.f, j.raw, j.rawPath, j.segStart, j.size = j.wrapFile(f), f, path, start, 0
+	return nil
+}
+
+// linked returns ErrJournalVanished (wrapped) unless the open segment file
+// is still the file at its path in the journal's directory. Cost: two stat
+// calls. Called with j.mu held.
+func (j *Journal) linked() error {
+	have, err := j.raw.Stat()
+	if err != nil {
+		return fmt.Errorf("%w: %v", ErrJournalVanished, err)
+	}
+	now, err := os.Stat(j.rawPath)
+	if err != nil || !os.SameFile(have, now) {
+		return fmt.Errorf("%w: %s is no longer in %s (was the data directory removed or moved?)", ErrJournalVanished, filepath.Base(j.rawPath), j.dir)
+	}
+	return nil
+}
+
+// Check reports a failure that stops the journal: a write that could not be
+// undone earlier, or files that have vanished (which it then makes sticky).
+// The service runs it periodically, so that it notices without traffic.
+func (j *Journal) Check() error {
+	j.mu.Lock()
+	defer j.mu.Unlock()
+	if err := j.usable(); err != nil {
+		return err
+	}
+	if err := j.linked(); err != nil {
+		return j.fail(err)
+	}
 	return nil
 }
 
@@ -337,6 +425,11 @@ func (j *Journal) Append(payloads [][]byte) (first, last int64, err error) {
 		if serr != nil {
 			return 0, 0, j.fail(fmt.Errorf("intake: journal: fsync: %w", serr))
 		}
+		// Synced into a file that is no longer in the directory is not
+		// durable: neither acknowledge nor show it to readers, now or later.
+		if err := j.linked(); err != nil {
+			return 0, 0, j.fail(err)
+		}
 		if target > j.durable {
 			j.durable = target
 			close(j.notify)
@@ -416,13 +509,14 @@ func (j *Journal) Close() error {
 // JournalReader reads durable records in order from an offset on.
 // Not safe for concurrent use.
 type JournalReader struct {
-	j    *Journal
-	next int64
-	f    *os.File
-	r    *bufio.Reader
-	seg  int64 // start of the open segment, or −1
-	pos  int64 // byte offset in the open segment after the last record returned
-	buf  []byte
+	j       *Journal
+	next    int64
+	f       *os.File
+	r       *bufio.Reader
+	seg     int64 // start of the open segment, or −1
+	pos     int64 // byte offset in the open segment after the last record returned
+	lastOff int64 // offset of the last record read in the open segment (seg − 1 before any)
+	buf     []byte
 }
 
 // Reader returns a reader that starts at offset from (1 for the beginning).
@@ -432,6 +526,8 @@ func (j *Journal) Reader(from int64) *JournalReader {
 
 // Next returns the next durable record's offset and payload, blocking until
 // one is durable or ctx is done. The payload is valid until the next call.
+// Damage that costs offsets at or after the reader's position is a
+// *DamageError; damage before it is read past.
 func (r *JournalReader) Next(ctx context.Context) (int64, []byte, error) {
 	for {
 		ready, ch, closed := r.j.wait(r.next)
@@ -462,18 +558,30 @@ func (r *JournalReader) Next(ctx context.Context) (int64, []byte, error) {
 // Read-ahead may have buffered bytes of a write that failed and was undone,
 // so a bad record is read once more from the file before it counts as damage.
 func (r *JournalReader) read() (int64, []byte, error) {
-	off, p, err := r.readOnce()
-	if err == nil || r.f == nil {
-		return off, p, err
+	for {
+		off, p, err := r.readOnce()
+		if err == nil || !errors.Is(err, errBadRecord) {
+			return off, p, err
+		}
+		seg, pos := r.seg, r.pos
+		r.f.Close()
+		r.f = nil
+		if err := r.openAt(seg, pos); err != nil {
+			return 0, nil, err
+		}
+		off, p, err = r.readOnce()
+		if err == nil || !errors.Is(err, errBadRecord) {
+			return off, p, err
+		}
+		if err := r.damaged(); err != nil {
+			return 0, nil, err
+		}
+		// Repositioned past damage that costs nothing wanted: read on.
 	}
-	seg, pos := r.seg, r.pos
-	r.f.Close()
-	r.f = nil
-	if err := r.openAt(seg, pos); err != nil {
-		return 0, nil, err
-	}
-	return r.readOnce()
 }
+
+// errBadRecord: the record at the reader's position fails a check.
+var errBadRecord = errors.New("bad record")
 
 func (r *JournalReader) readOnce() (int64, []byte, error) {
 	for {
@@ -490,23 +598,84 @@ func (r *JournalReader) readOnce() (int64, []byte, error) {
 				r.f, r.seg = nil, -1
 				continue
 			}
-			return 0, nil, fmt.Errorf("%w: reading offset %d: %v", ErrJournalCorrupt, r.next, err)
+			return 0, nil, errBadRecord
 		}
 		n := binary.LittleEndian.Uint32(hdr[0:])
 		off := int64(binary.LittleEndian.Uint64(hdr[8:]))
-		if n > MaxRecordBytes {
-			return 0, nil, fmt.Errorf("%w: record before offset %d declares %d bytes", ErrJournalCorrupt, r.next, n)
+		if n > MaxRecordBytes || off <= r.lastOff {
+			return 0, nil, errBadRecord
 		}
 		r.buf = slices.Grow(r.buf[:0], int(n))[:n]
 		if _, err := io.ReadFull(r.r, r.buf); err != nil {
-			return 0, nil, fmt.Errorf("%w: offset %d: %v", ErrJournalCorrupt, off, err)
+			return 0, nil, errBadRecord
 		}
 		if recordCRC(off, r.buf) != binary.LittleEndian.Uint32(hdr[4:]) {
-			return 0, nil, fmt.Errorf("%w: offset %d fails its checksum", ErrJournalCorrupt, off)
+			return 0, nil, errBadRecord
+		}
+		if gap := r.lastOff + 1; off > gap && off > r.next {
+			// A valid record, but the offsets before it are missing from
+			// the segment: report them and stay put (the next read meets
+			// the same gap until the reader starts past it).
+			d := &DamageError{Segment: segName(r.seg), Byte: r.pos, From: max(gap, r.next), To: off}
+			r.f.Close()
+			r.f, r.seg = nil, -1
+			return 0, nil, d
 		}
 		r.pos += recordHeader + int64(n)
+		r.lastOff = off
 		return off, r.buf, nil
 	}
+}
+
+// damaged handles a bad record at the reader's position: it finds where
+// valid records resume (later in the segment, the next segment, or nothing
+// yet) and the offsets lost in between. When none of them is wanted (all
+// before the reader's next offset) it repositions after the damage and
+// returns nil; otherwise it returns a *DamageError and stays put.
+func (r *JournalReader) damaged() error {
+	seg, pos := r.seg, r.pos
+	name := segName(seg)
+	b, err := os.ReadFile(filepath.Join(r.j.dir, name))
+	if err != nil {
+		return fmt.Errorf("intake: journal: %w", err)
+	}
+	from := r.lastOff + 1
+	var to int64
+	resumeSeg, resumePos := int64(-1), int64(0)
+	if q, off, ok := resync(b, pos+1, from); ok {
+		to, resumeSeg, resumePos = off, seg, q
+	} else {
+		segs, err := r.j.segments()
+		if err != nil {
+			return err
+		}
+		for _, sg := range segs {
+			if sg.start > seg {
+				to, resumeSeg = sg.start, sg.start
+				break
+			}
+		}
+		if resumeSeg < 0 {
+			// Nothing valid follows yet in the last segment.
+			to = r.j.Durable() + 1
+		}
+	}
+	if to <= r.next && resumeSeg >= 0 {
+		last := r.lastOff
+		r.f.Close()
+		r.f = nil
+		if err := r.openAt(resumeSeg, resumePos); err != nil {
+			return err
+		}
+		if resumeSeg == seg {
+			r.lastOff = last
+		}
+		return nil
+	}
+	if to <= r.next {
+		return fmt.Errorf("%w: %s is damaged at byte %d and nothing valid follows it", ErrJournalCorrupt, name, pos)
+	}
+	return &DamageError{Segment: name, Byte: pos, From: max(from, r.next), To: to}
 }
 
 func (r *JournalReader) openAt(seg, pos int64) error {
@@ -517,6 +686,9 @@ func (r *JournalReader) openAt(seg, pos int64) error {
 	if _, err := f.Seek(pos, io.SeekStart); err != nil {
 		f.Close()
 		return fmt.Errorf("intake: journal: %w", err)
+	}
+	if pos == 0 || seg != r.seg {
+		r.lastOff = seg - 1
 	}
 	r.f, r.r, r.seg, r.pos = f, bufio.NewReaderSize(f, 1<<16), seg, pos
 	return nil

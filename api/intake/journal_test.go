@@ -102,7 +102,12 @@ func TestJournalTornTailTruncated(t *testing.T) {
 	}
 }
 
-func TestJournalCorruptMiddleIsAnError(t *testing.T) {
+// TestJournalDamageNamesLostOffsets: a damaged record with valid records
+// after it is not cut on open (that would drop acknowledged events); a
+// reader that meets it reports exactly which offsets are lost, and a reader
+// started past them reads on (issue 11, hole 3: damage used to stop intake
+// for good).
+func TestJournalDamageNamesLostOffsets(t *testing.T) {
 	dir := t.TempDir()
 	j := openJ(t, dir, 0)
 	j.Append([][]byte{[]byte("one"), []byte("two"), []byte("three")})
@@ -111,8 +116,127 @@ func TestJournalCorruptMiddleIsAnError(t *testing.T) {
 	b, _ := os.ReadFile(seg)
 	b[recordHeader+1] ^= 0xff // inside the first payload
 	os.WriteFile(seg, b, 0o600)
-	if _, err := OpenJournal(JournalConfig{Dir: dir}); !errors.Is(err, ErrJournalCorrupt) || !strings.Contains(err.Error(), "byte 0") {
-		t.Errorf("damaged first record: %v, want ErrJournalCorrupt naming byte 0", err)
+	j, err := OpenJournal(JournalConfig{Dir: dir})
+	if err != nil {
+		t.Fatalf("open with a damaged first record and valid ones after it: %v", err)
+	}
+	defer j.Close()
+	if j.Durable() != 3 {
+		t.Errorf("durable %d, want 3 (the valid records after the damage count)", j.Durable())
+	}
+	_, _, err = j.Reader(1).Next(context.Background())
+	var d *DamageError
+	if !errors.As(err, &d) || !errors.Is(err, ErrJournalCorrupt) || d.Byte != 0 || d.From != 1 || d.To != 2 || d.Segment != segName(1) {
+		t.Fatalf("reading from 1: %v, want a DamageError at byte 0 losing offset 1 only", err)
+	}
+	if got := readN(t, j, 2, 2); got[0] != "2=two" || got[1] != "3=three" {
+		t.Errorf("reading from 2: %v", got)
+	}
+}
+
+// TestJournalDamageInOlderSegment: a damaged record in a segment that is not
+// the last loses the offsets up to the next valid record; one with nothing
+// valid after it in its segment loses the rest of that segment.
+func TestJournalDamageInOlderSegment(t *testing.T) {
+	dir := t.TempDir()
+	j := openJ(t, dir, 60) // a few records per segment
+	var ps [][]byte
+	for i := 1; i <= 20; i++ {
+		ps = append(ps, []byte(fmt.Sprintf("event-%02d", i)))
+	}
+	for _, p := range ps {
+		j.Append([][]byte{p})
+	}
+	segs, _ := j.segments()
+	if len(segs) < 3 {
+		t.Fatalf("%d segments, want at least 3", len(segs))
+	}
+	// Damage the last record of the first segment: nothing valid follows it
+	// there, so the loss runs to the second segment's first offset.
+	first := segs[0]
+	b, _ := os.ReadFile(first.path)
+	b[len(b)-1] ^= 0xff
+	os.WriteFile(first.path, b, 0o600)
+	var err error
+	var d *DamageError
+	// The first record is fine; read it, then meet the damage.
+	r := j.Reader(1)
+	if off, _, err := r.Next(context.Background()); err != nil || off != 1 {
+		t.Fatalf("first record: %d %v", off, err)
+	}
+	for {
+		_, _, err = r.Next(context.Background())
+		if err != nil {
+			break
+		}
+	}
+	if !errors.As(err, &d) || d.To != segs[1].start || d.From != segs[1].start-1 {
+		t.Fatalf("damage in the first segment: %v, want offsets %d to %d lost", err, segs[1].start-1, segs[1].start-1)
+	}
+	if got := readN(t, j, d.To, 1); got[0] != fmt.Sprintf("%d=event-%02d", d.To, d.To) {
+		t.Errorf("reading past the damage: %v", got)
+	}
+	j.Close()
+	// The service does not refuse to start over damage in an older segment.
+	j = openJ(t, dir, 60)
+	j.Close()
+}
+
+// TestJournalZeroTailCut: zeros after the last good record (a power cut in
+// a pre-extended page) are cut on open with their size reported.
+func TestJournalZeroTailCut(t *testing.T) {
+	dir := t.TempDir()
+	j := openJ(t, dir, 0)
+	j.Append([][]byte{[]byte("one"), []byte("two")})
+	j.Close()
+	seg := filepath.Join(dir, segName(1))
+	f, _ := os.OpenFile(seg, os.O_WRONLY|os.O_APPEND, 0o600)
+	f.Write(make([]byte, 4096))
+	f.Close()
+	var log strings.Builder
+	j, err := OpenJournal(JournalConfig{Dir: dir, Log: &log})
+	if err != nil {
+		t.Fatalf("open with a zero tail: %v", err)
+	}
+	defer j.Close()
+	if j.Durable() != 2 || !strings.Contains(log.String(), "cut 4096 bytes") {
+		t.Errorf("durable %d, log %q; want 2 and the 4096 bytes named", j.Durable(), log.String())
+	}
+	if first, _, _ := j.Append([][]byte{[]byte("three")}); first != 3 {
+		t.Errorf("next offset %d, want 3", first)
+	}
+}
+
+// TestJournalVanishedDirectory: when the journal's directory is removed
+// under it, Append fails with ErrJournalVanished instead of acknowledging
+// events written into a deleted file, and keeps failing; Check says so too.
+func TestJournalVanishedDirectory(t *testing.T) {
+	dir := filepath.Join(t.TempDir(), "journal")
+	j := openJ(t, dir, 0)
+	defer j.Close()
+	if _, _, err := j.Append([][]byte{[]byte("one")}); err != nil {
+		t.Fatal(err)
+	}
+	if err := j.Check(); err != nil {
+		t.Fatalf("Check on a healthy journal: %v", err)
+	}
+	os.RemoveAll(dir)
+	if _, _, err := j.Append([][]byte{[]byte("two")}); !errors.Is(err, ErrJournalVanished) {
+		t.Errorf("append after the directory was removed: %v, want ErrJournalVanished", err)
+	}
+	if j.Durable() != 1 {
+		t.Errorf("durable %d after the failed append, want 1", j.Durable())
+	}
+	if err := j.Check(); !errors.Is(err, ErrJournalVanished) {
+		t.Errorf("Check: %v", err)
+	}
+	// Moved rather than removed: the same.
+	dir2 := filepath.Join(t.TempDir(), "journal")
+	j2 := openJ(t, dir2, 0)
+	defer j2.Close()
+	os.Rename(dir2, dir2+"-moved")
+	if err := j2.Check(); !errors.Is(err, ErrJournalVanished) {
+		t.Errorf("Check after the directory was moved: %v", err)
 	}
 }
 
