@@ -6,6 +6,7 @@ import (
 	"log/slog"
 	"net"
 	"os"
+	"strings"
 	"time"
 
 	"tidemark/api/intake"
@@ -34,8 +35,25 @@ type Config struct {
 	Engine  learner.Config
 	// Token, when set, is required as "Authorization: Bearer <token>" on every
 	// changing endpoint. Default: none (changing endpoints are open; the
-	// default listen address is loopback).
+	// default listen address is loopback). Without a token the service only
+	// listens on a loopback address unless InsecureOpenNetwork is set.
 	Token string
+	// InsecureOpenNetwork lets the service listen beyond loopback without a
+	// token, so that anyone who reaches it can change the model. Default: false.
+	InsecureOpenNetwork bool
+	// AllowedHosts are host names (besides IP addresses and localhost) that
+	// requests may be addressed to; a guard against DNS rebinding. Default: none.
+	AllowedHosts []string
+	// TokenForReads requires the token on reads too: learners, curves,
+	// checkpoints, metrics and the page (key names can be sensitive).
+	// /healthz, /readyz and the OpenAPI document stay open. Default: false.
+	TokenForReads bool
+	// ReadyMaxLag, when positive, reports not ready while more events than
+	// this wait in the source to be applied. Default: 0 (no bound).
+	ReadyMaxLag int64
+	// AllowedOrigins are web origins (scheme://host[:port]) besides the
+	// service's own whose pages may send changing requests. Default: none.
+	AllowedOrigins []string
 	// CheckpointEvery is the number of applied events between periodic
 	// checkpoints. Default: DefaultCheckpointEvery.
 	CheckpointEvery int64
@@ -85,10 +103,15 @@ func (c *Config) Validate() error {
 	if c.DataDir == "" {
 		errs = append(errs, errors.New("data directory: required (--data DIR)"))
 	}
-	if c.Listen != "" {
-		if _, _, err := net.SplitHostPort(c.Listen); err != nil {
-			errs = append(errs, fmt.Errorf("listen address %q: %v", c.Listen, err))
-		}
+	listen := c.Listen
+	if listen == "" {
+		listen = DefaultListen
+	}
+	if host, _, err := net.SplitHostPort(listen); err != nil {
+		errs = append(errs, fmt.Errorf("listen address %q: %v", listen, err))
+	} else if c.Token == "" && !c.InsecureOpenNetwork && !loopback(host) {
+		errs = append(errs, fmt.Errorf("listen address %q reaches beyond this machine, and without a token anyone who reaches it could change the model: "+
+			"give a token (--token-file), listen on 127.0.0.1, or say --insecure-open-network", listen))
 	}
 	if err := c.Engine.Validate(); err != nil {
 		errs = append(errs, err)
@@ -98,6 +121,12 @@ func (c *Config) Validate() error {
 	}
 	if c.CheckpointInterval < 0 {
 		errs = append(errs, fmt.Errorf("checkpoint interval %v: want a positive duration", c.CheckpointInterval))
+	}
+	if c.TokenForReads && c.Token == "" {
+		errs = append(errs, errors.New("token for reads: give a token too (--token-file)"))
+	}
+	if c.ReadyMaxLag < 0 {
+		errs = append(errs, fmt.Errorf("ready max lag %d: want 0 (no bound) or a positive number of events", c.ReadyMaxLag))
 	}
 	if c.BodyLimit < 0 || c.MaxRows < 0 || c.Retain < 0 {
 		errs = append(errs, errors.New("body limit, max rows and retain must not be negative"))
@@ -127,6 +156,16 @@ func (c *Config) Validate() error {
 		}
 	}
 	return errors.Join(errs...)
+}
+
+// loopback reports whether host (of a listen address) is only reachable
+// from this machine.
+func loopback(host string) bool {
+	if strings.EqualFold(host, "localhost") {
+		return true
+	}
+	ip := net.ParseIP(host)
+	return ip != nil && ip.IsLoopback()
 }
 
 func (c *Config) setDefaults() {

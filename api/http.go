@@ -39,19 +39,27 @@ func (s *Service) newHTTP() *http.Server {
 	e.HTTPErrorHandler = s.errorHandler
 	e.Use(middleware.Recover())
 	e.Use(middleware.BodyLimit(strconv.FormatInt(s.cfg.BodyLimit, 10) + "B"))
+	e.Use(s.checkHost)
 	auth := s.requireToken
+	changing := func(types ...string) []echo.MiddlewareFunc {
+		return []echo.MiddlewareFunc{s.sameOrigin, requireType(types...), auth}
+	}
 	e.POST("/v1/predict", s.handlePredict)
-	e.POST("/v1/events", s.handleEvents, auth)
-	e.GET("/v1/learners", s.handleLearners)
-	e.GET("/v1/learners/:name/curve", s.handleCurve)
-	e.GET("/v1/checkpoints", s.handleCheckpoints)
-	e.POST("/v1/checkpoints", s.handleTakeCheckpoint, auth)
-	e.POST("/v1/checkpoints/:version/restore", s.handleRestore, auth)
-	e.POST("/v1/intake/skip-damaged", s.handleSkipDamaged, auth)
+	e.POST("/v1/events", s.handleEvents, changing(eventsTypes...)...)
+	read := func(next echo.HandlerFunc) echo.HandlerFunc { return next }
+	if s.cfg.TokenForReads {
+		read = auth
+	}
+	e.GET("/v1/learners", s.handleLearners, read)
+	e.GET("/v1/learners/:name/curve", s.handleCurve, read)
+	e.GET("/v1/checkpoints", s.handleCheckpoints, read)
+	e.POST("/v1/checkpoints", s.handleTakeCheckpoint, changing(jsonTypes...)...)
+	e.POST("/v1/checkpoints/:version/restore", s.handleRestore, changing(jsonTypes...)...)
+	e.POST("/v1/intake/skip-damaged", s.handleSkipDamaged, changing(jsonTypes...)...)
 	e.GET("/healthz", s.handleHealth)
 	e.GET("/readyz", s.handleReady)
-	e.GET("/metrics", echo.WrapHandler(s.metrics.handler()))
-	e.GET("/", s.handleDashboard)
+	e.GET("/metrics", echo.WrapHandler(s.metrics.handler()), read)
+	e.GET("/", s.handleDashboard, read)
 	e.GET("/v1/openapi.json", func(c echo.Context) error { return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, openapiDoc) })
 	return &http.Server{Addr: s.cfg.Listen, Handler: e, ReadHeaderTimeout: readHeaderTimeout,
 		ReadTimeout: readTimeout, WriteTimeout: writeTimeout, IdleTimeout: idleTimeout,
@@ -92,13 +100,24 @@ func (s *Service) requireToken(next echo.HandlerFunc) echo.HandlerFunc {
 		if s.cfg.Token == "" {
 			return next(c)
 		}
-		got, ok := strings.CutPrefix(c.Request().Header.Get("Authorization"), "Bearer ")
-		if !ok || subtle.ConstantTimeCompare([]byte(got), []byte(s.cfg.Token)) != 1 {
+		// The scheme is matched case-insensitively (RFC 7235 §2.1).
+		scheme, got, ok := strings.Cut(c.Request().Header.Get("Authorization"), " ")
+		got = strings.TrimLeft(got, " ")
+		if !ok || !strings.EqualFold(scheme, "Bearer") || subtle.ConstantTimeCompare([]byte(got), []byte(s.cfg.Token)) != 1 {
 			c.Response().Header().Set("WWW-Authenticate", `Bearer realm="tidemark"`)
-			return httpErr(http.StatusUnauthorized, "this endpoint changes state: send Authorization: Bearer <token> with the service's token")
+			return httpErr(http.StatusUnauthorized, "send Authorization: Bearer <token> with the service's token (it is required on changing endpoints, and on reads with --token-for-reads)")
 		}
 		return next(c)
 	}
+}
+
+// errMessage returns an HTTP error's message, or the error's text.
+func errMessage(err error) string {
+	var he *echo.HTTPError
+	if errors.As(err, &he) {
+		return fmt.Sprint(he.Message)
+	}
+	return err.Error()
 }
 
 // decodeJSONBody reads a JSON object body into v strictly: unknown fields
@@ -379,15 +398,9 @@ func (s *Service) handleRestore(c echo.Context) error {
 	if err != nil || v == 0 {
 		return httpErr(http.StatusBadRequest, "version %q: want a positive integer", c.Param("version"))
 	}
-	body, err := readBody(c)
-	if err != nil {
-		return err
-	}
 	var req RestoreRequest
-	dec := json.NewDecoder(bytes.NewReader(body))
-	dec.DisallowUnknownFields()
-	if err := dec.Decode(&req); err != nil {
-		return httpErr(http.StatusBadRequest, "the body must be {\"resume\":\"from_checkpoint\"|\"from_now\"|\"skip\", …}: %v", err)
+	if err := decodeJSONBody(c, &req); err != nil {
+		return httpErr(http.StatusBadRequest, "the body must be one object {\"resume\":\"from_checkpoint\"|\"from_now\"|\"skip\", …}: %v", errMessage(err))
 	}
 	res := s.do(func(s *Service) cmdResult { return s.restore(v, req) })
 	if res.err != nil {
@@ -423,6 +436,16 @@ func (s *Service) handleReady(c echo.Context) error {
 	}
 	if !s.ready.Load() {
 		return c.JSON(http.StatusServiceUnavailable, map[string]any{"ready": false, "message": "restoring or catching up with the stream"})
+	}
+	if bound := s.cfg.ReadyMaxLag; bound > 0 {
+		var waiting int64
+		for _, l := range s.lag(s.snap.Load()) {
+			waiting += l.Offset
+		}
+		if waiting > bound {
+			return c.JSON(http.StatusServiceUnavailable, map[string]any{"ready": false, "lag": waiting,
+				"message": fmt.Sprintf("%d events wait to be applied, more than the bound of %d (--ready-max-lag)", waiting, bound)})
+		}
 	}
 	return c.JSON(http.StatusOK, map[string]any{"ready": true})
 }

@@ -70,6 +70,9 @@ func start(t testing.TB, cfg Config) *running {
 func (r *running) call(t testing.TB, method, path, token string, body []byte) (int, []byte) {
 	t.Helper()
 	req, _ := http.NewRequest(method, r.base+path, bytes.NewReader(body))
+	if len(body) > 0 {
+		req.Header.Set("Content-Type", "application/json") // events too: the service takes JSON or NDJSON there
+	}
 	if token != "" {
 		req.Header.Set("Authorization", "Bearer "+token)
 	}
@@ -516,7 +519,7 @@ func TestDemoSmoke(t *testing.T) {
 	if !ready || !predicted {
 		t.Errorf("demo: ready %v, predict answered %v", ready, predicted)
 	}
-	for _, want := range []string{"dashboard", "curl -s -d", "/restore", "the scenario is played out", "rls-forget", "shutdown checkpoint"} {
+	for _, want := range []string{"dashboard", "curl -s -H 'Content-Type: application/json' -d", "/restore", "the scenario is played out", "rls-forget", "shutdown checkpoint"} {
 		if !strings.Contains(out.String(), want) {
 			t.Errorf("demo output lacks %q:\n%s", want, out.String())
 		}

@@ -25,6 +25,12 @@ type fileConfig struct {
 	Listen             string   `yaml:"listen"`
 	Data               string   `yaml:"data"`
 	Token              string   `yaml:"token"`
+	TokenFile          string   `yaml:"token_file"`
+	TokenForReads      bool     `yaml:"token_for_reads"`
+	AllowedHosts       []string `yaml:"allowed_hosts"`
+	AllowedOrigins     []string `yaml:"allowed_origins"`
+	InsecureOpenNet    bool     `yaml:"insecure_open_network"`
+	ReadyMaxLag        int64    `yaml:"ready_max_lag"`
 	Learners           []string `yaml:"learners"`
 	DefaultLearner     string   `yaml:"default_learner"`
 	CheckpointEvery    int64    `yaml:"checkpoint_every"`
@@ -77,7 +83,14 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	configPath := fs.String("config", "", "YAML configuration `FILE`; flags override it")
 	listen := fs.String("listen", api.DefaultListen, "HTTP listen address")
 	data := fs.String("data", "", "data `DIR`: journal, checkpoints, dead letters (created 0700)")
-	token := fs.String("token", "", "bearer token required by changing endpoints (default: $"+TokenEnv+")")
+	token := fs.String("token", "", "bearer token required by changing endpoints (visible to other users in ps: prefer --token-file or $"+TokenEnv+")")
+	tokenFile := fs.String("token-file", "", "read the bearer token from `FILE` (first line; keep it readable by you alone)")
+	tokenForReads := fs.Bool("token-for-reads", false, "require the token on reads too (learners, curves, checkpoints, metrics, the page)")
+	var allowedHosts, allowedOrigins multi
+	fs.Var(&allowedHosts, "allowed-host", "host `NAME` requests may be addressed to besides IP addresses and localhost (repeatable)")
+	fs.Var(&allowedOrigins, "allowed-origin", "web `ORIGIN` (https://host:port) whose pages may send changing requests (repeatable)")
+	insecureOpen := fs.Bool("insecure-open-network", false, "INSECURE: listen beyond loopback without a token, so that anyone who reaches the service can change the model")
+	readyMaxLag := fs.Int64("ready-max-lag", 0, "report not ready while more than `N` events wait to be applied (0: no bound)")
 	every := fs.Int64("checkpoint-every", api.DefaultCheckpointEvery, "events between periodic checkpoints")
 	interval := fs.Duration("checkpoint-interval", api.DefaultCheckpointInterval, "also checkpoint this long after the last one")
 	minScored := fs.Int64("min-scored", api.DefaultMinScored, "events a learner must be scored on for a key before predict answers (-1: none)")
@@ -125,8 +138,40 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 		DataDir: pick("data", *data, fc.Data),
 		Token:   pick("token", *token, fc.Token),
 	}
+	var warnings []string
+	if set["token"] {
+		warnings = append(warnings, "the token was given with --token, where other users of this machine can read it (ps); prefer --token-file or $"+TokenEnv)
+	}
+	if fc.Token != "" && !set["token"] {
+		if st, err := os.Stat(*configPath); err == nil && st.Mode().Perm()&0o077 != 0 {
+			warnings = append(warnings, fmt.Sprintf("the configuration file %s holds the token and is readable by others (mode %v); chmod 600 it", *configPath, st.Mode().Perm()))
+		}
+	}
+	if tf := pick("token-file", *tokenFile, fc.TokenFile); tf != "" && cfg.Token == "" {
+		b, err := os.ReadFile(tf)
+		if err != nil {
+			problems = append(problems, fmt.Errorf("token file: %v", err))
+		} else {
+			cfg.Token, _, _ = strings.Cut(strings.TrimSpace(string(b)), "\n")
+			cfg.Token = strings.TrimSpace(cfg.Token)
+			if cfg.Token == "" {
+				problems = append(problems, fmt.Errorf("token file %s is empty", tf))
+			}
+			if st, err := os.Stat(tf); err == nil && st.Mode().Perm()&0o077 != 0 {
+				warnings = append(warnings, fmt.Sprintf("the token file %s is readable by others (mode %v); chmod 600 it", tf, st.Mode().Perm()))
+			}
+		}
+	}
 	if cfg.Token == "" {
 		cfg.Token = os.Getenv(TokenEnv)
+	}
+	cfg.TokenForReads = *tokenForReads || fc.TokenForReads
+	cfg.AllowedHosts = append([]string(allowedHosts), fc.AllowedHosts...)
+	cfg.AllowedOrigins = append([]string(allowedOrigins), fc.AllowedOrigins...)
+	cfg.InsecureOpenNetwork = *insecureOpen || fc.InsecureOpenNet
+	cfg.ReadyMaxLag = *readyMaxLag
+	if !set["ready-max-lag"] && fc.ReadyMaxLag != 0 {
+		cfg.ReadyMaxLag = fc.ReadyMaxLag
 	}
 	cfg.TLSCert, cfg.TLSKey = *tlsCert, *tlsKey
 	cfg.CheckpointEvery = *every
@@ -181,6 +226,12 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	}
 	logger := slog.New(slog.NewTextHandler(stderr, &slog.HandlerOptions{Level: level}))
 	cfg.Log = logger
+	for _, w := range warnings {
+		logger.Warn(w)
+	}
+	if cfg.InsecureOpenNetwork && cfg.Token == "" {
+		logger.Warn("INSECURE: --insecure-open-network: changing endpoints are open to anyone who reaches " + cfg.Listen)
+	}
 	if len(problems) == 0 {
 		if err := cfg.Validate(); err != nil {
 			problems = append(problems, err)
