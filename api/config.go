@@ -26,6 +26,7 @@ const (
 	DefaultCurvePoints        = 2000
 	DefaultCurveEvery         = 100
 	DefaultMaxDriftPins       = 10
+	DefaultDeadLetterBytes    = 64 << 20
 )
 
 // Config configures the service. Zero fields take the defaults.
@@ -86,6 +87,9 @@ type Config struct {
 	// Log receives operational messages; never tokens or event payloads at
 	// Info level. Nil discards them.
 	Log *slog.Logger
+	// DeadLetterBytes bounds the dead-letter file: past it the file is
+	// rotated to deadletters.1.ndjson. Default: DefaultDeadLetterBytes.
+	DeadLetterBytes int64
 	// Journal segment size; zero for the intake default.
 	JournalSegmentBytes int64
 	// TLSCert and TLSKey, both or neither, serve HTTPS with that certificate
@@ -128,8 +132,8 @@ func (c *Config) Validate() error {
 	if c.ReadyMaxLag < 0 {
 		errs = append(errs, fmt.Errorf("ready max lag %d: want 0 (no bound) or a positive number of events", c.ReadyMaxLag))
 	}
-	if c.BodyLimit < 0 || c.MaxRows < 0 || c.Retain < 0 {
-		errs = append(errs, errors.New("body limit, max rows and retain must not be negative"))
+	if c.BodyLimit < 0 || c.MaxRows < 0 || c.Retain < 0 || c.DeadLetterBytes < 0 {
+		errs = append(errs, errors.New("body limit, max rows, retain and the dead-letter bound must not be negative"))
 	}
 	if c.DefaultLearner != "" {
 		found := false
@@ -195,6 +199,9 @@ func (c *Config) setDefaults() {
 	}
 	if c.CurveEvery == 0 {
 		c.CurveEvery = DefaultCurveEvery
+	}
+	if c.DeadLetterBytes == 0 {
+		c.DeadLetterBytes = DefaultDeadLetterBytes
 	}
 	if c.MaxDriftPins == 0 {
 		c.MaxDriftPins = DefaultMaxDriftPins

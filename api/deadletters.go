@@ -3,8 +3,10 @@ package api
 import (
 	"bufio"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"os"
+	"strings"
 	"sync/atomic"
 
 	"tidemark/learner"
@@ -16,10 +18,18 @@ import (
 // directory with mode 0600. Writes are buffered and flushed on each
 // checkpoint and at close; losing the tail in a crash loses no event (the
 // journal or topic still holds it).
+//
+// The file is bounded: once writing a line would take it past its limit it
+// is renamed to deadletters.1.ndjson (replacing the previous one) and a new
+// file is started, so the two together hold at most twice the limit.
 type deadLetters struct {
-	f *os.File
-	w *bufio.Writer
-	n atomic.Int64
+	path  string
+	limit int64
+	f     *os.File
+	w     *bufio.Writer
+	size  int64
+	n     atomic.Int64
+	err   error // the last rotation failure, reported once
 }
 
 const maxDeadPayload = 64 << 10
@@ -30,12 +40,31 @@ type deadLetter struct {
 	Event    string           `json:"event"`
 }
 
-func openDeadLetters(path string) (*deadLetters, error) {
-	f, err := os.OpenFile(path, os.O_WRONLY|os.O_CREATE|os.O_APPEND, 0o600)
-	if err != nil {
-		return nil, fmt.Errorf("dead letters: %w", err)
+func openDeadLetters(path string, limit int64) (*deadLetters, error) {
+	d := &deadLetters{path: path, limit: limit}
+	if err := d.open(); err != nil {
+		return nil, err
 	}
-	return &deadLetters{f: f, w: bufio.NewWriter(f)}, nil
+	return d, nil
+}
+
+func (d *deadLetters) open() error {
+	f, err := os.OpenFile(d.path, os.O_WRONLY|os.O_CREATE|os.O_APPEND, 0o600)
+	if err != nil {
+		return fmt.Errorf("dead letters: %w", err)
+	}
+	st, err := f.Stat()
+	if err != nil {
+		f.Close()
+		return fmt.Errorf("dead letters: %w", err)
+	}
+	d.f, d.w, d.size = f, bufio.NewWriter(f), st.Size()
+	return nil
+}
+
+// rotatedPath is where a full dead-letter file goes.
+func (d *deadLetters) rotatedPath() string {
+	return strings.TrimSuffix(d.path, ".ndjson") + ".1.ndjson"
 }
 
 func (d *deadLetters) add(pos learner.Position, reason error, data []byte) {
@@ -43,13 +72,42 @@ func (d *deadLetters) add(pos learner.Position, reason error, data []byte) {
 		data = data[:maxDeadPayload]
 	}
 	b, _ := json.Marshal(deadLetter{Position: pos, Reason: reason.Error(), Event: string(data)})
-	d.w.Write(append(b, '\n'))
+	b = append(b, '\n')
+	if d.size > 0 && d.size+int64(len(b)) > d.limit {
+		d.rotate()
+	}
+	n, _ := d.w.Write(b)
+	d.size += int64(n)
 	d.n.Add(1)
+}
+
+// rotate moves the full file aside and starts a new one. On failure it goes
+// on writing the old file (the bound is exceeded rather than a line lost)
+// and the failure is returned by the next flush.
+func (d *deadLetters) rotate() {
+	d.w.Flush()
+	if err := os.Rename(d.path, d.rotatedPath()); err != nil {
+		d.err = fmt.Errorf("dead letters: rotate: %w", err)
+		return
+	}
+	old := d.f
+	if err := d.open(); err != nil {
+		os.Rename(d.rotatedPath(), d.path)
+		d.err = err
+		return
+	}
+	old.Close()
 }
 
 func (d *deadLetters) count() int64 { return d.n.Load() }
 
-func (d *deadLetters) flush() error { return d.w.Flush() }
+func (d *deadLetters) flush() error {
+	err := d.w.Flush()
+	if d.err != nil {
+		err, d.err = errors.Join(err, d.err), nil
+	}
+	return err
+}
 
 func (d *deadLetters) Close() error {
 	d.w.Flush()

@@ -269,12 +269,21 @@ type EventsResponse struct {
 	Rejected    []RejectedEvent `json:"rejected,omitempty"`
 }
 
-// RejectedEvent names an event of the request that was not accepted.
+// RejectedEvent names an event of the request that was not accepted: its
+// index among the request's events (from 0), its line (from 1; for a JSON
+// array, its element number from 1) and why.
 type RejectedEvent struct {
 	Index  int    `json:"index"`
+	Line   int    `json:"line"`
 	Reason string `json:"reason"`
 }
 
+// handleEvents journals the request's events that the engine will take.
+// Events that do not decode, or that the engine would refuse (a schema
+// feature missing or of the wrong type, no time where one is needed, a new
+// key past the cap — checked against the published state), are refused
+// with their line and reason and never journalled; the others are
+// acknowledged once durable.
 func (s *Service) handleEvents(c echo.Context) error {
 	if s.journal == nil {
 		return httpErr(http.StatusConflict, "this service learns from Kafka; produce events to its topic instead of posting them")
@@ -291,21 +300,31 @@ func (s *Service) handleEvents(c echo.Context) error {
 		return httpErr(http.StatusBadRequest, "%v", err)
 	}
 	if len(lines) > s.cfg.MaxRows {
-		return httpErr(http.StatusRequestEntityTooLarge, "%d events, more than the limit of %d per request", len(lines), s.cfg.MaxRows)
+		return httpErr(http.StatusRequestEntityTooLarge, "%d events, more than the limit of %d events per request (--max-rows); send fewer per request", len(lines), s.cfg.MaxRows)
 	}
 	var resp EventsResponse
 	var ok [][]byte
 	var ev learner.Event
+	v := s.snap.Load().eng.NewValidator()
 	for i, l := range lines {
-		if err := learner.DecodeEvent(l, &ev); err != nil {
-			resp.Rejected = append(resp.Rejected, RejectedEvent{Index: i, Reason: err.Error()})
+		err := learner.DecodeEvent(l.data, &ev)
+		if err == nil {
+			err = v.Check(&ev)
+		}
+		if err != nil {
+			reason := "decode"
+			if rj := (*learner.Rejection)(nil); errors.As(err, &rj) {
+				reason = rj.Kind.String()
+			}
+			s.metrics.refused.WithLabelValues(reason).Inc()
+			resp.Rejected = append(resp.Rejected, RejectedEvent{Index: i, Line: l.line, Reason: err.Error()})
 			continue
 		}
-		ok = append(ok, l)
+		ok = append(ok, l.data)
 	}
 	if len(ok) == 0 {
-		return c.JSON(http.StatusBadRequest, map[string]any{"message": fmt.Sprintf("no valid event in the request (event %d: %s); see rejected",
-			resp.Rejected[0].Index, resp.Rejected[0].Reason), "rejected": resp.Rejected})
+		return c.JSON(http.StatusBadRequest, map[string]any{"message": fmt.Sprintf("no event of the request can be learned (line %d: %s); see rejected",
+			resp.Rejected[0].Line, resp.Rejected[0].Reason), "rejected": resp.Rejected})
 	}
 	first, last, err := s.journal.Append(ok)
 	if err != nil {
@@ -320,8 +339,15 @@ func (s *Service) handleEvents(c echo.Context) error {
 	return c.JSON(http.StatusOK, resp)
 }
 
-// splitEvents accepts NDJSON (one event per line) or a JSON array of events.
-func splitEvents(body []byte) ([][]byte, error) {
+// eventLine is one event of a request body and where it was.
+type eventLine struct {
+	data []byte
+	line int // line of NDJSON, or element of a JSON array, from 1
+}
+
+// splitEvents accepts NDJSON (one event per line; blank lines skipped) or a
+// JSON array of events.
+func splitEvents(body []byte) ([]eventLine, error) {
 	t := bytes.TrimSpace(body)
 	if len(t) == 0 {
 		return nil, errors.New("the body is empty; send NDJSON events or a JSON array of events")
@@ -331,16 +357,16 @@ func splitEvents(body []byte) ([][]byte, error) {
 		if err := json.Unmarshal(t, &arr); err != nil {
 			return nil, fmt.Errorf("the body starts with [ but is not a JSON array: %v", err)
 		}
-		out := make([][]byte, len(arr))
+		out := make([]eventLine, len(arr))
 		for i, a := range arr {
-			out[i] = bytes.TrimSpace(a)
+			out[i] = eventLine{bytes.TrimSpace(a), i + 1}
 		}
 		return out, nil
 	}
-	var out [][]byte
-	for _, l := range bytes.Split(t, []byte("\n")) {
+	var out []eventLine
+	for i, l := range bytes.Split(body, []byte("\n")) {
 		if l = bytes.TrimSpace(l); len(l) > 0 {
-			out = append(out, l)
+			out = append(out, eventLine{l, i + 1})
 		}
 	}
 	return out, nil

@@ -20,6 +20,8 @@ type metrics struct {
 	checkpointFailures prometheus.Counter
 	faults             *prometheus.CounterVec
 	lost               prometheus.Counter
+	rejections         *prometheus.CounterVec
+	refused            *prometheus.CounterVec
 }
 
 func newMetrics(s *Service) *metrics {
@@ -36,7 +38,11 @@ func newMetrics(s *Service) *metrics {
 		Help: "Conditions of the data directory that stopped intake: vanished (journal files gone) or damage (a journal record cannot be read)."}, []string{"kind"})
 	m.lost = prometheus.NewCounter(prometheus.CounterOpts{Name: "tidemark_journal_lost_events_total",
 		Help: "Events given up because the journal was damaged, on the operator's request (POST /v1/intake/skip-damaged)."})
-	m.reg.MustRegister(m.predictLatency, m.eventsReceived, m.journalFailures, m.checkpointFailures, m.faults, m.lost, &snapshotCollector{s})
+	m.rejections = prometheus.NewCounterVec(prometheus.CounterOpts{Name: "tidemark_stream_rejections_total",
+		Help: "Events of the stream the engine refused when applying them, by reason: decode, schema, time, key_cap (they go to the dead-letter file)."}, []string{"reason"})
+	m.refused = prometheus.NewCounterVec(prometheus.CounterOpts{Name: "tidemark_http_events_refused_total",
+		Help: "Events POST /v1/events refused before journalling them, by reason: decode, schema, time, key_cap."}, []string{"reason"})
+	m.reg.MustRegister(m.predictLatency, m.eventsReceived, m.journalFailures, m.checkpointFailures, m.faults, m.lost, m.rejections, m.refused, &snapshotCollector{s})
 	return m
 }
 

@@ -117,7 +117,7 @@ func New(cfg Config) (*Service, error) {
 	if err != nil {
 		return nil, err
 	}
-	s.dead, err = openDeadLetters(filepath.Join(cfg.DataDir, "deadletters.ndjson"))
+	s.dead, err = openDeadLetters(filepath.Join(cfg.DataDir, "deadletters.ndjson"), cfg.DeadLetterBytes)
 	if err != nil {
 		s.store.Close()
 		return nil, err
@@ -453,6 +453,7 @@ func (s *Service) apply(it item) {
 	}
 	if it.decErr != nil {
 		s.eng.Skip(it.pos)
+		s.metrics.rejections.WithLabelValues("decode").Inc()
 		s.dead.add(it.pos, it.decErr, it.data)
 		s.afterEvent()
 		return
@@ -464,6 +465,11 @@ func (s *Service) apply(it item) {
 		return
 	}
 	if _, err := s.eng.Apply(it.pos, ev); err != nil {
+		reason := "other"
+		if rj := (*learner.Rejection)(nil); errors.As(err, &rj) {
+			reason = rj.Kind.String()
+		}
+		s.metrics.rejections.WithLabelValues(reason).Inc()
 		s.dead.add(it.pos, err, it.data)
 	} else if a := s.eng.Alarms(); a != s.lastAlarms {
 		s.lastAlarms = a

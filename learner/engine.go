@@ -236,13 +236,13 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 	}
 	if e.needTime != "" && !ev.HasTime {
 		e.rejected++
-		return false, fmt.Errorf("%w: time is missing and %s needs it", ErrRejected, e.needTime)
+		return false, reject(RejectTime, "time is missing and %s needs it", e.needTime)
 	}
 	ks := e.keys[ev.Key]
 	if ks == nil {
 		if len(e.keys) >= e.cfg.MaxKeys {
 			e.rejected++
-			return false, fmt.Errorf("%w: key %q would be key number %d, past the cap of %d", ErrRejected, truncate(ev.Key), len(e.keys)+1, e.cfg.MaxKeys)
+			return false, reject(RejectKeyCap, "key %q would be key number %d, past the cap of %d", truncate(ev.Key), len(e.keys)+1, e.cfg.MaxKeys)
 		}
 		e.schema = schema
 		ks = e.newKey(ev.Key, pos.Partition)

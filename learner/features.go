@@ -132,13 +132,13 @@ func (s *Schema) Vector(dst []float64, ev *Event) (ignored int, err error) {
 		switch {
 		case in < nd && s.Numeric[in] == f.Name:
 			if f.IsStr {
-				return 0, fmt.Errorf("%w: feature %q must be a number, got a string", ErrRejected, f.Name)
+				return 0, reject(RejectSchema, "feature %q must be a number, got a string", f.Name)
 			}
 			dst[in] = f.Num
 			in++
 		case ic < len(s.Categorical) && s.Categorical[ic] == f.Name:
 			if !f.IsStr {
-				return 0, fmt.Errorf("%w: feature %q must be a string (categorical), got a number", ErrRejected, f.Name)
+				return 0, reject(RejectSchema, "feature %q must be a string (categorical), got a number", f.Name)
 			}
 			dst[nd+int(hashFeature(f.Name, f.Str)%uint64(s.Buckets))]++
 			ic++
@@ -154,7 +154,7 @@ func (s *Schema) Vector(dst []float64, ev *Event) (ignored int, err error) {
 	}
 	if s.Time {
 		if !ev.HasTime {
-			return 0, fmt.Errorf("%w: time is missing and time features are on", ErrRejected)
+			return 0, reject(RejectTime, "time is missing and time features are on")
 		}
 		t := time.Unix(0, ev.Time).UTC()
 		day := float64(t.Hour()*3600+t.Minute()*60+t.Second())/86400 + float64(t.Nanosecond())/86400e9
@@ -181,7 +181,7 @@ func (s *Schema) missing(in, ic int, seen string) error {
 	if name == "" && ic < len(s.Categorical) {
 		name = s.Categorical[ic]
 	}
-	return fmt.Errorf("%w: feature %q is missing", ErrRejected, name)
+	return reject(RejectSchema, "feature %q is missing", name)
 }
 
 // hashFeature is FNV-1a 64 over name, a zero byte and value, written out so
