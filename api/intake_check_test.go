@@ -30,8 +30,8 @@ func TestEventsRefusedBeforeAcknowledging(t *testing.T) {
 		`{"time":"2026-03-01T12:00:00Z","key":"room-a","features":{"outdoor_c":5,"shift":"day"},"target":3}`, // 2: door_min missing
 		"", // 3: blank
 		`{"time":"2026-03-01T12:00:00Z","key":"room-a","features":{"outdoor_c":"warm","door_min":1,"shift":"day"},"target":3}`, // 4: wrong type
-		`{"key":"room-a","features":{"outdoor_c":5,"door_min":1,"shift":"day"},"target":3}`,                                   // 5: no time
-		`{"time":"2026-03-01T12:00:00Z","key":"room-d","features":{"outdoor_c":5,"door_min":1,"shift":"day"},"target":3}`,     // 6: a fourth key
+		`{"key":"room-a","features":{"outdoor_c":5,"door_min":1,"shift":"day"},"target":3}`,                                    // 5: no time
+		`{"time":"2026-03-01T12:00:00Z","key":"room-d","features":{"outdoor_c":5,"door_min":1,"shift":"day"},"target":3}`,      // 6: a fourth key
 		`not json`,        // 7
 		string(lines[31]), // 8: fine
 	}, "\n")
