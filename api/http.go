@@ -11,6 +11,7 @@ import (
 	"log/slog"
 	"math"
 	"net/http"
+	"path/filepath"
 	"strconv"
 	"strings"
 	"time"
@@ -77,8 +78,19 @@ func (s *Service) errorHandler(err error, c echo.Context) {
 	if errors.As(err, &he) {
 		code = he.Code
 		msg = fmt.Sprint(he.Message)
-		if code == http.StatusRequestEntityTooLarge {
+		if code == http.StatusRequestEntityTooLarge && msg == http.StatusText(code) {
+			// echo's body limit: say which limit (others say their own).
 			msg = fmt.Sprintf("request body larger than the limit of %d bytes; send fewer events or rows per request", s.cfg.BodyLimit)
+		}
+		// Answers never show where the service keeps its data.
+		if s.dataDir != "" {
+			msg = strings.ReplaceAll(msg, s.dataDir, "DATA")
+		}
+		if d := filepath.Clean(s.cfg.DataDir); d != "." {
+			msg = strings.ReplaceAll(msg, d+string(filepath.Separator), "DATA"+string(filepath.Separator))
+			if strings.ContainsRune(d, filepath.Separator) {
+				msg = strings.ReplaceAll(msg, d, "DATA")
+			}
 		}
 		if he.Internal != nil && code >= 500 {
 			s.cfg.Log.Error("request failed", "path", c.Path(), "error", he.Internal)
@@ -201,20 +213,25 @@ func (s *Service) handlePredict(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	var req PredictRequest
+	var req struct {
+		Learner string          `json:"learner"`
+		Rows    json.RawMessage `json:"rows"` // present (even null) means a rows request
+	}
 	if err := json.Unmarshal(body, &req); err != nil {
 		return httpErr(http.StatusBadRequest, "the body is not a JSON object: %v; send {\"key\":…,\"features\":{…}} or {\"rows\":[…]}", err)
 	}
 	single := req.Rows == nil
-	rows := req.Rows
+	var rows []json.RawMessage
 	if single {
 		rows = []json.RawMessage{body}
+	} else if err := json.Unmarshal(req.Rows, &rows); err != nil || rows == nil {
+		return httpErr(http.StatusBadRequest, "rows must be an array of rows, e.g. {\"rows\":[{\"key\":…,\"features\":{…}}]}")
 	}
 	if len(rows) == 0 {
 		return httpErr(http.StatusBadRequest, "rows is empty; send at least one row")
 	}
 	if len(rows) > s.cfg.MaxRows {
-		return httpErr(http.StatusRequestEntityTooLarge, "%d rows, more than the limit of %d per request", len(rows), s.cfg.MaxRows)
+		return httpErr(http.StatusRequestEntityTooLarge, "%d rows, more than the limit of %d rows per request (--max-rows); send fewer per request", len(rows), s.cfg.MaxRows)
 	}
 	name := req.Learner
 	if name == "" {

@@ -6,6 +6,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"io/fs"
 	"log/slog"
 	"net"
 	"net/http"
@@ -58,6 +59,7 @@ type Service struct {
 	kafkaPending bool // the topic's high watermarks were not known at start
 
 	addr      string
+	dataDir   string // absolute, to keep it out of error answers
 	listening chan struct{}
 	ckJournal map[uint64]int64 // journal offset each known checkpoint covers
 	handled   atomic.Int64     // events the loop has handled (applied, rejected or passed) since start
@@ -104,8 +106,8 @@ func New(cfg Config) (*Service, error) {
 		return nil, err
 	}
 	cfg.setDefaults()
-	if err := os.MkdirAll(cfg.DataDir, 0o700); err != nil {
-		return nil, fmt.Errorf("data directory: %w", err)
+	if err := privateDir(cfg.DataDir, cfg.Log); err != nil {
+		return nil, err
 	}
 	eng, err := learner.NewEngine(cfg.Engine)
 	if err != nil {
@@ -113,6 +115,7 @@ func New(cfg Config) (*Service, error) {
 	}
 	s := &Service{cfg: cfg, eng: eng, cmds: make(chan command), curves: newCurves(cfg.Engine.Learners, cfg.CurvePoints),
 		listening: make(chan struct{}), ckJournal: map[uint64]int64{}}
+	s.dataDir, _ = filepath.Abs(cfg.DataDir)
 	s.store, err = checkpoint.OpenStore(checkpoint.StoreConfig{Dir: filepath.Join(cfg.DataDir, "checkpoints"), Retain: cfg.Retain, FS: cfg.CheckpointFS})
 	if err != nil {
 		return nil, err
@@ -153,6 +156,34 @@ func New(cfg Config) (*Service, error) {
 	s.http = s.newHTTP()
 	s.publish()
 	return s, nil
+}
+
+// privateDir creates dir 0700, or makes an existing one 0700 (with its
+// journal and checkpoints subdirectories), saying so; it refuses a directory
+// it cannot make private.
+func privateDir(dir string, log *slog.Logger) error {
+	if err := os.MkdirAll(dir, 0o700); err != nil {
+		return fmt.Errorf("data directory: %w", err)
+	}
+	for _, d := range []string{dir, filepath.Join(dir, "journal"), filepath.Join(dir, "checkpoints")} {
+		st, err := os.Stat(d)
+		if errors.Is(err, fs.ErrNotExist) && d != dir {
+			continue
+		}
+		if err != nil {
+			return fmt.Errorf("data directory: %w", err)
+		}
+		if !st.IsDir() {
+			return fmt.Errorf("data directory: %s is not a directory", d)
+		}
+		if perm := st.Mode().Perm(); perm&0o077 != 0 {
+			if err := os.Chmod(d, 0o700); err != nil {
+				return fmt.Errorf("data directory: %s is readable by other users (mode %v) and could not be made private: %w", d, perm, err)
+			}
+			log.Warn("data directory was readable by other users; made it private (0700)", "dir", d, "was", perm.String())
+		}
+	}
+	return nil
 }
 
 func (s *Service) close() {

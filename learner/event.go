@@ -7,7 +7,9 @@ import (
 	"math"
 	"sort"
 	"strconv"
+	"strings"
 	"time"
+	"unicode/utf8"
 )
 
 // Limits on a single event. An event beyond any of them is rejected with
@@ -50,8 +52,12 @@ type wireEvent struct {
 
 // DecodeEvent parses one JSON event (DESIGN.md, "Event") into ev, reusing
 // ev.Features' storage. Any problem — not JSON, a missing or non-finite target,
-// a feature that is neither a number nor a string, a size past the limits — is
-// an error wrapping ErrInvalidEvent whose text says what is wrong.
+// a feature that is neither a number nor a string, a size past the limits,
+// bytes that are not UTF-8, a member name given twice (two "key"s, two
+// features of one name), U+FFFD in a key, feature name or categorical value
+// (the mark of text that was not valid, so that two different byte strings
+// never share a model) — is an error wrapping ErrInvalidEvent whose text
+// says what is wrong.
 func DecodeEvent(data []byte, ev *Event) error { return decodeEvent(data, ev, true) }
 
 // DecodeRow parses a prediction row: an event whose target is optional and
@@ -77,9 +83,15 @@ func decodeSlow(data []byte, ev *Event, needTarget bool) error {
 	if len(data) == 0 || data[0] != '{' {
 		return invalid("not a JSON object")
 	}
+	if !utf8.Valid(data) {
+		return invalid("not valid UTF-8 (at byte %d)", firstInvalidUTF8(data))
+	}
 	var w wireEvent
 	if err := json.Unmarshal(data, &w); err != nil {
 		return invalid("not valid JSON: %v", err)
+	}
+	if err := noDuplicateMembers(data); err != nil {
+		return err
 	}
 	*ev = Event{Features: ev.Features[:0]}
 	if needTarget || !isAbsent(w.Target) {
@@ -99,6 +111,9 @@ func decodeSlow(data []byte, ev *Event, needTarget bool) error {
 		}
 		if len(k) > MaxKeyBytes {
 			return invalid("key is %d bytes, more than the limit of %d", len(k), MaxKeyBytes)
+		}
+		if strings.ContainsRune(k, utf8.RuneError) {
+			return invalid("key %q contains U+FFFD (an invalid escape or text that was not UTF-8)", truncate(k))
 		}
 		ev.Key = k
 	}
@@ -120,6 +135,9 @@ func decodeSlow(data []byte, ev *Event, needTarget bool) error {
 		if name == "" || len(name) > MaxNameBytes {
 			return invalid("feature name %q is empty or longer than %d bytes", truncate(name), MaxNameBytes)
 		}
+		if strings.ContainsRune(name, utf8.RuneError) {
+			return invalid("feature name %q contains U+FFFD (an invalid escape or text that was not UTF-8)", truncate(name))
+		}
 		f := Feature{Name: name}
 		raw = bytes.TrimSpace(raw)
 		switch {
@@ -129,6 +147,9 @@ func decodeSlow(data []byte, ev *Event, needTarget bool) error {
 			}
 			if len(f.Str) > MaxStringBytes {
 				return invalid("feature %q: value longer than %d bytes", name, MaxStringBytes)
+			}
+			if strings.ContainsRune(f.Str, utf8.RuneError) {
+				return invalid("feature %q: value contains U+FFFD (an invalid escape or text that was not UTF-8)", name)
 			}
 			f.IsStr = true
 		default:
@@ -172,6 +193,61 @@ func ValidateEvent(ev *Event) error {
 		}
 	}
 	return nil
+}
+
+// noDuplicateMembers refuses an event object that names a member twice —
+// at the top level without regard to case, as encoding/json matches the
+// fields, and among the features exactly — which a decoder would otherwise
+// settle silently by keeping the last.
+func noDuplicateMembers(data []byte) error {
+	members := func(obj []byte, fold bool, where string) (map[string]json.RawMessage, error) {
+		dec := json.NewDecoder(bytes.NewReader(obj))
+		if _, err := dec.Token(); err != nil {
+			return nil, invalid("not valid JSON: %v", err)
+		}
+		out := map[string]json.RawMessage{}
+		for dec.More() {
+			t, err := dec.Token()
+			if err != nil {
+				return nil, invalid("not valid JSON: %v", err)
+			}
+			name, _ := t.(string)
+			k := name
+			if fold {
+				k = strings.ToLower(name)
+			}
+			if _, dup := out[k]; dup {
+				return nil, invalid("%s %q appears twice", where, truncate(name))
+			}
+			var v json.RawMessage
+			if err := dec.Decode(&v); err != nil {
+				return nil, invalid("not valid JSON: %v", err)
+			}
+			out[k] = v
+		}
+		return out, nil
+	}
+	top, err := members(data, true, "member")
+	if err != nil {
+		return err
+	}
+	if f := bytes.TrimSpace(top["features"]); len(f) > 0 && f[0] == '{' {
+		_, err = members(f, false, "feature")
+	}
+	return err
+}
+
+// firstInvalidUTF8 returns the offset of the first byte of b that is not
+// part of valid UTF-8.
+func firstInvalidUTF8(b []byte) int {
+	for i := 0; i < len(b); {
+		r, n := utf8.DecodeRune(b[i:])
+		if r == utf8.RuneError && n <= 1 {
+			return i
+		}
+		i += n
+	}
+	return len(b)
 }
 
 func finite(v float64) bool { return !math.IsNaN(v) && math.Abs(v) <= MaxAbsValue }
