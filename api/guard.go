@@ -67,7 +67,7 @@ func (s *Service) sameOrigin(next echo.HandlerFunc) echo.HandlerFunc {
 // Media types a changing request may declare.
 var (
 	jsonTypes   = []string{"application/json"}
-	eventsTypes = []string{"application/json", "application/x-ndjson", "application/ndjson"}
+	eventsTypes = []string{"application/x-ndjson", "application/json", "application/ndjson"}
 )
 
 // requireType refuses a body whose Content-Type is none of types with 415.
@@ -86,7 +86,7 @@ func requireType(types ...string) echo.MiddlewareFunc {
 				return next(c)
 			}
 			return httpErr(http.StatusUnsupportedMediaType, "Content-Type %q is not accepted here; send %s (with curl: -H 'Content-Type: %s')",
-				truncateText(ct, 100), strings.Join(types, " or "), types[len(types)-1])
+				truncateText(ct, 100), strings.Join(types, " or "), types[0])
 		}
 	}
 }
