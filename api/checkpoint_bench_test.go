@@ -6,6 +6,7 @@ import (
 	"strconv"
 	"testing"
 
+	"tidemark/api/persist"
 	"tidemark/checkpoint"
 	"tidemark/learner"
 )
@@ -61,7 +62,7 @@ func BenchmarkCheckpointWrite(b *testing.B) {
 			b.ResetTimer()
 			var info checkpoint.Info
 			for i := 0; i < b.N; i++ {
-				if info, err = store.Write(Manifest(eng, checkpoint.Manual, 0), ToCheckpoint(eng.Sections())); err != nil {
+				if info, err = persist.Save(store, eng, checkpoint.Manual, 0, nil); err != nil {
 					b.Fatal(err)
 				}
 			}
@@ -81,7 +82,7 @@ func BenchmarkCheckpointLoad(b *testing.B) {
 				b.Fatal(err)
 			}
 			defer store.Close()
-			info, err := store.Write(Manifest(eng, checkpoint.Manual, 0), ToCheckpoint(eng.Sections()))
+			info, err := persist.Save(store, eng, checkpoint.Manual, 0, nil)
 			if err != nil {
 				b.Fatal(err)
 			}
@@ -93,7 +94,7 @@ func BenchmarkCheckpointLoad(b *testing.B) {
 				if err != nil {
 					b.Fatal(err)
 				}
-				if err := into.DecodeSections(FromCheckpoint(ck.Sections)); err != nil {
+				if err := into.DecodeSections(persist.FromCheckpoint(ck.Sections)); err != nil {
 					b.Fatal(err)
 				}
 			}

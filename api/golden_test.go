@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"tidemark/api/intake"
+	"tidemark/api/persist"
 	"tidemark/bench/synth"
 	"tidemark/checkpoint"
 	"tidemark/learner"
@@ -78,7 +79,7 @@ func TestGoldenCheckpointV1(t *testing.T) {
 		t.Fatalf("the golden version-1 checkpoint no longer loads: %v", err)
 	}
 	eng := goldenEngine(t)
-	if err := eng.DecodeSections(FromCheckpoint(c.Sections)); err != nil {
+	if err := eng.DecodeSections(persist.FromCheckpoint(c.Sections)); err != nil {
 		t.Fatalf("its state no longer decodes: %v", err)
 	}
 	if *updateReport {

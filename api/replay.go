@@ -13,6 +13,7 @@ import (
 	"sync"
 
 	"tidemark/api/intake"
+	"tidemark/api/persist"
 	"tidemark/checkpoint"
 	"tidemark/learner"
 )
@@ -25,8 +26,9 @@ const DefaultRejectLog = 20
 var (
 	// ErrStrict: a rejected line in strict mode.
 	ErrStrict = errors.New("api: rejected line in strict mode")
-	// ErrResume: a checkpoint cannot be resumed on this history or configuration.
-	ErrResume = errors.New("api: cannot resume")
+	// ErrResume: a checkpoint cannot be resumed on this history or
+	// configuration (the persistence room's sentinel).
+	ErrResume = persist.ErrResume
 )
 
 // ReplayConfig configures Replay.
@@ -403,11 +405,8 @@ func (r *replayer) learnerSpecs() []string {
 
 // checkpoint writes the engine's state and the history position.
 func (r *replayer) checkpoint(reason checkpoint.Reason) error {
-	src, _ := json.Marshal(historySource{Kind: "history", Lines: r.applied,
+	info, err := persist.Save(r.cfg.Checkpoints, r.eng, reason, r.parent, historySource{Kind: "history", Lines: r.applied,
 		PrefixSHA256: hex.EncodeToString(r.digest[:]), Learners: r.learnerSpecs()})
-	m := Manifest(r.eng, reason, r.parent)
-	m.Source = src
-	info, err := r.cfg.Checkpoints.Write(m, ToCheckpoint(r.eng.Sections()))
 	if err != nil {
 		return err
 	}
@@ -417,13 +416,13 @@ func (r *replayer) checkpoint(reason checkpoint.Reason) error {
 
 // restore loads the newest good checkpoint into the engine.
 func (r *replayer) restore() error {
-	c, skipped, err := r.cfg.Checkpoints.Latest()
+	c, skipped, err := persist.Newest(r.cfg.Checkpoints)
 	for _, s := range skipped {
 		if r.cfg.Log != nil {
 			fmt.Fprintf(r.cfg.Log, "skipping a checkpoint that fails its checks: %v\n", s)
 		}
 	}
-	if errors.Is(err, checkpoint.ErrNotFound) {
+	if err == nil && c == nil {
 		if r.cfg.Log != nil {
 			fmt.Fprintf(r.cfg.Log, "no checkpoint in %s to resume from; starting at the first line\n", r.cfg.Checkpoints.Dir())
 		}
@@ -436,13 +435,9 @@ func (r *replayer) restore() error {
 	if err := json.Unmarshal(c.Manifest.Source, &src); err != nil || src.Kind != "history" {
 		return fmt.Errorf("%w: checkpoint %d was not taken by a replay of a history file", ErrResume, c.Manifest.Version)
 	}
-	if want := r.eng.Config().Digest(); c.Manifest.ConfigSHA256 != want {
-		return fmt.Errorf("%w: checkpoint %d was taken with learners %q; now %q (or other settings differ); "+
-			"resume with the same --learner flags and settings, or use another checkpoint directory",
-			ErrResume, c.Manifest.Version, src.Learners, r.learnerSpecs())
-	}
-	if err := r.eng.DecodeSections(FromCheckpoint(c.Sections)); err != nil {
-		return fmt.Errorf("checkpoint %d: %w", c.Manifest.Version, err)
+	if err := persist.Adopt(r.eng, c, fmt.Sprintf("it was taken with learners %q; now %q (or other settings differ); "+
+		"resume with the same --learner flags and settings, or use another checkpoint directory", src.Learners, r.learnerSpecs())); err != nil {
+		return err
 	}
 	if r.cfg.Log != nil {
 		fmt.Fprintf(r.cfg.Log, "resuming from checkpoint %d after line %d (%d events applied)\n", c.Manifest.Version, src.Lines, c.Manifest.Events)
@@ -452,34 +447,4 @@ func (r *replayer) restore() error {
 		r.resume = &src
 	}
 	return nil
-}
-
-// Manifest fills a checkpoint manifest from the engine's state.
-func Manifest(eng *learner.Engine, reason checkpoint.Reason, parent uint64) checkpoint.Manifest {
-	m := checkpoint.Manifest{Parent: parent, Reason: reason, Events: eng.Applied(), ConfigSHA256: eng.Config().Digest()}
-	for _, p := range eng.Positions() {
-		m.Positions = append(m.Positions, checkpoint.Position{Partition: p.Partition, Offset: p.Offset})
-	}
-	for _, l := range eng.Report(false).Learners {
-		m.Metrics = append(m.Metrics, checkpoint.Metric{Name: l.Name, Scored: l.Scored, MAE: l.MAE, RMSE: l.RMSE})
-	}
-	return m
-}
-
-// ToCheckpoint converts the engine's sections to the checkpoint's type.
-func ToCheckpoint(secs []learner.Section) []checkpoint.Section {
-	out := make([]checkpoint.Section, len(secs))
-	for i, s := range secs {
-		out[i] = checkpoint.Section{Global: s.Global, Partition: s.Partition, Bytes: s.Bytes}
-	}
-	return out
-}
-
-// FromCheckpoint converts checkpoint sections to the engine's type.
-func FromCheckpoint(secs []checkpoint.Section) []learner.Section {
-	out := make([]learner.Section, len(secs))
-	for i, s := range secs {
-		out[i] = learner.Section{Global: s.Global, Partition: s.Partition, Bytes: s.Bytes}
-	}
-	return out
 }

@@ -18,6 +18,7 @@ import (
 	"time"
 
 	"tidemark/api/intake"
+	"tidemark/api/persist"
 	"tidemark/checkpoint"
 	"tidemark/learner"
 )
@@ -206,11 +207,11 @@ type serviceSource struct {
 
 // restoreLatest loads the newest good checkpoint at start.
 func (s *Service) restoreLatest() error {
-	c, skipped, err := s.store.Latest()
+	c, skipped, err := persist.Newest(s.store)
 	for _, e := range skipped {
 		s.cfg.Log.Warn("skipping a checkpoint that fails its checks", "error", e)
 	}
-	if errors.Is(err, checkpoint.ErrNotFound) {
+	if err == nil && c == nil {
 		s.cfg.Log.Info("no checkpoint yet; starting from the beginning of the stream")
 		s.lastCkTime = time.Now()
 		s.setCatchUp()
@@ -244,14 +245,7 @@ func (s *Service) adopt(c *checkpoint.Checkpoint) error {
 
 // decodeInto decodes checkpoint c into eng after checking its configuration.
 func (s *Service) decodeInto(eng *learner.Engine, c *checkpoint.Checkpoint) error {
-	if want := eng.Config().Digest(); c.Manifest.ConfigSHA256 != want {
-		return fmt.Errorf("%w: checkpoint %d was taken under another configuration of learners or features; "+
-			"start with the same settings, or point --data at another directory", ErrResume, c.Manifest.Version)
-	}
-	if err := eng.DecodeSections(FromCheckpoint(c.Sections)); err != nil {
-		return fmt.Errorf("checkpoint %d: %w", c.Manifest.Version, err)
-	}
-	return nil
+	return persist.Adopt(eng, c, "start with the same settings, or point --data at another directory")
 }
 
 // setCatchUp records the positions the engine must reach to be ready.
@@ -556,9 +550,7 @@ func (s *Service) checkpoint(reason checkpoint.Reason, parent uint64) error {
 	if parent == 0 {
 		parent = s.lastCk.Version
 	}
-	m := Manifest(s.eng, reason, parent)
-	m.Source, _ = json.Marshal(serviceSource{Kind: "service", Skip: s.skip})
-	info, err := s.store.Write(m, ToCheckpoint(s.eng.Sections()))
+	info, err := persist.Save(s.store, s.eng, reason, parent, serviceSource{Kind: "service", Skip: s.skip})
 	if err != nil {
 		s.metrics.checkpointFailures.Inc()
 		return err

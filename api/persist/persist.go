@@ -1,0 +1,94 @@
+// Package persist is the one place where the engine's state meets the
+// checkpoint store: it builds manifests, saves the state with a record of
+// its source, and loads the newest good checkpoint back into an engine after
+// checking that it was taken under the same configuration. The service and
+// the replay both use it; neither knows the other.
+//
+// Nothing here holds state; every function is safe for concurrent use on
+// distinct engines (an engine itself belongs to one goroutine).
+package persist
+
+import (
+	"encoding/json"
+	"errors"
+	"fmt"
+
+	"tidemark/checkpoint"
+	"tidemark/learner"
+)
+
+// ErrResume: a checkpoint cannot be resumed here — it was taken under
+// another configuration of learners or features, or (for a replay) over
+// another history.
+var ErrResume = errors.New("persist: cannot resume")
+
+// Manifest fills a checkpoint manifest from the engine's state: positions,
+// events applied, the configuration digest and each learner's overall
+// figures. The store assigns the version and the creation time.
+func Manifest(eng *learner.Engine, reason checkpoint.Reason, parent uint64) checkpoint.Manifest {
+	m := checkpoint.Manifest{Parent: parent, Reason: reason, Events: eng.Applied(), ConfigSHA256: eng.Config().Digest()}
+	for _, p := range eng.Positions() {
+		m.Positions = append(m.Positions, checkpoint.Position{Partition: p.Partition, Offset: p.Offset})
+	}
+	for _, l := range eng.Report(false).Learners {
+		m.Metrics = append(m.Metrics, checkpoint.Metric{Name: l.Name, Scored: l.Scored, MAE: l.MAE, RMSE: l.RMSE})
+	}
+	return m
+}
+
+// Save writes the engine's state to store as a new version with the given
+// reason and parent (0: none); source, marshalled to JSON, records what the
+// state was read from (a service's skip rule, a replay's history prefix).
+func Save(store *checkpoint.Store, eng *learner.Engine, reason checkpoint.Reason, parent uint64, source any) (checkpoint.Info, error) {
+	m := Manifest(eng, reason, parent)
+	if source != nil {
+		b, err := json.Marshal(source)
+		if err != nil {
+			return checkpoint.Info{}, fmt.Errorf("persist: source record: %w", err)
+		}
+		m.Source = b
+	}
+	return store.Write(m, ToCheckpoint(eng.Sections()))
+}
+
+// Adopt decodes checkpoint c into eng after checking that it was taken under
+// eng's configuration; otherwise the error wraps ErrResume and ends with
+// hint (what the user should do).
+func Adopt(eng *learner.Engine, c *checkpoint.Checkpoint, hint string) error {
+	if want := eng.Config().Digest(); c.Manifest.ConfigSHA256 != want {
+		return fmt.Errorf("%w: checkpoint %d was taken under another configuration of learners or features; %s", ErrResume, c.Manifest.Version, hint)
+	}
+	if err := eng.DecodeSections(FromCheckpoint(c.Sections)); err != nil {
+		return fmt.Errorf("checkpoint %d: %w", c.Manifest.Version, err)
+	}
+	return nil
+}
+
+// Newest loads the newest checkpoint of store that passes every check. Newer
+// files that fail are skipped (left in place) and returned in skipped. With no
+// good checkpoint it returns a nil checkpoint and no error.
+func Newest(store *checkpoint.Store) (c *checkpoint.Checkpoint, skipped []error, err error) {
+	c, skipped, err = store.Latest()
+	if errors.Is(err, checkpoint.ErrNotFound) {
+		return nil, skipped, nil
+	}
+	return c, skipped, err
+}
+
+// ToCheckpoint converts the engine's sections to the checkpoint's type.
+func ToCheckpoint(secs []learner.Section) []checkpoint.Section {
+	out := make([]checkpoint.Section, len(secs))
+	for i, s := range secs {
+		out[i] = checkpoint.Section{Global: s.Global, Partition: s.Partition, Bytes: s.Bytes}
+	}
+	return out
+}
+
+// FromCheckpoint converts checkpoint sections to the engine's type.
+func FromCheckpoint(secs []checkpoint.Section) []learner.Section {
+	out := make([]learner.Section, len(secs))
+	for i, s := range secs {
+		out[i] = learner.Section{Global: s.Global, Partition: s.Partition, Bytes: s.Bytes}
+	}
+	return out
+}
