@@ -14,6 +14,7 @@ import (
 
 	"tidemark/api/intake"
 	"tidemark/api/persist"
+	"tidemark/api/replay"
 	"tidemark/bench/synth"
 	"tidemark/checkpoint"
 	"tidemark/learner"
@@ -62,7 +63,7 @@ func TestGoldenCheckpointV1(t *testing.T) {
 		lines := bytes.SplitAfter(buf.Bytes(), []byte("\n"))
 		eng := goldenEngine(t)
 		h := intake.NewHistoryReader(bytes.NewReader(bytes.Join(lines[:200], nil)))
-		if err := Replay(context.Background(), h, eng, ReplayConfig{Checkpoints: store}); err != nil {
+		if err := replay.Replay(context.Background(), h, eng, replay.ReplayConfig{Checkpoints: store}); err != nil {
 			t.Fatal(err)
 		}
 		store.Close()

@@ -17,6 +17,7 @@ import (
 	"github.com/twmb/franz-go/pkg/kfake"
 
 	"tidemark/api/intake"
+	"tidemark/api/replay"
 	"tidemark/learner"
 )
 
@@ -180,7 +181,7 @@ func TestKafkaServiceAgreesWithReplay(t *testing.T) {
 
 	row := `{"key":"room-c","time":"2026-03-02T23:00:00Z","features":{"outdoor_c":6.5,"door_min":0,"shift":"night"}}`
 	refEng, _ := learner.NewEngine(engineConfig(t, serviceSpecs...))
-	Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(partitionOrder(t, addr, last), []byte("\n")), '\n'))), refEng, ReplayConfig{})
+	replay.Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(partitionOrder(t, addr, last), []byte("\n")), '\n'))), refEng, replay.ReplayConfig{})
 	for _, name := range serviceSpecs {
 		code, b := r.call(t, "POST", "/v1/predict", "", []byte(fmt.Sprintf(`{"learner":%q,"rows":[%s]}`, name, row)))
 		var resp PredictResponse

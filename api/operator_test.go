@@ -9,6 +9,7 @@ import (
 	"time"
 
 	"tidemark/api/intake"
+	"tidemark/api/replay"
 	"tidemark/checkpoint"
 	"tidemark/learner"
 )
@@ -76,7 +77,7 @@ func TestOperatorStory(t *testing.T) {
 	time.Sleep(3 * DefaultPublishEvery / 2)
 
 	ref, _ := learner.NewEngine(engineConfig(t, serviceSpecs...))
-	Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(clean, []byte("\n")), '\n'))), ref, ReplayConfig{})
+	replay.Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(clean, []byte("\n")), '\n'))), ref, replay.ReplayConfig{})
 	for _, key := range []string{"room-a", "room-b", "room-c"} {
 		row := fmt.Sprintf(`{"key":%q,"time":"2026-03-03T18:00:00Z","features":{"outdoor_c":11,"door_min":1,"shift":"late"}}`, key)
 		for _, name := range serviceSpecs {

@@ -14,6 +14,7 @@ import (
 	"time"
 
 	"tidemark/api/intake"
+	"tidemark/api/replay"
 	"tidemark/bench/synth"
 	"tidemark/learner"
 )
@@ -151,7 +152,7 @@ func replayReport(t testing.TB, cfg learner.Config, lines [][]byte) learner.Repo
 		t.Fatal(err)
 	}
 	h := intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(lines, []byte("\n")), '\n')))
-	if err := Replay(context.Background(), h, eng, ReplayConfig{}); err != nil {
+	if err := replay.Replay(context.Background(), h, eng, replay.ReplayConfig{}); err != nil {
 		t.Fatal(err)
 	}
 	return eng.Report(true)
@@ -234,9 +235,9 @@ func TestRestoreModes(t *testing.T) {
 		// Events 601..1000 are forgotten: the state equals a run over 1..600
 		// then 1001..n, that is every line but those.
 		eng, _ := learner.NewEngine(cfg)
-		Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(lines[:600], []byte("\n")), '\n'))), eng, ReplayConfig{})
+		replay.Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(lines[:600], []byte("\n")), '\n'))), eng, replay.ReplayConfig{})
 		eng.CoverUpTo([]learner.Position{{Partition: 0, Offset: 1000}})
-		Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(lines, []byte("\n")), '\n'))), eng, ReplayConfig{})
+		replay.Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(lines, []byte("\n")), '\n'))), eng, replay.ReplayConfig{})
 		want := eng.Report(true)
 		got.Skipped, want.Skipped = 0, 0
 		sameJSON(t, "after from_now", got, want)
@@ -279,7 +280,7 @@ func TestRestoreModes(t *testing.T) {
 			var resp PredictResponse
 			json.Unmarshal(b, &resp)
 			refEng, _ := learner.NewEngine(cfg)
-			Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(kept, []byte("\n")), '\n'))), refEng, ReplayConfig{})
+			replay.Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(kept, []byte("\n")), '\n'))), refEng, replay.ReplayConfig{})
 			var ev learner.Event
 			learner.DecodeRow(row, &ev)
 			p, _ := refEng.Predict("room-b", name, &ev)
@@ -470,21 +471,6 @@ func TestJournalTrimmedBehindRetainedCheckpoints(t *testing.T) {
 	r2.waitCovered(t, int64(len(lines)+10))
 }
 
-func TestReplayPipelineEqualsSequential(t *testing.T) {
-	lines := scenario(t, 3)
-	run := func(seq bool) *learner.Engine {
-		eng, _ := learner.NewEngine(engineConfig(t, serviceSpecs...))
-		h := intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(lines, []byte("\n")), '\n')))
-		if err := Replay(context.Background(), h, eng, ReplayConfig{Sequential: seq}); err != nil {
-			t.Fatal(err)
-		}
-		return eng
-	}
-	if a, b := run(false), run(true); a.Digest() != b.Digest() || a.Applied() != int64(len(lines)) {
-		t.Errorf("pipelined and single-goroutine replays differ (applied %d and %d)", a.Applied(), b.Applied())
-	}
-}
-
 func TestDashboard(t *testing.T) {
 	cfg := testConfig(t, t.TempDir())
 	cfg.CurveEvery = 20
@@ -528,25 +514,6 @@ func TestDemoSmoke(t *testing.T) {
 
 func newCancel() (context.Context, context.CancelFunc) {
 	return context.WithCancel(context.Background())
-}
-
-func TestReplayParallelEqualsSingle(t *testing.T) {
-	var buf bytes.Buffer
-	synth.Write(&buf, synth.Config{Days: 3, Seed: 2}) // malformed lines included
-	cfg := engineConfig(t, "knn:k=3,window=300", "rls:forget=0.99", "mean:window=100", "knn:k=7,window=all,max=500",
-		"sliding-rls:window=200", "rls:half_life=6h", "mean")
-	single, _ := learner.NewEngine(cfg)
-	if err := Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(buf.Bytes())), single, ReplayConfig{}); err != nil {
-		t.Fatal(err)
-	}
-	want := single.Report(true)
-	for _, workers := range []int{2, 3, 7} {
-		got, err := ReplayParallel(context.Background(), intake.NewHistoryReader(bytes.NewReader(buf.Bytes())), cfg, workers, ReplayConfig{})
-		if err != nil {
-			t.Fatal(err)
-		}
-		sameJSON(t, fmt.Sprintf("%d workers against one engine", workers), got, want)
-	}
 }
 
 // TestListenFailureIsReported: an address in use is an error that says what

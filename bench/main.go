@@ -39,6 +39,7 @@ import (
 
 	"tidemark/api"
 	"tidemark/api/intake"
+	"tidemark/api/replay"
 	"tidemark/bench/synth"
 	"tidemark/learner"
 )
@@ -281,7 +282,7 @@ func replayThroughput() result {
 		var ms0, ms1 runtime.MemStats
 		runtime.ReadMemStats(&ms0)
 		t0 := time.Now()
-		api.Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(data)), eng, api.ReplayConfig{})
+		replay.Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(data)), eng, replay.ReplayConfig{})
 		el := time.Since(t0)
 		runtime.ReadMemStats(&ms1)
 		ns := float64(el.Nanoseconds()) / float64(eng.Applied())

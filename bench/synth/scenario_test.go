@@ -7,8 +7,8 @@ import (
 	"testing"
 	"time"
 
-	"tidemark/api"
 	"tidemark/api/intake"
+	"tidemark/api/replay"
 	"tidemark/bench/synth"
 	"tidemark/learner"
 )
@@ -35,7 +35,7 @@ func TestScenarioShowsWhyOnlineLearningMatters(t *testing.T) {
 	var alarms []alarm
 	seen := make([]int64, len(cfg.Learners))
 	var log strings.Builder
-	rc := api.ReplayConfig{Log: &log, Observe: func(_ int64, ev *learner.Event, e *learner.Engine) {
+	rc := replay.ReplayConfig{Log: &log, Observe: func(_ int64, ev *learner.Event, e *learner.Engine) {
 		for i := range seen {
 			if a := e.LearnerAlarms(i); a != seen[i] {
 				seen[i] = a
@@ -44,7 +44,7 @@ func TestScenarioShowsWhyOnlineLearningMatters(t *testing.T) {
 			}
 		}
 	}}
-	if err := api.Replay(context.Background(), intake.NewHistoryReader(&buf), eng, rc); err != nil {
+	if err := replay.Replay(context.Background(), intake.NewHistoryReader(&buf), eng, rc); err != nil {
 		t.Fatal(err)
 	}
 	rep := eng.Report(false)

@@ -21,6 +21,7 @@ import (
 
 	"tidemark/api"
 	"tidemark/api/intake"
+	"tidemark/api/replay"
 	"tidemark/checkpoint"
 	"tidemark/learner"
 )
@@ -273,7 +274,7 @@ func TestCrashLoopHTTPIntake(t *testing.T) {
 	// The state equals an uninterrupted run over the journal's events.
 	eng, _ := learner.NewEngine(crashEngine(t))
 	h := intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(payloads, []byte("\n")), '\n')))
-	if err := api.Replay(context.Background(), h, eng, api.ReplayConfig{}); err != nil {
+	if err := replay.Replay(context.Background(), h, eng, replay.ReplayConfig{}); err != nil {
 		t.Fatal(err)
 	}
 	d := eng.Digest()
@@ -357,7 +358,7 @@ func TestCrashLoopKafkaIntake(t *testing.T) {
 	}
 	eng, _ := learner.NewEngine(crashEngine(t))
 	h := intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(lines, []byte("\n")), '\n')))
-	api.Replay(context.Background(), h, eng, api.ReplayConfig{})
+	replay.Replay(context.Background(), h, eng, replay.ReplayConfig{})
 	d := eng.Digest()
 	got := newestState(t, dir)
 	if got.Events != int64(produced) {

@@ -11,9 +11,9 @@ import (
 	"os/signal"
 	"strings"
 
-	"tidemark/api"
-	"tidemark/api/chart"
 	"tidemark/api/intake"
+	"tidemark/api/replay"
+	"tidemark/api/replay/chart"
 	"tidemark/checkpoint"
 	"tidemark/learner"
 )
@@ -140,7 +140,7 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 	}
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
 	defer stop()
-	rc := api.ReplayConfig{Strict: *strict, Log: stderr, Checkpoints: store, Every: *every, Resume: *resume, Sequential: *sequential}
+	rc := replay.ReplayConfig{Strict: *strict, Log: stderr, Checkpoints: store, Every: *every, Resume: *resume, Sequential: *sequential}
 	var rec *chart.Recorder
 	if *curvePath != "" || *plotPath != "" {
 		rec = chart.NewRecorder(eng, *curveEvery, *plotKey)
@@ -154,14 +154,14 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 	parallel := *workers != 1 && store == nil && rec == nil && !*sequential && len(cfg.Learners) > 1
 	var report learner.Report
 	if parallel {
-		report, err = api.ReplayParallel(ctx, h, cfg, *workers, rc)
+		report, err = replay.ReplayParallel(ctx, h, cfg, *workers, rc)
 	} else {
-		err = api.Replay(ctx, h, eng, rc)
+		err = replay.Replay(ctx, h, eng, rc)
 	}
 	if bar != nil {
 		bar.finish()
 	}
-	if errors.Is(err, api.ErrStrict) || errors.Is(err, api.ErrResume) {
+	if errors.Is(err, replay.ErrStrict) || errors.Is(err, replay.ErrResume) {
 		return usageError{err}
 	}
 	if err != nil {
@@ -209,5 +209,5 @@ func writeReport(w io.Writer, r learner.Report, asJSON bool) error {
 		enc.SetIndent("", "  ")
 		return enc.Encode(r)
 	}
-	return api.WriteTable(w, r)
+	return replay.WriteTable(w, r)
 }

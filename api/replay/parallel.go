@@ -1,4 +1,4 @@
-package api
+package replay
 
 import (
 	"context"
@@ -23,7 +23,7 @@ func ReplayParallel(ctx context.Context, h *intake.History, cfg learner.Config, 
 	}
 	workers = min(workers, len(cfg.Learners))
 	if rc.Checkpoints != nil || rc.Resume || rc.Observe != nil {
-		return learner.Report{}, fmt.Errorf("api: a parallel replay cannot take checkpoints, resume or observers")
+		return learner.Report{}, fmt.Errorf("replay: a parallel replay cannot take checkpoints, resume or observers")
 	}
 	groups := splitLearners(cfg.Learners, max(workers, 1))
 	engines := make([]*learner.Engine, len(groups))

@@ -11,9 +11,9 @@ import (
 	"path/filepath"
 	"testing"
 
-	"tidemark/api"
-	"tidemark/api/chart"
 	"tidemark/api/intake"
+	"tidemark/api/replay"
+	"tidemark/api/replay/chart"
 	"tidemark/bench/synth"
 	"tidemark/learner"
 )
@@ -29,7 +29,7 @@ func record(t *testing.T, every int64) (*chart.Recorder, *learner.Engine) {
 	}
 	eng, _ := learner.NewEngine(cfg)
 	rec := chart.NewRecorder(eng, every, "room-b")
-	if err := api.Replay(context.Background(), intake.NewHistoryReader(&buf), eng, api.ReplayConfig{Observe: rec.Observe}); err != nil {
+	if err := replay.Replay(context.Background(), intake.NewHistoryReader(&buf), eng, replay.ReplayConfig{Observe: rec.Observe}); err != nil {
 		t.Fatal(err)
 	}
 	rec.Finish(eng)

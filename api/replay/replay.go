@@ -1,4 +1,4 @@
-package api
+package replay
 
 import (
 	"bytes"
@@ -25,7 +25,7 @@ const DefaultRejectLog = 20
 // Errors of Replay.
 var (
 	// ErrStrict: a rejected line in strict mode.
-	ErrStrict = errors.New("api: rejected line in strict mode")
+	ErrStrict = errors.New("replay: rejected line in strict mode")
 	// ErrResume: a checkpoint cannot be resumed on this history or
 	// configuration (the persistence room's sentinel).
 	ErrResume = persist.ErrResume
@@ -101,7 +101,7 @@ func Replay(ctx context.Context, h *intake.History, eng *learner.Engine, cfg Rep
 	}
 	r := &replayer{cfg: cfg, eng: eng, prefix: sha256.New()}
 	if len(cfg.Helpers) > 0 && (cfg.Checkpoints != nil || cfg.Resume || cfg.Sequential) {
-		return errors.New("api: helper engines cannot be combined with checkpoints, resume or a sequential run")
+		return errors.New("replay: helper engines cannot be combined with checkpoints, resume or a sequential run")
 	}
 	if cfg.Resume {
 		if cfg.Checkpoints == nil {
