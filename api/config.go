@@ -84,6 +84,10 @@ type Config struct {
 	CurvePoints int
 	// Kafka, when set, is the event source instead of the local journal.
 	Kafka *intake.KafkaConfig
+	// History, when set, is a history file (NDJSON, plain, .gz or
+	// .zst) to learn from instead of the local journal: each line's position
+	// is its line number. Default: none (the journal).
+	History string
 	// Log receives operational messages; never tokens or event payloads at
 	// Info level. Nil discards them.
 	Log *slog.Logger
@@ -157,6 +161,9 @@ func (c *Config) Validate() error {
 	if c.Kafka != nil {
 		if err := c.Kafka.Validate(); err != nil {
 			errs = append(errs, err)
+		}
+		if c.History != "" {
+			errs = append(errs, errors.New("sources: give Kafka or a history file, not both"))
 		}
 	}
 	return errors.Join(errs...)

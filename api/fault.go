@@ -26,6 +26,9 @@ const (
 	// clears it by skipping exactly the lost offsets (POST
 	// /v1/intake/skip-damaged) or by replacing the segment and restarting.
 	faultDamage = "damage"
+	// faultSource: the source stopped for another reason; a restart once
+	// the cause is fixed clears it.
+	faultSource = "source"
 )
 
 // fault is the condition that stopped intake.

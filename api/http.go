@@ -19,6 +19,7 @@ import (
 	"github.com/labstack/echo/v4"
 	"github.com/labstack/echo/v4/middleware"
 
+	"tidemark/api/intake"
 	"tidemark/checkpoint"
 	"tidemark/learner"
 )
@@ -303,7 +304,7 @@ type RejectedEvent struct {
 // acknowledged once durable.
 func (s *Service) handleEvents(c echo.Context) error {
 	if s.journal == nil {
-		return httpErr(http.StatusConflict, "this service learns from Kafka; produce events to its topic instead of posting them")
+		return httpErr(http.StatusConflict, "this service learns from %v, not from events posted to it (for Kafka: produce them to its topic)", s.src)
 	}
 	if f := s.fault.Load(); f != nil {
 		return httpErr(http.StatusServiceUnavailable, "events refused: %s", f.message)
@@ -468,14 +469,9 @@ func (s *Service) handleReady(c echo.Context) error {
 		return c.JSON(http.StatusServiceUnavailable, map[string]any{"ready": false, "message": f.message,
 			"since": f.since.UTC().Format(time.RFC3339)})
 	}
-	if s.kafka != nil {
-		if ok, since := s.kafka.Connected(); !ok {
-			msg := "the Kafka brokers are unreachable; reconnecting with backoff"
-			if !since.IsZero() {
-				msg = fmt.Sprintf("the Kafka brokers have been unreachable since %s; reconnecting with backoff", since.UTC().Format(time.RFC3339))
-			}
-			return c.JSON(http.StatusServiceUnavailable, map[string]any{"ready": false, "message": msg})
-		}
+	var outage *intake.Outage
+	if err := s.src.Health(); errors.As(err, &outage) {
+		return c.JSON(http.StatusServiceUnavailable, map[string]any{"ready": false, "message": outage.Error()})
 	}
 	if !s.ready.Load() {
 		return c.JSON(http.StatusServiceUnavailable, map[string]any{"ready": false, "message": "restoring or catching up with the stream"})

@@ -121,9 +121,9 @@ func (c *snapshotCollector) Collect(ch chan<- prometheus.Metric) {
 	for _, l := range c.s.lag(snap) {
 		gauge(descLag, float64(l.Offset), strconv.Itoa(int(l.Partition)))
 	}
-	if c.s.kafka != nil {
+	if k, ok := c.s.src.(interface{ Connected() (bool, time.Time) }); ok { // sources that connect to something
 		conn := 0.0
-		if ok, _ := c.s.kafka.Connected(); ok {
+		if up, _ := k.Connected(); up {
 			conn = 1
 		}
 		gauge(descConn, conn)

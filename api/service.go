@@ -32,8 +32,8 @@ type Service struct {
 	cfg     Config
 	eng     *learner.Engine // the loop's alone
 	store   *checkpoint.Store
-	journal *intake.Journal
-	kafka   *intake.Kafka
+	src     intake.Source   // where events come from
+	journal intake.Appender // the source, when it takes events over HTTP; else nil
 	dead    *deadLetters
 	metrics *metrics
 	http    *http.Server
@@ -44,26 +44,26 @@ type Service struct {
 	fault atomic.Pointer[fault] // what stopped intake, or nil
 
 	// loop state
-	lastCk       checkpoint.Info
-	sinceCk      int64
-	lastCkTime   time.Time
-	skip         *skipRule
-	caughtUp     []learner.Position // ready once the engine covers these
-	curves       *curves
-	lastAlarms   int64
-	generation   int
-	published    int64
-	sourceStop   context.CancelFunc
-	items        chan item
-	sourceDone   chan struct{}
-	sourceMu     sync.Mutex
-	kafkaPending bool // the topic's high watermarks were not known at start
+	lastCk     checkpoint.Info
+	sinceCk    int64
+	lastCkTime time.Time
+	skip       *skipRule
+	caughtUp   []learner.Position // ready once the engine covers these
+	curves     *curves
+	lastAlarms int64
+	generation int
+	published  int64
+	sourceStop context.CancelFunc
+	items      chan item
+	sourceDone chan struct{}
+	sourceMu   sync.Mutex
+	availKnown bool // the source has said what it holds (Kafka: once the brokers answered)
 
-	addr      string
-	dataDir   string // absolute, to keep it out of error answers
-	listening chan struct{}
-	ckJournal map[uint64]int64 // journal offset each known checkpoint covers
-	handled   atomic.Int64     // events the loop has handled (applied, rejected or passed) since start
+	addr        string
+	dataDir     string // absolute, to keep it out of error answers
+	listening   chan struct{}
+	ckPositions map[uint64][]learner.Position // positions each known checkpoint covers
+	handled     atomic.Int64                  // events the loop has handled (applied, rejected or passed) since start
 }
 
 // Handled returns how many events the loop has handled since start, read
@@ -115,7 +115,7 @@ func New(cfg Config) (*Service, error) {
 		return nil, err
 	}
 	s := &Service{cfg: cfg, eng: eng, cmds: make(chan command), curves: newCurves(cfg.Engine.Learners, cfg.CurvePoints),
-		listening: make(chan struct{}), ckJournal: map[uint64]int64{}}
+		listening: make(chan struct{}), ckPositions: map[uint64][]learner.Position{}}
 	s.dataDir, _ = filepath.Abs(cfg.DataDir)
 	s.store, err = checkpoint.OpenStore(checkpoint.StoreConfig{Dir: filepath.Join(cfg.DataDir, "checkpoints"), Retain: cfg.Retain, FS: cfg.CheckpointFS})
 	if err != nil {
@@ -126,29 +126,11 @@ func New(cfg Config) (*Service, error) {
 		s.store.Close()
 		return nil, err
 	}
-	if cfg.Kafka != nil {
-		kc := *cfg.Kafka
-		if kc.Log == nil {
-			kc.Log = cfg.Log
-		}
-		if s.kafka, err = intake.NewKafka(kc); err != nil {
-			s.close()
-			return nil, err
-		}
-		ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
-		if err := s.kafka.Refresh(ctx); err != nil {
-			cfg.Log.Warn("kafka: cannot read the topic's offsets yet; not ready until it can", "error", err)
-			s.kafkaPending = true
-		}
-		cancel()
-	} else {
-		s.journal, err = intake.OpenJournal(intake.JournalConfig{Dir: filepath.Join(cfg.DataDir, "journal"),
-			SegmentBytes: cfg.JournalSegmentBytes, Log: logWriter{cfg.Log}, File: cfg.JournalFile})
-		if err != nil {
-			s.close()
-			return nil, err
-		}
+	if s.src, err = openSource(cfg); err != nil {
+		s.close()
+		return nil, err
 	}
+	s.journal, _ = s.src.(intake.Appender)
 	if err := s.restoreLatest(); err != nil {
 		s.close()
 		return nil, err
@@ -157,6 +139,32 @@ func New(cfg Config) (*Service, error) {
 	s.http = s.newHTTP()
 	s.publish()
 	return s, nil
+}
+
+// openSource opens the configured source of events: a Kafka topic, a
+// history file, or (by default) the journal in the data directory.
+func openSource(cfg Config) (intake.Source, error) {
+	switch {
+	case cfg.Kafka != nil:
+		kc := *cfg.Kafka
+		if kc.Log == nil {
+			kc.Log = cfg.Log
+		}
+		k, err := intake.NewKafka(kc)
+		if err != nil {
+			return nil, err
+		}
+		ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+		defer cancel()
+		if err := k.Refresh(ctx); err != nil {
+			cfg.Log.Warn("kafka: cannot read the topic's offsets yet; not ready until it can", "error", err)
+		}
+		return k, nil
+	case cfg.History != "":
+		return intake.OpenHistorySource(cfg.History)
+	}
+	return intake.OpenJournal(intake.JournalConfig{Dir: filepath.Join(cfg.DataDir, "journal"),
+		SegmentBytes: cfg.JournalSegmentBytes, Log: logWriter{cfg.Log}, File: cfg.JournalFile})
 }
 
 // privateDir creates dir 0700, or makes an existing one 0700 (with its
@@ -188,8 +196,8 @@ func privateDir(dir string, log *slog.Logger) error {
 }
 
 func (s *Service) close() {
-	if s.journal != nil {
-		s.journal.Close()
+	if s.src != nil {
+		s.src.Close()
 	}
 	if s.dead != nil {
 		s.dead.Close()
@@ -248,19 +256,23 @@ func (s *Service) decodeInto(eng *learner.Engine, c *checkpoint.Checkpoint) erro
 	return persist.Adopt(eng, c, "start with the same settings, or point --data at another directory")
 }
 
-// setCatchUp records the positions the engine must reach to be ready.
+// setCatchUp records the positions the engine must reach to be ready: what
+// the source holds now.
 func (s *Service) setCatchUp() {
 	s.ready.Store(false)
-	s.caughtUp = nil
-	switch {
-	case s.journal != nil:
-		if d := s.journal.Durable(); d > 0 {
-			s.caughtUp = []learner.Position{{Partition: 0, Offset: d}}
-		}
-	case s.kafka != nil:
-		s.caughtUp = s.kafka.HighWater()
+	s.caughtUp, s.availKnown = s.src.Available()
+	if s.availKnown {
+		s.checkReady()
 	}
-	if !s.kafkaPending {
+}
+
+// refreshCatchUp learns what the source holds once it can say (Kafka: once
+// the brokers answer), then checks readiness.
+func (s *Service) refreshCatchUp() {
+	if !s.availKnown {
+		s.caughtUp, s.availKnown = s.src.Available()
+	}
+	if s.availKnown {
 		s.checkReady()
 	}
 }
@@ -331,9 +343,6 @@ func (s *Service) Run(ctx context.Context) error {
 	if cerr := s.checkpoint(checkpoint.Shutdown, 0); cerr != nil {
 		err = errors.Join(err, fmt.Errorf("shutdown checkpoint: %w", cerr))
 	}
-	if s.kafka != nil {
-		s.kafka.Close()
-	}
 	s.cfg.Log.Info("stopped", "events", s.eng.Applied(), "checkpoint", s.lastCk.Version)
 	return err
 }
@@ -352,62 +361,32 @@ func (s *Service) startSource() {
 	s.sourceStop, s.sourceDone = cancel, done
 	s.sourceMu.Unlock()
 	items := s.items
-	if s.journal != nil {
-		from := int64(1)
-		for _, p := range s.eng.Positions() {
-			if p.Partition == 0 {
-				from = p.Offset + 1
+	go func() {
+		defer close(done)
+		err := s.src.Run(ctx, s.eng.Positions(), func(pos learner.Position, value []byte) bool {
+			it := item{gen: gen, pos: pos, data: value}
+			decodeItem(&it)
+			select {
+			case items <- it:
+				return true
+			case <-ctx.Done():
+				return false
 			}
+		})
+		if err == nil || ctx.Err() != nil {
+			return
 		}
-		r := s.journal.Reader(from)
-		go func() {
-			defer close(done)
-			defer r.Close()
-			for {
-				off, p, err := r.Next(ctx)
-				if err != nil {
-					var d *intake.DamageError
-					switch {
-					case ctx.Err() != nil || errors.Is(err, intake.ErrJournalClosed):
-					case errors.As(err, &d):
-						s.damaged(d)
-					default:
-						s.setFault(&fault{kind: faultDamage, message: fmt.Sprintf("the journal cannot be read: %v. Intake has stopped and new events are refused; "+
-							"put back the journal's files and restart", err)})
-					}
-					return
-				}
-				it := item{gen: gen, pos: learner.Position{Partition: 0, Offset: off}, data: append([]byte(nil), p...)}
-				decodeItem(&it)
-				select {
-				case items <- it:
-				case <-ctx.Done():
-					return
-				}
-			}
-		}()
-		return
-	}
-	if s.kafka != nil {
-		go func() {
-			defer close(done)
-			err := s.kafka.Run(ctx, s.eng.Positions(), func(pos learner.Position, value []byte) bool {
-				it := item{gen: gen, pos: pos, data: value}
-				decodeItem(&it)
-				select {
-				case items <- it:
-					return true
-				case <-ctx.Done():
-					return false
-				}
-			})
-			if err != nil && ctx.Err() == nil {
-				s.cfg.Log.Error("kafka intake stopped", "error", err)
-			}
-		}()
-		return
-	}
-	close(done)
+		var d *intake.DamageError
+		switch {
+		case errors.As(err, &d):
+			s.damaged(d)
+		case errors.Is(err, intake.ErrJournalCorrupt):
+			s.setFault(&fault{kind: faultDamage, message: fmt.Sprintf("the journal cannot be read: %v. Intake has stopped and new events are refused; "+
+				"put back the journal's files and restart", err)})
+		default:
+			s.setFault(&fault{kind: faultSource, message: fmt.Sprintf("intake from %v stopped: %v; restart the service once the cause is fixed", s.src, err)})
+		}
+	}()
 }
 
 func (s *Service) stopSource() {
@@ -448,17 +427,15 @@ func (s *Service) loop(ctx context.Context) error {
 		case cmd := <-s.cmds:
 			cmd.reply <- cmd.run(s)
 		case <-tick.C:
-			if s.journal != nil && s.fault.Load() == nil {
-				s.vanished(s.journal.Check())
+			if s.fault.Load() == nil {
+				s.vanished(s.src.Health())
 			}
 			if s.sinceCk > 0 && time.Since(s.lastCkTime) >= s.cfg.CheckpointInterval {
 				if err := s.checkpoint(checkpoint.Periodic, 0); err != nil {
 					s.cfg.Log.Error("timed checkpoint failed; will retry", "error", err)
 				}
 			}
-			if s.kafka != nil {
-				s.caughtUpKafka()
-			}
+			s.refreshCatchUp()
 			s.publish()
 		}
 	}
@@ -556,64 +533,73 @@ func (s *Service) checkpoint(reason checkpoint.Reason, parent uint64) error {
 		return err
 	}
 	s.lastCk, s.sinceCk, s.lastCkTime = info, 0, time.Now()
-	for _, p := range info.Position {
-		if p.Partition == 0 {
-			s.ckJournal[info.Version] = p.Offset
-		}
-	}
+	s.ckPositions[info.Version] = s.eng.Positions()
 	s.cfg.Log.Info("checkpoint", "version", info.Version, "reason", reason, "events", info.Events, "bytes", info.Bytes)
 	s.afterCheckpoint()
 	return nil
 }
 
-// afterCheckpoint trims the journal behind the oldest retained checkpoint and
-// commits Kafka offsets the checkpoint covers.
+// afterCheckpoint tells the source what the checkpoints cover: the newest
+// (Kafka commits it) and the oldest retained (the journal deletes what
+// precedes it), and flushes the dead letters.
 func (s *Service) afterCheckpoint() {
 	if err := s.dead.flush(); err != nil {
 		s.cfg.Log.Error("dead letters: flush failed", "error", err)
 	}
-	if s.kafka != nil {
-		s.kafka.Commit(s.eng.Positions())
-	}
-	if s.journal == nil {
-		return
-	}
-	// The journal may drop what every retained checkpoint covers. Positions
-	// of checkpoints are remembered as they are written; others (from before
-	// a restart) are read from their manifests once.
+	s.src.Checkpointed(s.eng.Positions(), s.oldestRetained())
+}
+
+// oldestRetained returns, per partition, the lowest position any retained
+// checkpoint covers (0 where one of them covers nothing of a partition).
+// Positions of checkpoints are remembered as they are written; others (from
+// before a restart) are read from their manifests once.
+func (s *Service) oldestRetained() []learner.Position {
 	vs, err := s.store.Versions()
 	if err != nil {
-		return
+		return nil
 	}
-	oldest := int64(-1)
+	var held [][]learner.Position
+	parts := map[int32]bool{}
 	for _, v := range vs {
-		off, ok := s.ckJournal[v]
+		ps, ok := s.ckPositions[v]
 		if !ok {
 			m, err := s.store.ReadManifest(v)
 			if err != nil {
 				continue // a corrupt file protects nothing
 			}
 			for _, p := range m.Positions {
-				if p.Partition == 0 {
-					off = p.Offset
+				ps = append(ps, learner.Position{Partition: p.Partition, Offset: p.Offset})
+			}
+			s.ckPositions[v] = ps
+		}
+		held = append(held, ps)
+		for _, p := range ps {
+			parts[p.Partition] = true
+		}
+	}
+	for v := range s.ckPositions {
+		if !slices.Contains(vs, v) {
+			delete(s.ckPositions, v)
+		}
+	}
+	out := make([]learner.Position, 0, len(parts))
+	for p := range parts {
+		low := int64(-1)
+		for _, ps := range held {
+			off := int64(0) // a checkpoint without the partition covers none of it
+			for _, q := range ps {
+				if q.Partition == p {
+					off = q.Offset
 				}
 			}
-			s.ckJournal[v] = off
+			if low < 0 || off < low {
+				low = off
+			}
 		}
-		if oldest < 0 || off < oldest {
-			oldest = off
-		}
+		out = append(out, learner.Position{Partition: p, Offset: low})
 	}
-	for v := range s.ckJournal {
-		if !slices.Contains(vs, v) {
-			delete(s.ckJournal, v)
-		}
-	}
-	if oldest > 0 {
-		if err := s.journal.DeleteBefore(oldest + 1); err != nil {
-			s.cfg.Log.Warn("journal trim failed", "error", err)
-		}
-	}
+	slices.SortFunc(out, func(a, b learner.Position) int { return int(a.Partition - b.Partition) })
+	return out
 }
 
 // publish makes the engine's current state visible to readers.
@@ -659,31 +645,12 @@ func (s *Service) lag(snap *snapshot) []learner.Position {
 	for _, p := range snap.eng.Positions() {
 		applied[p.Partition] = p.Offset
 	}
+	last, _ := s.src.Available()
 	var out []learner.Position
-	switch {
-	case s.journal != nil:
-		out = append(out, learner.Position{Partition: 0, Offset: max(0, s.journal.Durable()-applied[0])})
-	case s.kafka != nil:
-		for _, hw := range s.kafka.HighWater() {
-			out = append(out, learner.Position{Partition: hw.Partition, Offset: max(0, hw.Offset-applied[hw.Partition])})
-		}
+	for _, l := range last {
+		out = append(out, learner.Position{Partition: l.Partition, Offset: max(0, l.Offset-applied[l.Partition])})
 	}
 	return out
-}
-
-// caughtUpKafka sets the readiness target once the topic's high watermarks
-// become known (the brokers were unreachable at start).
-func (s *Service) caughtUpKafka() {
-	if s.kafkaPending {
-		if hw := s.kafka.HighWater(); len(hw) > 0 {
-			s.caughtUp, s.kafkaPending = hw, false
-		} else if ok, _ := s.kafka.Connected(); ok {
-			s.kafkaPending = false // connected, and the topic is empty
-		}
-	}
-	if !s.kafkaPending {
-		s.checkReady()
-	}
 }
 
 func newTextLogger(w io.Writer) *slog.Logger { return slog.New(slog.NewTextHandler(w, nil)) }

@@ -8,6 +8,7 @@ import (
 	"io"
 	"net"
 	"net/http"
+	"os"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -549,4 +550,22 @@ func TestPredictRowsAnswerHasNoStrayRow(t *testing.T) {
 	if code != 200 || m["key"] != "room-a" || m["prediction"] == nil || m["predictions"] != nil {
 		t.Errorf("one row: %d %s", code, b)
 	}
+}
+
+// TestServeFromHistoryFile: a service whose source is a history file learns
+// exactly what a replay of the file learns (the third source behind the one
+// intake contract), and takes no events over HTTP.
+func TestServeFromHistoryFile(t *testing.T) {
+	lines := scenario(t, 2)
+	path := filepath.Join(t.TempDir(), "history.ndjson")
+	os.WriteFile(path, append(bytes.Join(lines, []byte("\n")), '\n'), 0o600)
+	cfg := testConfig(t, t.TempDir())
+	cfg.History = path
+	r := start(t, cfg)
+	got := r.waitCovered(t, int64(len(lines)))
+	sameJSON(t, "service from a history file and replay", got, replayReport(t, engineConfig(t, serviceSpecs...), lines))
+	if code, b := r.call(t, "POST", "/v1/events", "", lines[0]); code != 409 || !strings.Contains(string(b), "history file") {
+		t.Errorf("POST /v1/events with a history source: %d %s, want 409", code, b)
+	}
+	r.waitStatus(t, "/readyz", 200)
 }

@@ -8,6 +8,7 @@ import (
 	"log/slog"
 	"slices"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"github.com/segmentio/kafka-go"
@@ -71,7 +72,11 @@ type Kafka struct {
 	high      map[int32]int64 // high watermark (next offset to be written)
 	connected bool
 	outage    time.Time
+	refreshed atomic.Bool // the high watermarks were read at least once
 }
+
+// String names the topic, for messages.
+func (k *Kafka) String() string { return fmt.Sprintf("the Kafka topic %q", k.cfg.Topic) }
 
 // NewKafka prepares the intake; nothing connects until Run.
 func NewKafka(cfg KafkaConfig) (*Kafka, error) {
@@ -158,6 +163,7 @@ func (k *Kafka) Refresh(ctx context.Context) error {
 			k.high[int32(po.Partition)] = po.LastOffset
 		}
 	}
+	k.refreshed.Store(true)
 	return nil
 }
 

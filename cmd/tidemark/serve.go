@@ -46,7 +46,8 @@ type fileConfig struct {
 		HashBuckets  int      `yaml:"hash_buckets"`
 		TimeFeatures bool     `yaml:"time_features"`
 	} `yaml:"features"`
-	Kafka struct {
+	History string `yaml:"history"`
+	Kafka   struct {
 		Brokers []string `yaml:"brokers"`
 		Topic   string   `yaml:"topic"`
 		Group   string   `yaml:"group"`
@@ -94,6 +95,7 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	every := fs.Int64("checkpoint-every", api.DefaultCheckpointEvery, "events between periodic checkpoints")
 	interval := fs.Duration("checkpoint-interval", api.DefaultCheckpointInterval, "also checkpoint this long after the last one")
 	minScored := fs.Int64("min-scored", api.DefaultMinScored, "events a learner must be scored on for a key before predict answers (-1: none)")
+	history := fs.String("history", "", "learn from this history `FILE` (NDJSON, plain, .gz or .zst; position = line number) instead of the journal")
 	brokers := fs.String("kafka-brokers", "", "Kafka bootstrap brokers host:port,... (learn from Kafka instead of the journal)")
 	topic := fs.String("kafka-topic", "", "Kafka topic of events")
 	group := fs.String("kafka-group", "tidemark", "Kafka consumer group")
@@ -219,6 +221,7 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	}
 	cfg.Engine = eng
 
+	cfg.History = pick("history", *history, fc.History)
 	kb := pick("kafka-brokers", *brokers, strings.Join(fc.Kafka.Brokers, ","))
 	kt := pick("kafka-topic", *topic, fc.Kafka.Topic)
 	if kb != "" || kt != "" {
