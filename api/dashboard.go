@@ -66,19 +66,16 @@ func (s *Service) handleDashboard(c echo.Context) error {
 		Checkpoint  uint64
 		Rows        []dashRow
 		Checkpoints []checkpoint.Info
-	}{Report: snap.report, Ready: s.ready.Load(), Checkpoint: snap.ckVersion}
-	for _, l := range snap.report.Learners {
+	}{Report: snap.state.report, Ready: snap.ready && snap.fault == nil, Checkpoint: snap.state.ckVersion}
+	for _, l := range snap.state.report.Learners {
 		pts, _ := s.curves.get(l.Name)
 		data.Rows = append(data.Rows, dashRow{Name: l.Name, Kind: l.Kind, Drift: l.Drift.State, Scored: l.Scored, Alarms: l.Drift.Alarms,
 			RecentRMSE: l.Recent.RMSE, RecentMAE: l.Recent.MAE, RMSE: l.RMSE, Skill: l.Skill, Spark: sparkline(pts)})
 	}
-	// The store's listing reads each manifest once and keeps it: a refresh
-	// costs a directory read, not ten checkpoint files.
-	if list, err := s.store.List(); err == nil {
-		for i := len(list) - 1; i >= 0 && len(data.Checkpoints) < 10; i-- {
-			if list[i].Error == "" {
-				data.Checkpoints = append(data.Checkpoints, list[i])
-			}
+	// The listing travels in the snapshot: a refresh reads no file.
+	for i := len(snap.checkpoints) - 1; i >= 0 && len(data.Checkpoints) < 10; i-- {
+		if snap.checkpoints[i].Error == "" {
+			data.Checkpoints = append(data.Checkpoints, snap.checkpoints[i])
 		}
 	}
 	var b strings.Builder

@@ -19,7 +19,6 @@ import (
 	"github.com/labstack/echo/v4"
 	"github.com/labstack/echo/v4/middleware"
 
-	"tidemark/api/intake"
 	"tidemark/checkpoint"
 	"tidemark/learner"
 )
@@ -239,7 +238,7 @@ func (s *Service) handlePredict(c echo.Context) error {
 		name = s.cfg.DefaultLearner
 	}
 	snap := s.snap.Load()
-	resp := PredictResponse{Learner: name, Checkpoint: snap.ckVersion, Events: snap.applied, Caution: caution}
+	resp := PredictResponse{Learner: name, Checkpoint: snap.state.ckVersion, Events: snap.state.applied, Caution: caution}
 	var ev learner.Event
 	for i, row := range rows {
 		where := ""
@@ -249,7 +248,7 @@ func (s *Service) handlePredict(c echo.Context) error {
 		if err := learner.DecodeRow(row, &ev); err != nil {
 			return httpErr(http.StatusBadRequest, "%s%v", where, err)
 		}
-		p, err := snap.predict(ev.Key, name, &ev)
+		p, err := snap.state.predict(ev.Key, name, &ev)
 		switch {
 		case errors.Is(err, learner.ErrUnknownLearner):
 			return httpErr(http.StatusNotFound, "%s%v", where, err)
@@ -323,7 +322,7 @@ func (s *Service) handleEvents(c echo.Context) error {
 	var resp EventsResponse
 	var ok [][]byte
 	var ev learner.Event
-	v := s.snap.Load().eng.NewValidator()
+	v := s.snap.Load().state.eng.NewValidator()
 	for i, l := range lines {
 		err := learner.DecodeEvent(l.data, &ev)
 		if err == nil {
@@ -392,7 +391,7 @@ func splitEvents(body []byte) ([]eventLine, error) {
 
 func (s *Service) handleLearners(c echo.Context) error {
 	snap := s.snap.Load()
-	r := snap.report
+	r := snap.state.report
 	if c.QueryParam("keys") == "false" {
 		ls := make([]learner.LearnerReport, len(r.Learners))
 		for i, l := range r.Learners {
@@ -413,10 +412,7 @@ func (s *Service) handleCurve(c echo.Context) error {
 }
 
 func (s *Service) handleCheckpoints(c echo.Context) error {
-	list, err := s.store.List()
-	if err != nil {
-		return err
-	}
+	list := s.snap.Load().checkpoints
 	if list == nil {
 		list = []checkpoint.Info{}
 	}
@@ -454,34 +450,31 @@ func (s *Service) handleRestore(c echo.Context) error {
 		}
 		return httpErr(code, "%v", res.err)
 	}
-	return c.JSON(http.StatusOK, RestoreResult{Restored: v, Resume: req.Resume, Checkpoint: res.info, Position: s.snap.Load().eng.Positions()})
+	return c.JSON(http.StatusOK, RestoreResult{Restored: v, Resume: req.Resume, Checkpoint: res.info, Position: s.snap.Load().state.eng.Positions()})
 }
 
 func (s *Service) handleHealth(c echo.Context) error {
-	if f := s.fault.Load(); f != nil && f.kind == faultVanished {
+	if f := s.snap.Load().fault; f != nil && f.kind == faultVanished {
 		return c.JSON(http.StatusServiceUnavailable, map[string]any{"status": "failing", "message": f.message})
 	}
 	return c.JSON(http.StatusOK, map[string]string{"status": "ok"})
 }
 
+// handleReady answers from the published snapshot alone.
 func (s *Service) handleReady(c echo.Context) error {
-	if f := s.fault.Load(); f != nil {
+	snap := s.snap.Load()
+	if f := snap.fault; f != nil {
 		return c.JSON(http.StatusServiceUnavailable, map[string]any{"ready": false, "message": f.message,
 			"since": f.since.UTC().Format(time.RFC3339)})
 	}
-	var outage *intake.Outage
-	if err := s.src.Health(); errors.As(err, &outage) {
-		return c.JSON(http.StatusServiceUnavailable, map[string]any{"ready": false, "message": outage.Error()})
+	if snap.outage != nil {
+		return c.JSON(http.StatusServiceUnavailable, map[string]any{"ready": false, "message": snap.outage.Error()})
 	}
-	if !s.ready.Load() {
+	if !snap.ready {
 		return c.JSON(http.StatusServiceUnavailable, map[string]any{"ready": false, "message": "restoring or catching up with the stream"})
 	}
 	if bound := s.cfg.ReadyMaxLag; bound > 0 {
-		var waiting int64
-		for _, l := range s.lag(s.snap.Load()) {
-			waiting += l.Offset
-		}
-		if waiting > bound {
+		if waiting := snap.lagTotal(); waiting > bound {
 			return c.JSON(http.StatusServiceUnavailable, map[string]any{"ready": false, "lag": waiting,
 				"message": fmt.Sprintf("%d events wait to be applied, more than the bound of %d (--ready-max-lag)", waiting, bound)})
 		}

@@ -10,8 +10,9 @@ import (
 )
 
 // metrics is the service's Prometheus registry (its own, not the global
-// one). Counters the handlers bump live here; everything about the model is
-// read from the published snapshot at scrape time.
+// one). Counters the handlers bump live here; everything else — the model,
+// readiness, lag, the source's connection, dead letters — is read from the
+// published snapshot at scrape time.
 type metrics struct {
 	reg                *prometheus.Registry
 	predictLatency     prometheus.Histogram
@@ -85,7 +86,7 @@ func (c *snapshotCollector) Collect(ch chan<- prometheus.Metric) {
 	if snap == nil {
 		return
 	}
-	r := snap.report
+	r := snap.state.report
 	gauge := func(d *prometheus.Desc, v float64, labels ...string) {
 		ch <- prometheus.MustNewConstMetric(d, prometheus.GaugeValue, v, labels...)
 	}
@@ -95,7 +96,7 @@ func (c *snapshotCollector) Collect(ch chan<- prometheus.Metric) {
 	counter(descApplied, float64(r.Events))
 	counter(descRejected, float64(r.Rejected))
 	counter(descSkipped, float64(r.Skipped))
-	counter(descDead, float64(c.s.dead.count()))
+	counter(descDead, float64(snap.dead))
 	for _, l := range r.Learners {
 		if l.RMSE != nil {
 			gauge(descRMSE, *l.RMSE, l.Name, "all")
@@ -113,26 +114,26 @@ func (c *snapshotCollector) Collect(ch chan<- prometheus.Metric) {
 		gauge(descDrift, state, l.Name)
 		counter(descAlarms, float64(l.Drift.Alarms), l.Name)
 	}
-	if snap.ck.Version > 0 {
-		gauge(descCkVer, float64(snap.ck.Version))
-		gauge(descCkAge, time.Since(snap.ck.Created).Seconds())
-		gauge(descCkBytes, float64(snap.ck.Bytes))
+	if ck := snap.state.ck; ck.Version > 0 {
+		gauge(descCkVer, float64(ck.Version))
+		gauge(descCkAge, time.Since(ck.Created).Seconds())
+		gauge(descCkBytes, float64(ck.Bytes))
 	}
-	for _, l := range c.s.lag(snap) {
+	for _, l := range snap.lag {
 		gauge(descLag, float64(l.Offset), strconv.Itoa(int(l.Partition)))
 	}
-	if k, ok := c.s.src.(interface{ Connected() (bool, time.Time) }); ok { // sources that connect to something
+	if snap.connected != nil {
 		conn := 0.0
-		if up, _ := k.Connected(); up {
+		if *snap.connected {
 			conn = 1
 		}
 		gauge(descConn, conn)
 	}
 	ready, stopped := 0.0, 0.0
-	if c.s.ready.Load() && c.s.fault.Load() == nil {
+	if snap.ready && snap.fault == nil {
 		ready = 1
 	}
-	if c.s.fault.Load() != nil {
+	if snap.fault != nil {
 		stopped = 1
 	}
 	gauge(descReady, ready)

@@ -602,12 +602,41 @@ func (s *Service) oldestRetained() []learner.Position {
 	return out
 }
 
-// publish makes the engine's current state visible to readers.
+// publish makes the engine's current state and the service's status visible
+// to readers. The engine is copied only when it changed since the last
+// snapshot; the status (readiness, fault, the source's health and lag, dead
+// letters, the checkpoint listing) is read afresh each time.
 func (s *Service) publish() {
-	if cur := s.snap.Load(); cur != nil && cur.applied == s.eng.Applied() && cur.positions == positionsKey(s.eng) && cur.ckVersion == s.lastCk.Version {
-		return
+	cur := s.snap.Load()
+	var state *stateView
+	if cur != nil && cur.state.current(s.eng, s.lastCk) {
+		state = cur.state
+	} else {
+		state = newStateView(s.eng, s.lastCk)
 	}
-	s.snap.Store(newSnapshot(s.eng, s.lastCk, s.ready.Load(), s.dead.count()))
+	snap := &snapshot{state: state, ready: s.ready.Load(), fault: s.fault.Load(), dead: s.dead.count(), at: time.Now()}
+	var outage *intake.Outage
+	if err := s.src.Health(); errors.As(err, &outage) {
+		snap.outage = outage
+	}
+	if k, ok := s.src.(interface{ Connected() (bool, time.Time) }); ok { // sources that connect to something
+		up, _ := k.Connected()
+		snap.connected = &up
+	}
+	applied := map[int32]int64{}
+	for _, p := range state.eng.Positions() {
+		applied[p.Partition] = p.Offset
+	}
+	last, _ := s.src.Available()
+	for _, l := range last {
+		snap.lag = append(snap.lag, learner.Position{Partition: l.Partition, Offset: max(0, l.Offset-applied[l.Partition])})
+	}
+	if list, err := s.store.List(); err == nil {
+		snap.checkpoints = list
+	} else if cur != nil {
+		snap.checkpoints = cur.checkpoints
+	}
+	s.snap.Store(snap)
 }
 
 // logWriter adapts a logger to an io.Writer for packages that log lines.
@@ -638,21 +667,6 @@ func positionsText(ps []checkpoint.Position) string {
 	return out
 }
 
-// lag returns, per partition, how many events of the source the snapshot
-// has not applied (Offset holds the count).
-func (s *Service) lag(snap *snapshot) []learner.Position {
-	applied := map[int32]int64{}
-	for _, p := range snap.eng.Positions() {
-		applied[p.Partition] = p.Offset
-	}
-	last, _ := s.src.Available()
-	var out []learner.Position
-	for _, l := range last {
-		out = append(out, learner.Position{Partition: l.Partition, Offset: max(0, l.Offset-applied[l.Partition])})
-	}
-	return out
-}
-
 func newTextLogger(w io.Writer) *slog.Logger { return slog.New(slog.NewTextHandler(w, nil)) }
 
 // Progress reports the events applied and whether the engine's state covers
@@ -664,7 +678,7 @@ func (s *Service) Progress(want []learner.Position) (applied int64, covered bool
 	}
 	covered = true
 	for _, p := range want {
-		covered = covered && snap.eng.Covers(p)
+		covered = covered && snap.state.eng.Covers(p)
 	}
-	return snap.applied, covered
+	return snap.state.applied, covered
 }

@@ -10,26 +10,43 @@ import (
 	"tidemark/learner"
 )
 
-// snapshot is an immutable view of the engine that HTTP handlers read: a
-// copy of the engine (predictions), its report (learners, metrics) and the
-// checkpoint it descends from. The loop publishes a new one at most every
-// PublishEvery; handlers never touch the live engine.
+// snapshot is everything HTTP handlers, metrics and the page read: an
+// immutable view the loop publishes at most every PublishEvery (and after
+// each command). Readers never touch the live engine, the source or the
+// store; the status fields are what the loop saw when it published.
 type snapshot struct {
-	mu        sync.Mutex // the copy's learners keep scratch space: one predict at a time per snapshot
+	state *stateView // the engine as of the snapshot; shared by snapshots until the engine changes
+
+	ready       bool               // restored and caught up with the source
+	fault       *fault             // what stopped intake, or nil
+	outage      error              // the source's transient failure (*intake.Outage), or nil
+	connected   *bool              // whether the source reaches what it reads from; nil when it reaches nothing (journal, file)
+	lag         []learner.Position // per partition, events the state has not applied (Offset holds the count)
+	dead        int64              // dead letters written since start
+	checkpoints []checkpoint.Info  // the store's listing, oldest first
+	at          time.Time
+}
+
+// stateView is a copy of the engine, its report and the checkpoint it
+// descends from.
+type stateView struct {
+	mu        sync.Mutex // the copy's learners keep scratch space: one predict at a time
 	eng       *learner.Engine
 	report    learner.Report
 	ck        checkpoint.Info
 	ckVersion uint64
 	applied   int64
 	positions string
-	ready     bool
-	dead      int64
-	at        time.Time
 }
 
-func newSnapshot(eng *learner.Engine, ck checkpoint.Info, ready bool, dead int64) *snapshot {
-	return &snapshot{eng: eng.Clone(), report: eng.Report(true), ck: ck, ckVersion: ck.Version, applied: eng.Applied(),
-		positions: positionsKey(eng), ready: ready, dead: dead, at: time.Now()}
+func newStateView(eng *learner.Engine, ck checkpoint.Info) *stateView {
+	return &stateView{eng: eng.Clone(), report: eng.Report(true), ck: ck, ckVersion: ck.Version, applied: eng.Applied(),
+		positions: positionsKey(eng)}
+}
+
+// current reports whether v still shows eng and ck.
+func (v *stateView) current(eng *learner.Engine, ck checkpoint.Info) bool {
+	return v != nil && v.applied == eng.Applied() && v.positions == positionsKey(eng) && v.ckVersion == ck.Version
 }
 
 func positionsKey(eng *learner.Engine) string {
@@ -40,8 +57,17 @@ func positionsKey(eng *learner.Engine) string {
 	return b.String()
 }
 
-func (s *snapshot) predict(key, name string, ev *learner.Event) (learner.Prediction, error) {
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	return s.eng.Predict(key, name, ev)
+func (v *stateView) predict(key, name string, ev *learner.Event) (learner.Prediction, error) {
+	v.mu.Lock()
+	defer v.mu.Unlock()
+	return v.eng.Predict(key, name, ev)
+}
+
+// lagTotal returns the events waiting over all partitions.
+func (s *snapshot) lagTotal() int64 {
+	var n int64
+	for _, l := range s.lag {
+		n += l.Offset
+	}
+	return n
 }
