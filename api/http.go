@@ -303,7 +303,7 @@ type RejectedEvent struct {
 // acknowledged once durable.
 func (s *Service) handleEvents(c echo.Context) error {
 	if s.journal == nil {
-		return httpErr(http.StatusConflict, "this service learns from %v, not from events posted to it (for Kafka: produce them to its topic)", s.src)
+		return httpErr(http.StatusConflict, "this service learns from %v, not from events posted to it (for Kafka: produce them to its topic)", s.loop.src)
 	}
 	if f := s.fault.Load(); f != nil {
 		return httpErr(http.StatusServiceUnavailable, "events refused: %s", f.message)
@@ -346,7 +346,7 @@ func (s *Service) handleEvents(c echo.Context) error {
 	first, last, err := s.journal.Append(ok)
 	if err != nil {
 		s.metrics.journalFailures.Inc()
-		if s.vanished(err) {
+		if s.loop.vanished(err) {
 			return echo.NewHTTPError(http.StatusServiceUnavailable, "events refused: "+s.fault.Load().message).SetInternal(err)
 		}
 		return echo.NewHTTPError(http.StatusServiceUnavailable, "the events could not be stored durably and were not accepted; retry later").SetInternal(err)
@@ -420,15 +420,15 @@ func (s *Service) handleCheckpoints(c echo.Context) error {
 }
 
 func (s *Service) handleTakeCheckpoint(c echo.Context) error {
-	res := s.do(func(s *Service) cmdResult {
-		if err := s.checkpoint(checkpoint.Manual, 0); err != nil {
-			return cmdResult{err: err}
+	res := s.loop.do(func(l *loop) cmdResult {
+		if err := l.checkpoint(checkpoint.Manual, 0); err != nil {
+			return cmdResult{err: cmdErr(ErrNotStored, "the checkpoint could not be written; earlier ones are intact").withCause(err)}
 		}
-		s.publish()
-		return cmdResult{info: s.lastCk}
+		l.publish()
+		return cmdResult{info: l.lastCk}
 	})
 	if res.err != nil {
-		return echo.NewHTTPError(http.StatusServiceUnavailable, "the checkpoint could not be written; earlier ones are intact").SetInternal(res.err)
+		return answer(res.err)
 	}
 	return c.JSON(http.StatusCreated, res.info)
 }
@@ -442,13 +442,9 @@ func (s *Service) handleRestore(c echo.Context) error {
 	if err := decodeJSONBody(c, &req); err != nil {
 		return httpErr(http.StatusBadRequest, "the body must be one object {\"resume\":\"from_checkpoint\"|\"from_now\"|\"skip\", …}: %v", errMessage(err))
 	}
-	res := s.do(func(s *Service) cmdResult { return s.restore(v, req) })
+	res := s.loop.do(func(l *loop) cmdResult { return l.restore(v, req) })
 	if res.err != nil {
-		code := res.code
-		if code == 0 {
-			code = http.StatusInternalServerError
-		}
-		return httpErr(code, "%v", res.err)
+		return answer(res.err)
 	}
 	return c.JSON(http.StatusOK, RestoreResult{Restored: v, Resume: req.Resume, Checkpoint: res.info, Position: s.snap.Load().state.eng.Positions()})
 }

@@ -123,8 +123,8 @@ func TestReadyMaxLag(t *testing.T) {
 		t.Fatal(err)
 	}
 	// Before the loop runs, the whole backlog waits.
-	svc.ready.Store(true)
-	svc.publish() // readers see the published snapshot
+	svc.loop.ready.Store(true)
+	svc.loop.publish() // readers see the published snapshot
 	code, b := callHandler(svc, "GET", "/readyz")
 	if code != 503 || !strings.Contains(b, "wait to be applied") {
 		t.Errorf("/readyz with %d events waiting and a bound of 100: %d %s", 2592, code, b)

@@ -105,14 +105,14 @@ func TestDriftPinsAreCapped(t *testing.T) {
 	lines := scenario(t, 3)
 	r.post(t, "", lines[:200])
 	r.waitCovered(t, 200)
-	vs, _ := r.svc.store.Versions()
+	vs, _ := r.svc.loop.store.Versions()
 	mine := vs[len(vs)-1]
-	if err := r.svc.store.Pin(mine); err != nil { // the operator's
+	if err := r.svc.loop.store.Pin(mine); err != nil { // the operator's
 		t.Fatal(err)
 	}
 	r.post(t, "", lines[200:])
 	r.waitCovered(t, int64(len(lines)))
-	pins, _ := r.svc.store.Pins()
+	pins, _ := r.svc.loop.store.Pins()
 	drift := 0
 	for _, why := range pins {
 		if why == "drift" {

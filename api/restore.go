@@ -143,80 +143,10 @@ func (req *RestoreRequest) rule(live []learner.Position) (ResumeMode, *skipRule,
 	return mode, r, nil
 }
 
-// command is work the loop does for an HTTP handler.
-type command struct {
-	run   func(s *Service) cmdResult
-	reply chan cmdResult
-}
-
-type cmdResult struct {
-	info checkpoint.Info
-	err  error
-	code int // HTTP status for err
-}
-
-// do runs f on the loop and waits for its result.
-func (s *Service) do(f func(s *Service) cmdResult) cmdResult {
-	c := command{run: f, reply: make(chan cmdResult, 1)}
-	s.cmds <- c
-	return <-c.reply
-}
-
 // RestoreResult is what a restore answers.
 type RestoreResult struct {
 	Restored   uint64             `json:"restored"`
 	Resume     string             `json:"resume"`
 	Checkpoint checkpoint.Info    `json:"checkpoint"` // taken at once, recording the restore
 	Position   []learner.Position `json:"position"`
-}
-
-// restore sets the engine back to version v and resumes as asked. It runs
-// on the loop.
-func (s *Service) restore(v uint64, req RestoreRequest) cmdResult {
-	live := s.eng.Positions()
-	mode, rule, err := req.rule(live)
-	if err != nil {
-		return cmdResult{err: err, code: 400}
-	}
-	c, err := s.store.Load(v)
-	if errors.Is(err, checkpoint.ErrNotFound) {
-		return cmdResult{err: fmt.Errorf("checkpoint %d does not exist; GET /v1/checkpoints lists them", v), code: 404}
-	}
-	if err != nil {
-		msg := fmt.Sprintf("checkpoint %d fails its checks and cannot be restored: %v", v, err)
-		if good, _, lerr := s.store.Latest(); lerr == nil {
-			msg += fmt.Sprintf("; the newest good version is %d", good.Manifest.Version)
-		}
-		return cmdResult{err: errors.New(msg), code: 409}
-	}
-	// The restored state is built beside the live one and becomes live only
-	// once the checkpoint recording it is durable: a restore happens as a
-	// whole or not at all.
-	eng, err := learner.NewEngine(s.eng.Config())
-	if err != nil {
-		return cmdResult{err: err, code: 500}
-	}
-	if err := s.decodeInto(eng, c); err != nil {
-		return cmdResult{err: err, code: 409}
-	}
-	if mode == ResumeFromNow {
-		eng.CoverUpTo(live)
-	}
-	prevEng, prevSkip, prevAlarms := s.eng, s.skip, s.lastAlarms
-	s.eng, s.skip, s.lastAlarms = eng, nil, eng.Alarms()
-	if mode == ResumeSkip {
-		s.skip = rule
-	}
-	if err := s.checkpoint(checkpoint.Manual, v); err != nil {
-		s.eng, s.skip, s.lastAlarms = prevEng, prevSkip, prevAlarms
-		s.cfg.Log.Error("restore not done: the checkpoint recording it could not be written; the state is unchanged", "version", v, "error", err)
-		return cmdResult{err: fmt.Errorf("restore of checkpoint %d not done: the checkpoint recording it could not be written (%v); "+
-			"the service goes on from its state before this request", v, err), code: 503}
-	}
-	info := s.lastCk
-	s.cfg.Log.Warn("restored", "version", v, "resume", mode.String())
-	s.setCatchUp()
-	s.startSource()
-	s.publish()
-	return cmdResult{info: info}
 }
