@@ -1,10 +1,21 @@
-// Package api runs tidemark: the loops that tie an intake source to the
-// learning engine — today the prequential replay of a history file — and the
-// renderings of its reports. It holds no model math: everything learned is
-// learned by package learner.
+// Package api is tidemark's running service. One goroutine, the loop
+// (loop.go), alone owns the engine: it takes events from the source in
+// position order, applies each (predict, score, train) once, takes
+// checkpoints on cadence through the persistence room (api/persist),
+// restores on request and publishes snapshots. The service (service.go)
+// owns the lifecycle and the HTTP layer (http.go, guard.go, metrics.go,
+// dashboard.go): handlers read only published snapshots and reach the loop
+// only by commands, whose errors (errors.go) are mapped to statuses in one
+// place. It holds no model math (package learner) and no replay
+// (api/replay, which the service does not import).
 //
-// Delivery: replay assigns each line its number as position (partition 0);
-// the engine applies a position once. A line that does not decode, or that
-// the engine refuses, is counted as rejected, reported with its line number,
-// and never trained on.
+// Delivery: every event comes from an intake.Source with its position; the
+// engine applies a position once, so a source that delivers again changes
+// nothing. An event the engine refuses is counted, written to the
+// dead-letter file with its position and reason, and never trained on.
+// Shutdown: stop HTTP intake, stop the source, take a shutdown checkpoint,
+// commit offsets, close.
+//
+// A Service is safe for concurrent use by its HTTP handlers; its Config
+// must not change once New has returned.
 package api
