@@ -18,15 +18,6 @@ import (
 
 var serviceSpecs = []string{"knn:k=5,window=200", "rls:forget=0.99", "sliding-rls:window=100", "mean:window=50"}
 
-// demoLearners is the demo's set of learners (cmd/tidemark's demo).
-var demoLearners = []string{
-	"knn:k=10,window=2016,name=knn-week",
-	"rls:forget=0.995,name=rls-forget",
-	"rls:forget=1,name=rls-cumulative",
-	"sliding-rls:window=864,name=sliding-rls-3d",
-	"mean:window=288,name=mean-day",
-}
-
 func engineConfig(t testing.TB, specs ...string) learner.Config {
 	t.Helper()
 	cfg := learner.Config{Features: learner.FeatureConfig{HashBuckets: 4, TimeFeatures: true}}
@@ -111,7 +102,7 @@ func BenchmarkReplay(b *testing.B) {
 			var buf bytes.Buffer
 			synth.Write(&buf, synth.Config{Days: days, Seed: 2})
 			cfg := learner.Config{Features: learner.FeatureConfig{HashBuckets: 4, TimeFeatures: true}}
-			for _, s := range demoLearners {
+			for _, s := range synth.Learners {
 				sp, _ := learner.ParseSpec(s)
 				cfg.Learners = append(cfg.Learners, sp)
 			}

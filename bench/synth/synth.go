@@ -56,6 +56,17 @@ var rooms = []room{
 const step = 5 * time.Minute
 
 // Write writes the scenario as NDJSON to w and returns the number of lines.
+// Learners is the set the demo compares on this scenario: windowed k-NN,
+// forgetting RLS, cumulative RLS, sliding-window RLS and the mean baseline.
+// Windows count events per key (a room reports 288 readings a day).
+var Learners = []string{
+	"knn:k=10,window=2016,name=knn-week",
+	"rls:forget=0.995,name=rls-forget",
+	"rls:forget=1,name=rls-cumulative",
+	"sliding-rls:window=864,name=sliding-rls-3d",
+	"mean:window=288,name=mean-day",
+}
+
 func Write(w io.Writer, cfg Config) (int, error) {
 	if cfg.Days <= 0 {
 		cfg.Days = 14

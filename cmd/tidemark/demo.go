@@ -22,17 +22,6 @@ import (
 	"tidemark/learner"
 )
 
-// demoLearners is the demo's set: windowed k-NN, forgetting RLS, cumulative
-// RLS, sliding-window RLS and the mean baseline. Windows count events per key
-// (a room reports 288 readings a day).
-var demoLearners = []string{
-	"knn:k=10,window=2016,name=knn-week",
-	"rls:forget=0.995,name=rls-forget",
-	"rls:forget=1,name=rls-cumulative",
-	"sliding-rls:window=864,name=sliding-rls-3d",
-	"mean:window=288,name=mean-day",
-}
-
 func runDemo(args []string, stdout, stderr io.Writer) error {
 	fs := newFlagSet("demo", "demo [--listen ADDR] [--data DIR] [--days N] [--speed X] [--duration D]", stderr)
 	listen := fs.String("listen", api.DefaultListen, "HTTP listen address of the demo's service")
@@ -113,7 +102,7 @@ func demo(ctx context.Context, dc demoConfig) error {
 		return err
 	}
 	eng := learner.Config{Features: learner.FeatureConfig{HashBuckets: 4, TimeFeatures: true}}
-	for _, s := range demoLearners {
+	for _, s := range synth.Learners {
 		sp, err := learner.ParseSpec(s)
 		if err != nil {
 			return err
