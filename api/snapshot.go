@@ -1,7 +1,6 @@
 package api
 
 import (
-	"fmt"
 	"strings"
 	"sync"
 	"time"
@@ -52,7 +51,8 @@ func (v *stateView) current(eng *learner.Engine, ck checkpoint.Info) bool {
 func positionsKey(eng *learner.Engine) string {
 	var b strings.Builder
 	for _, p := range eng.Positions() {
-		fmt.Fprintf(&b, "%d:%d ", p.Partition, p.Offset)
+		b.WriteString(p.String())
+		b.WriteByte(' ')
 	}
 	return b.String()
 }
