@@ -492,4 +492,3 @@ func openapiPath(p string) string {
 	}
 	return strings.Join(parts, "/")
 }
-
