@@ -8,7 +8,8 @@ import "tidemark/window"
 // through memory. Its bookkeeping is a window.Index.
 //
 // Bounds: a Count window holds the last Count rows (in arrival order),
-// storage allocated up front; a Span window holds the rows whose time t
+// storage starting at a few rows and doubling up to Count, so that a key
+// with few events costs few rows; a Span window holds the rows whose time t
 // satisfies t ≥ newest − Span (inclusive; newest = the latest event time
 // seen), kept in order of event time (rows of equal time in arrival order),
 // and an All window every row, both up to max rows, storage doubling from a
@@ -26,13 +27,18 @@ type rows struct {
 	seen   bool
 }
 
-const rowsInitial = 64
+// Initial storage, in rows: of a count window (small, since a key may see
+// few events; doubling amortises the growth), and of a time or "all" window.
+const (
+	rowsInitialCount = 4
+	rowsInitial      = 64
+)
 
 func newRows(d int, w Window, max int) rows {
 	r := rows{d: d, span: int64(w.Span), limit: max}
 	size := min(max, rowsInitial)
 	if w.Count > 0 {
-		r.limit, size = w.Count, w.Count
+		r.limit, size = w.Count, min(w.Count, rowsInitialCount)
 	}
 	r.alloc(size)
 	return r
