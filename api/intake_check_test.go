@@ -138,3 +138,35 @@ func TestDeadLettersBounded(t *testing.T) {
 		t.Errorf("count %d, want 1000 (all written, older ones rotated away)", d.count())
 	}
 }
+
+// TestCurvePointsOnlyWhereAppliedMoved: 300 good events, then 3 000 the
+// engine rejects: the curves hold a point at 100, 200 and 300 applied events
+// and no more (issue 13: every rejected event while the applied count sat on
+// a multiple of the curve interval added a point, each a report over every
+// key — 2 000 points at events=300).
+func TestCurvePointsOnlyWhereAppliedMoved(t *testing.T) {
+	dir := t.TempDir()
+	lines := scenario(t, 1)[:300]
+	for i := 0; i < 3000; i++ {
+		lines = append(lines, []byte(fmt.Sprintf(`{"time":"2026-03-01T12:00:00Z","key":"room-a","features":{"outdoor_c":%d},"target":3}`, i)))
+	}
+	journalWith(t, dir, lines)
+	cfg := testConfig(t, dir)
+	cfg.CurveEvery = 100
+	r := start(t, cfg)
+	r.waitCovered(t, 3300)
+	code, b := r.call(t, "GET", "/v1/learners/mean:window=50/curve", "", nil)
+	var curve struct {
+		Points []struct {
+			Events int64 `json:"events"`
+		} `json:"points"`
+	}
+	json.Unmarshal(b, &curve)
+	var at []int64
+	for _, p := range curve.Points {
+		at = append(at, p.Events)
+	}
+	if code != 200 || fmt.Sprint(at) != "[100 200 300]" {
+		t.Errorf("curve points at %v, want [100 200 300]", at)
+	}
+}

@@ -44,6 +44,7 @@ type loop struct {
 	caughtUp    []learner.Position // ready once the engine covers these
 	availKnown  bool               // the source has said what it holds (Kafka: once the brokers answered)
 	lastAlarms  int64
+	curveAt     int64 // the applied count of the last curve point
 	generation  int
 	sourceStop  context.CancelFunc
 	items       chan item
@@ -307,7 +308,11 @@ func (l *loop) afterEvent() {
 		l.cfg.Log.Info("restore: the skipped range is behind; back to normal intake")
 		l.skip = nil
 	}
-	if n := l.eng.Applied(); n%l.cfg.CurveEvery == 0 && n > 0 {
+	// A curve point when the applied count reaches a multiple of CurveEvery:
+	// once, not again for every rejected or passed event while the count
+	// stays there (each point reports over every key).
+	if n := l.eng.Applied(); n%l.cfg.CurveEvery == 0 && n > 0 && n != l.curveAt {
+		l.curveAt = n
 		l.curves.add(l.eng)
 	}
 }
@@ -498,13 +503,13 @@ func (l *loop) restore(v uint64, req RestoreRequest) cmdResult {
 	if mode == ResumeFromNow {
 		eng.CoverUpTo(live)
 	}
-	prevEng, prevSkip, prevAlarms := l.eng, l.skip, l.lastAlarms
-	l.eng, l.skip, l.lastAlarms = eng, nil, eng.Alarms()
+	prevEng, prevSkip, prevAlarms, prevCurveAt := l.eng, l.skip, l.lastAlarms, l.curveAt
+	l.eng, l.skip, l.lastAlarms, l.curveAt = eng, nil, eng.Alarms(), eng.Applied()
 	if mode == ResumeSkip {
 		l.skip = rule
 	}
 	if err := l.checkpoint(checkpoint.Manual, v); err != nil {
-		l.eng, l.skip, l.lastAlarms = prevEng, prevSkip, prevAlarms
+		l.eng, l.skip, l.lastAlarms, l.curveAt = prevEng, prevSkip, prevAlarms, prevCurveAt
 		l.cfg.Log.Error("restore not done: the checkpoint recording it could not be written; the state is unchanged", "version", v, "error", err)
 		return cmdResult{err: cmdErr(ErrNotStored, "restore of checkpoint %d not done: the checkpoint recording it could not be written (%v); "+
 			"the service goes on from its state before this request", v, err).withCause(err)}
