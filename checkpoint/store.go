@@ -280,6 +280,15 @@ func (s *Store) Write(m Manifest, secs []Section) (Info, error) {
 	if _, err := ParseReason(string(m.Reason)); err != nil {
 		return Info{}, err
 	}
+	// Never write what loading would refuse: the same limit on decoded state.
+	var raw int64
+	for _, sec := range secs {
+		raw += int64(len(sec.Bytes))
+	}
+	if raw > s.cfg.MaxRawBytes {
+		return Info{}, fmt.Errorf("%w: the state is %d bytes, over the limit of %d bytes that loading enforces (StoreConfig.MaxRawBytes); "+
+			"it was not written, earlier versions are intact", ErrTooLarge, raw, s.cfg.MaxRawBytes)
+	}
 	b, err := encodeFile(&m, secs, s.enc.EncodeAll)
 	if err != nil {
 		return Info{}, err

@@ -344,3 +344,20 @@ func TestDecodedSizeLimit(t *testing.T) {
 		t.Errorf("load past the limit: %v, want ErrTooLarge", err)
 	}
 }
+
+// TestWriteRefusesWhatLoadWouldRefuse: a state larger than the decoded-size
+// limit is not written (it could never be loaded), with ErrTooLarge; earlier
+// versions are intact.
+func TestWriteRefusesWhatLoadWouldRefuse(t *testing.T) {
+	s := openTest(t, StoreConfig{MaxRawBytes: 1 << 20})
+	if _, err := s.Write(manifest(1), testSections(1)); err != nil {
+		t.Fatal(err)
+	}
+	big := []Section{{Global: true, Bytes: make([]byte, 2<<20)}}
+	if _, err := s.Write(manifest(2), big); !errors.Is(err, ErrTooLarge) {
+		t.Errorf("writing 2 MiB of state past a 1 MiB limit: %v, want ErrTooLarge", err)
+	}
+	if vs, _ := s.Versions(); len(vs) != 1 {
+		t.Errorf("versions %v after the refused write, want [1]", vs)
+	}
+}
