@@ -2,7 +2,6 @@ package api
 
 import (
 	"strings"
-	"sync"
 	"time"
 
 	"tidemark/checkpoint"
@@ -29,8 +28,7 @@ type snapshot struct {
 // stateView is a copy of the engine, its report and the checkpoint it
 // descends from.
 type stateView struct {
-	mu        sync.Mutex // the copy's learners keep scratch space: one predict at a time
-	eng       *learner.Engine
+	eng       *learner.Engine // predicts from any number of requests at once (learner.Engine.Predict)
 	report    learner.Report
 	ck        checkpoint.Info
 	ckVersion uint64
@@ -58,8 +56,6 @@ func positionsKey(eng *learner.Engine) string {
 }
 
 func (v *stateView) predict(key, name string, ev *learner.Event) (learner.Prediction, error) {
-	v.mu.Lock()
-	defer v.mu.Unlock()
 	return v.eng.Predict(key, name, ev)
 }
 

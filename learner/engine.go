@@ -302,9 +302,10 @@ type Prediction struct {
 }
 
 // Predict answers for one row of features of the given key with the named
-// learner, without changing any state but the learner's scratch space. The
-// row's features are matched against the schema as in Apply (the target is
-// ignored).
+// learner, without changing any state: it uses scratch space of its own, so
+// that any number of goroutines may predict at once from an engine nobody
+// is changing (a published copy). The row's features are matched against
+// the schema as in Apply (the target is ignored).
 func (e *Engine) Predict(key, learner string, ev *Event) (Prediction, error) {
 	i := slices.IndexFunc(e.cfg.Learners, func(s Spec) bool { return s.Name == learner })
 	if i < 0 {
@@ -323,7 +324,7 @@ func (e *Engine) Predict(key, learner string, ev *Event) (Prediction, error) {
 	p := Prediction{Trained: l.Trained(), Scored: m.Scored, RecentRMSE: m.Recent.RMSE}
 	// Predicting does not move a time window: only training does. A row's
 	// time only feeds the time features.
-	y, ok := l.Predict(x)
+	y, ok := l.predictShared(x)
 	if !ok {
 		return p, fmt.Errorf("%w: learner %q has trained on %d events of key %q", ErrNotReady, learner, l.Trained(), key)
 	}

@@ -8,6 +8,7 @@ import (
 	"math"
 	"math/rand/v2"
 	"runtime"
+	"sync"
 	"testing"
 )
 
@@ -325,4 +326,45 @@ func TestMemoryFollowsData(t *testing.T) {
 		t.Errorf("%d bytes a key with one event each, more than 4 KB", perKey)
 	}
 	runtime.KeepAlive(e)
+}
+
+// TestPredictConcurrent: Engine.Predict keeps scratch space of its own, so
+// many goroutines may predict at once from an engine nobody changes (the
+// service's published copy) and each gets what a lone caller gets. Run
+// under -race in CI.
+func TestPredictConcurrent(t *testing.T) {
+	cfg := Config{Features: FeatureConfig{HashBuckets: 2}}
+	e := mustEngine(t, cfg, "knn:k=5,window=200", "knn:k=3,window=50,weight=inverse", "rls:forget=0.99", "sliding-rls:window=100", "mean:window=50")
+	for i, ev := range stream(900, 4) {
+		e.Apply(Position{Offset: int64(i)}, ev)
+	}
+	rows := stream(40, 5)
+	names := []string{"knn:k=5,window=200", "knn:k=3,window=50,weight=inverse", "rls:forget=0.99", "sliding-rls:window=100", "mean:window=50"}
+	want := map[string]float64{}
+	for i, r := range rows {
+		for _, n := range names {
+			p, err := e.Predict(r.Key, n, r)
+			if err != nil {
+				t.Fatal(err)
+			}
+			want[fmt.Sprint(i, n)] = p.Value
+		}
+	}
+	var wg sync.WaitGroup
+	for g := 0; g < 8; g++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for rep := 0; rep < 20; rep++ {
+				for i, r := range rows {
+					n := names[(i+g+rep)%len(names)]
+					if p, err := e.Predict(r.Key, n, r); err != nil || p.Value != want[fmt.Sprint(i, n)] {
+						t.Errorf("goroutine %d: row %d %s: %v (%v), alone %v", g, i, n, p.Value, err, want[fmt.Sprint(i, n)])
+						return
+					}
+				}
+			}
+		}()
+	}
+	wg.Wait()
 }

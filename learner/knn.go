@@ -91,31 +91,46 @@ func (m *KNN) Len() int { return m.w.len() }
 
 // Predict implements Learner.
 func (m *KNN) Predict(q []float64) (float64, bool) {
+	y, ok, best := m.predict(q, m.inv, m.best)
+	m.best = best
+	return y, ok
+}
+
+// predictShared implements Learner: with scratch of its own, so that
+// readers of a learner nobody changes may predict at once.
+func (m *KNN) predictShared(q []float64) (float64, bool) {
+	y, ok, _ := m.predict(q, make([]float64, m.d), make([]neighbor, 0, m.cfg.K))
+	return y, ok
+}
+
+// predict is Predict with the scratch given: inv (d) and best (capacity k),
+// returned grown.
+func (m *KNN) predict(q, inv []float64, best []neighbor) (float64, bool, []neighbor) {
 	if len(q) != m.d {
 		panic(badDim)
 	}
 	n := m.w.len()
 	if n == 0 {
-		return 0, false
+		return 0, false, best
 	}
 	zscore := m.cfg.Scale == ScaleZScore
 	if zscore {
-		for j := range m.inv {
+		for j := range inv {
 			v := m.moms[j].PopVariance()
 			if v > 0 {
-				m.inv[j] = 1 / v
+				inv[j] = 1 / v
 			} else {
-				m.inv[j] = 1
+				inv[j] = 1
 			}
 		}
 	}
 	k := m.cfg.K
-	best := m.best[:0]
+	best = best[:0]
 	worst := math.Inf(1)
 	d := m.d
 	size := m.w.idx.Size()
 	q = q[:d:d]
-	inv := m.inv[:d:d]
+	inv = inv[:d:d]
 	s := m.w.idx.Slot(n - 1) // newest first, so that ties keep the more recent
 	for c := 0; c < n; c++ {
 		row := m.w.x[s*d : s*d+d : s*d+d]
@@ -141,15 +156,14 @@ func (m *KNN) Predict(q []float64) (float64, bool) {
 			s = size - 1
 		}
 	}
-	m.best = best
 	if m.cfg.Weight == WeightInverse {
-		return inverseWeighted(best), true
+		return inverseWeighted(best), true, best
 	}
 	var sum float64
 	for _, b := range best {
 		sum += b.y
 	}
-	return sum / float64(len(best)), true
+	return sum / float64(len(best)), true, best
 }
 
 // insertNeighbor inserts nb into best (sorted by distance, at most k long)

@@ -23,6 +23,10 @@ type Learner interface {
 	Learn(x []float64, y float64, t int64)
 	// Trained returns the number of events trained on.
 	Trained() int64
+	// predictShared is Predict with scratch space of its own: several
+	// goroutines may call it at once on a learner nobody is changing (a
+	// published copy). It allocates; the engine's hot path uses Predict.
+	predictShared(x []float64) (y float64, ok bool)
 
 	encode(w *encoder)
 	decode(r *decoder) error

@@ -53,6 +53,9 @@ func (m *Mean) Late() int64 { return m.late }
 // Trained implements Learner.
 func (m *Mean) Trained() int64 { return m.trained }
 
+// predictShared implements Learner (Predict uses no scratch).
+func (m *Mean) predictShared(x []float64) (float64, bool) { return m.Predict(x) }
+
 // Predict implements Learner.
 func (m *Mean) Predict([]float64) (float64, bool) {
 	if m.m.N() == 0 {

@@ -82,6 +82,16 @@ func (m *RLS) Predict(x []float64) (float64, bool) {
 	return dot(m.u, m.theta), true
 }
 
+// predictShared implements Learner: uᵀθ with u of its own.
+func (m *RLS) predictShared(x []float64) (float64, bool) {
+	u := make([]float64, len(m.theta))
+	m.ex.apply(u, x)
+	if m.trained < int64(len(m.theta)) {
+		return 0, false
+	}
+	return dot(u, m.theta), true
+}
+
 // Learn implements Learner.
 func (m *RLS) Learn(x []float64, y float64, t int64) {
 	m.ex.apply(m.u, x)

@@ -81,6 +81,17 @@ func (m *SlidingRLS) Predict(x []float64) (float64, bool) {
 	return dot(m.u, m.theta), true
 }
 
+// predictShared implements Learner: the same with u of its own.
+func (m *SlidingRLS) predictShared(x []float64) (float64, bool) {
+	u := make([]float64, len(m.theta))
+	m.ex.apply(u, x)
+	p := len(m.theta)
+	if m.trained < int64(p) || m.w.len() < p {
+		return 0, false
+	}
+	return dot(u, m.theta), true
+}
+
 // Learn implements Learner.
 func (m *SlidingRLS) Learn(x []float64, y float64, t int64) {
 	m.ex.apply(m.u, x)
