@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"os"
 	"strconv"
 	"strings"
 	"text/tabwriter"
@@ -43,6 +44,9 @@ func runCheckpoints(args []string, stdout, stderr io.Writer) error {
 	// lock nothing, so they are safe beside a running service. Pin and unpin
 	// change it, as a writer that shares the store.
 	readOnly := sub == "list" || sub == "show" || sub == "verify"
+	if st, err := os.Stat(dir); err != nil || !st.IsDir() {
+		return fmt.Errorf("%w in %s: the directory does not exist (a service keeps its checkpoints in DATA/checkpoints)", checkpoint.ErrNoStore, dir)
+	}
 	store, err := checkpoint.OpenStore(checkpoint.StoreConfig{Dir: dir, ReadOnly: readOnly})
 	if err != nil {
 		return err

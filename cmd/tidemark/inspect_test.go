@@ -88,10 +88,13 @@ func TestInspectingCommandsBesideRunningService(t *testing.T) {
 	t.Logf("40 checkpoints on demand, %d failed, beside %d inspecting commands", failed, runs.Load())
 	// Inspecting a store changes nothing, not even a lock file.
 	missing := filepath.Join(dir, "no-such-store")
-	if code := run([]string{"checkpoints", "list", missing}, io.Discard, io.Discard); code == 0 {
-		t.Error("checkpoints list of a missing directory exited 0")
+	for _, sub := range [][]string{{"list"}, {"verify"}, {"pin", "1"}} {
+		args := append([]string{"checkpoints", sub[0], missing}, sub[1:]...)
+		if code := run(args, io.Discard, io.Discard); code == 0 {
+			t.Errorf("checkpoints %s of a missing directory exited 0", sub[0])
+		}
 	}
 	if _, err := os.Stat(missing); !os.IsNotExist(err) {
-		t.Error("checkpoints list created the directory it was pointed at")
+		t.Error("a checkpoints command created the directory it was pointed at")
 	}
 }
