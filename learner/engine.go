@@ -83,7 +83,8 @@ type Engine struct {
 	needTime string // the first learner that needs event time, or ""
 	baseline int    // index of the first mean learner, or −1
 	keys     map[string]*keyState
-	byName   []*keyState // the same, sorted by key: reports pool in this order
+	byName   []*keyState // the same; byName[:sorted] sorted by key, later ones in arrival order (see ordered)
+	sorted   int
 	totals   []total
 	hwm      map[int32]int64
 
@@ -375,18 +376,43 @@ func (e *Engine) Clone() *Engine {
 	return c
 }
 
-// addKey registers a new key's state, keeping byName sorted (O(keys) for a
-// new key, which is rare; reports then need no sort).
+// addKey registers a new key's state in O(1) amortised: the key order
+// reports and state bytes need is produced when asked for (ordered).
 func (e *Engine) addKey(ks *keyState) {
 	e.keys[ks.key] = ks
-	i, _ := slices.BinarySearchFunc(e.byName, ks.key, func(k *keyState, name string) int { return strings.Compare(k.key, name) })
-	e.byName = slices.Insert(e.byName, i, ks)
+	e.byName = append(e.byName, ks)
+}
+
+// ordered returns the key states sorted by key. Keys added since the last
+// call are sorted among themselves and merged in: O(t log t + k) for t new
+// keys among k, nothing when none is new.
+func (e *Engine) ordered() []*keyState {
+	if e.sorted == len(e.byName) {
+		return e.byName
+	}
+	byKey := func(a, b *keyState) int { return strings.Compare(a.key, b.key) }
+	head, tail := e.byName[:e.sorted], slices.Clone(e.byName[e.sorted:])
+	slices.SortFunc(tail, byKey)
+	merged := make([]*keyState, 0, len(e.byName))
+	i, j := 0, 0
+	for i < len(head) && j < len(tail) {
+		if head[i].key < tail[j].key {
+			merged = append(merged, head[i])
+			i++
+		} else {
+			merged = append(merged, tail[j])
+			j++
+		}
+	}
+	merged = append(append(merged, head[i:]...), tail[j:]...)
+	e.byName, e.sorted = merged, len(merged)
+	return merged
 }
 
 // sortedKeys returns the key states ordered by (partition, key), for the
 // partition sections of the state.
 func (e *Engine) sortedKeys() []*keyState {
-	out := slices.Clone(e.byName)
+	out := slices.Clone(e.ordered())
 	slices.SortStableFunc(out, func(a, b *keyState) int { return int(a.partition) - int(b.partition) })
 	return out
 }

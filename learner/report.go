@@ -64,7 +64,7 @@ func (e *Engine) Report(withKeys bool) Report {
 		Keys: len(e.keys), RecentWindow: e.cfg.Score.Recent, Positions: e.Positions()}
 	// Keys by name alone, not by partition: the pooled sums then do not
 	// depend on which partition a key landed in.
-	keys := e.byName
+	keys := e.ordered()
 	for i := range e.cfg.Learners {
 		s := &e.cfg.Learners[i]
 		t := &e.totals[i]

@@ -189,6 +189,7 @@ func (e *Engine) DecodeSections(secs []Section) error {
 		}
 	}
 	*e = *fresh
+	e.ordered() // a decoded engine (a published copy) is read concurrently: order it now
 	return nil
 }
 
