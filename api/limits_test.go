@@ -5,7 +5,6 @@ import (
 	"os"
 	"path/filepath"
 	"strings"
-	"sync/atomic"
 	"testing"
 	"time"
 )
@@ -62,17 +61,7 @@ func TestExistingDataDirectoryMadePrivate(t *testing.T) {
 // TestErrorAnswersHideDataPath: an error answer never shows where the
 // service keeps its data.
 func TestErrorAnswersHideDataPath(t *testing.T) {
-	var fail atomic.Bool
-	cfg := testConfig(t, t.TempDir())
-	cfg.CheckpointEvery = 1 << 40
-	cfg.CheckpointFS = switchFS{fail: &fail}
-	r := start(t, cfg)
-	lines := scenario(t, 1)
-	r.post(t, "", lines[:50])
-	r.waitCovered(t, 50)
-	if code, b := r.call(t, "POST", "/v1/checkpoints", "", nil); code != 201 {
-		t.Fatalf("checkpoint: %d %s", code, b)
-	}
+	r, cfg, fail, _ := startWithCheckpoint(t, 50)
 	fail.Store(true)
 	for _, path := range []string{"/v1/checkpoints", "/v1/checkpoints/1/restore"} {
 		code, b := r.call(t, "POST", path, "", []byte(`{"resume":"from_now"}`))

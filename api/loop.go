@@ -85,6 +85,11 @@ type cmdResult struct {
 }
 
 func decodeItem(it *item) {
+	if it.data == nil {
+		it.decErr = fmt.Errorf("%w: the source could not read the event at %v (a history line longer than %d bytes)",
+			learner.ErrInvalidEvent, it.pos, intake.MaxLineBytes)
+		return
+	}
 	ev := eventPool.Get().(*learner.Event)
 	if err := learner.DecodeEvent(it.data, ev); err != nil {
 		eventPool.Put(ev)

@@ -569,3 +569,28 @@ func TestServeFromHistoryFile(t *testing.T) {
 	}
 	r.waitStatus(t, "/readyz", 200)
 }
+
+// TestServeFromHistoryRejectsLongLineByPosition: a history line past the
+// line limit is rejected at its line, with a reason that says so, and the
+// lines after it are learned.
+func TestServeFromHistoryRejectsLongLineByPosition(t *testing.T) {
+	lines := scenario(t, 1)[:20]
+	long := []byte(`{"target":1,"key":"` + strings.Repeat("x", intake.MaxLineBytes+10) + `"}`)
+	all := append(append(append([][]byte{}, lines[:10]...), long), lines[10:]...)
+	path := filepath.Join(t.TempDir(), "history.ndjson")
+	os.WriteFile(path, append(bytes.Join(all, []byte("\n")), '\n'), 0o600)
+	cfg := testConfig(t, t.TempDir())
+	cfg.History = path
+	r := start(t, cfg)
+	rep := r.waitCovered(t, 21)
+	if rep.Events != 20 || rep.Rejected != 1 {
+		t.Errorf("%d applied, %d rejected; want 20 and 1", rep.Events, rep.Rejected)
+	}
+	if err := r.stop(); err != nil {
+		t.Fatal(err)
+	}
+	b, _ := os.ReadFile(filepath.Join(cfg.DataDir, "deadletters.ndjson"))
+	if !strings.Contains(string(b), `"offset":11`) || !strings.Contains(string(b), "longer than") {
+		t.Errorf("dead letters: %.300s; want line 11 named as too long", b)
+	}
+}

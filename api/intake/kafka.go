@@ -262,7 +262,11 @@ func (k *Kafka) readPartition(ctx, gctx context.Context, part int32, deliver fun
 		// Partitions are read concurrently; each calls deliver in its own
 		// offset order, which is all the engine needs (a key lives in one
 		// partition, and the state does not depend on the interleaving).
-		if !deliver(learner.Position{Partition: part, Offset: m.Offset}, m.Value) {
+		v := m.Value
+		if v == nil {
+			v = []byte{} // an empty message (nil is kept for what a source could not read)
+		}
+		if !deliver(learner.Position{Partition: part, Offset: m.Offset}, v) {
 			return
 		}
 		k.mu.Lock()

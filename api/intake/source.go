@@ -21,7 +21,10 @@ type Source interface {
 	// Run delivers, in position order within each partition, every event
 	// after the covered positions, until ctx is done (then it returns nil),
 	// deliver returns false, or the source fails. deliver owns each payload
-	// it is given (it may keep it). A journal's damage is a *DamageError.
+	// it is given (it may keep it); a nil payload is an event at that
+	// position the source could not read (a history line past
+	// MaxLineBytes), to be rejected by position. A journal's damage is a
+	// *DamageError.
 	Run(ctx context.Context, covered []learner.Position, deliver func(learner.Position, []byte) bool) error
 	// Available returns, per partition, the position of the last event the
 	// source holds now, and whether that is known yet (a Kafka topic's is
@@ -86,7 +89,7 @@ func (j *Journal) Run(ctx context.Context, covered []learner.Position, deliver f
 			}
 			return err
 		}
-		if !deliver(learner.Position{Partition: 0, Offset: off}, append([]byte(nil), p...)) {
+		if !deliver(learner.Position{Partition: 0, Offset: off}, append(make([]byte, 0, len(p)), p...)) {
 			return nil
 		}
 	}
@@ -173,8 +176,8 @@ func OpenHistorySource(path string) (*HistorySource, error) {
 	return &HistorySource{path: path, lines: n}, nil
 }
 
-// Run implements Source. A line past MaxLineBytes is delivered empty (the
-// service rejects it by position, as it does a malformed one).
+// Run implements Source. A line past MaxLineBytes is delivered as a nil
+// payload (the service rejects it by position, saying why).
 func (h *HistorySource) Run(ctx context.Context, covered []learner.Position, deliver func(learner.Position, []byte) bool) error {
 	skip := int64(0)
 	for _, p := range covered {
@@ -192,8 +195,9 @@ func (h *HistorySource) Run(ctx context.Context, covered []learner.Position, del
 			return nil
 		}
 		b, line, err := f.Next()
-		if errors.Is(err, ErrLineTooLong) {
-			b, err = nil, nil
+		tooLong := errors.Is(err, ErrLineTooLong)
+		if tooLong {
+			err = nil
 		}
 		if err != nil {
 			if errors.Is(err, io.EOF) {
@@ -205,7 +209,11 @@ func (h *HistorySource) Run(ctx context.Context, covered []learner.Position, del
 		if line <= skip {
 			continue
 		}
-		if !deliver(learner.Position{Partition: 0, Offset: line}, append([]byte(nil), b...)) {
+		var data []byte // nil: the line was too long to read
+		if !tooLong {
+			data = append(make([]byte, 0, len(b)), b...)
+		}
+		if !deliver(learner.Position{Partition: 0, Offset: line}, data) {
 			return nil
 		}
 	}

@@ -37,7 +37,8 @@ func TestInspectingCommandsBesideRunningService(t *testing.T) {
 	stop := make(chan struct{})
 	var wg sync.WaitGroup
 	var runs atomic.Int64
-	for _, sub := range []string{"list", "verify", "show"} {
+	// repeat runs f until stop is closed, on a goroutine of its own.
+	repeat := func(f func()) {
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
@@ -47,29 +48,20 @@ func TestInspectingCommandsBesideRunningService(t *testing.T) {
 					return
 				default:
 				}
-				args := []string{"checkpoints", sub, store}
-				if sub == "show" {
-					args = append(args, "1")
-				}
-				run(args, io.Discard, io.Discard)
+				f()
 				runs.Add(1)
 			}
 		}()
 	}
-	// And the real binary, as an operator's shell loop would run it.
-	wg.Add(1)
-	go func() {
-		defer wg.Done()
-		for {
-			select {
-			case <-stop:
-				return
-			default:
-			}
-			exec.Command(bin, "checkpoints", "list", store).Run()
-			runs.Add(1)
+	for _, sub := range []string{"list", "verify", "show"} {
+		args := []string{"checkpoints", sub, store}
+		if sub == "show" {
+			args = append(args, "1")
 		}
-	}()
+		repeat(func() { run(args, io.Discard, io.Discard) })
+	}
+	// And the real binary, as an operator's shell loop would run it.
+	repeat(func() { exec.Command(bin, "checkpoints", "list", store).Run() })
 	failed := 0
 	for i := 0; i < 40; i++ {
 		resp, err := http.Post(p.base+"/v1/checkpoints", "application/json", nil)
