@@ -35,16 +35,15 @@ func newCurves(specs []learner.Spec, n int) *curves {
 }
 
 func (c *curves) add(eng *learner.Engine) {
-	r := eng.Report(false)
 	var pos learner.Position
 	if ps := eng.Positions(); len(ps) > 0 {
 		pos = ps[len(ps)-1]
 	}
 	c.mu.Lock()
 	defer c.mu.Unlock()
-	for i, l := range r.Learners {
-		p := CurvePoint{Position: pos, Events: r.Events, MAE: l.Recent.MAE, RMSE: l.Recent.RMSE}
-		c.points[i].Push(p)
+	for i := range c.points {
+		_, mae, rmse := eng.Recent(i)
+		c.points[i].Push(CurvePoint{Position: pos, Events: eng.Applied(), MAE: mae, RMSE: rmse})
 	}
 }
 

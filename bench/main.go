@@ -27,6 +27,7 @@ import (
 	"net/http"
 	"os"
 	"runtime"
+	"runtime/pprof"
 	"strconv"
 	"strings"
 	"testing"
@@ -61,14 +62,40 @@ func main() {
 	testing.Init()
 	asJSON := flag.Bool("json", false, "print a JSON array of results")
 	flag.BoolVar(&quick, "quick", false, "shorter runs (under a minute)")
+	child := flag.String("replay-child", "", "internal: replay this history and print events/s (the keys case's child process)")
+	only := flag.String("only", "", "run only the named extra: keys")
+	writeKeys := flag.String("write-keys-history", "", "write the keys case's history (2 M events, 10⁶ keys) to this file and exit")
+	cpuprofile := flag.String("cpuprofile", "", "with -replay-child: write a CPU profile here")
 	flag.Parse()
+	if *writeKeys != "" {
+		if err := writeKeysHistory(*writeKeys, 2_000_000, 1_000_000); err != nil {
+			fmt.Fprintln(os.Stderr, err)
+			os.Exit(1)
+		}
+		return
+	}
+	if *child != "" {
+		if *cpuprofile != "" {
+			f, err := os.Create(*cpuprofile)
+			if err == nil {
+				pprof.StartCPUProfile(f)
+				defer pprof.StopCPUProfile()
+			}
+		}
+		replayChild(*child)
+		return
+	}
+	if *only == "keys" {
+		fmt.Print(keysScale())
+		return
+	}
 	bt := "1s"
 	if quick {
 		bt = "150ms"
 	}
 	flag.Set("test.benchtime", bt)
 	results := []result{knnPredict(), knnLearn(), rlsUpdate(), slidingUpdate(), replayThroughput(), httpPredict(), kafkaIntake()}
-	extras := []string{growth(), memory(), onlineVsBatch()}
+	extras := []string{growth(), memory(), onlineVsBatch(), keysScale()}
 	ok := true
 	for i := range results {
 		r := &results[i]

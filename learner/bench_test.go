@@ -105,3 +105,39 @@ func BenchmarkReport(b *testing.B) {
 		e.Report(false)
 	}
 }
+
+// BenchmarkApplyKeys applies events of rls (d=8) + mean:window=100 spread
+// over 1 or 10⁶ keys (issue 13's case): the cost of an event should not
+// depend on how many keys the state holds. Keys are visited in a scattered
+// order, as a real stream would; the first visit of a key creates it.
+func BenchmarkApplyKeys(b *testing.B) {
+	for _, nk := range []int{1, 1_000_000} {
+		b.Run("keys="+strconv.Itoa(nk), func(b *testing.B) {
+			rls, _ := ParseSpec("rls:forget=0.99")
+			mean, _ := ParseSpec("mean:window=100")
+			e, _ := NewEngine(Config{Learners: []Spec{rls, mean}, MaxKeys: nk})
+			keys := make([]string, nk)
+			for i := range keys {
+				keys[i] = "meter-" + strconv.Itoa(i)
+			}
+			ev := &Event{Features: make([]Feature, 8)}
+			for j := range ev.Features {
+				ev.Features[j].Name = "x" + strconv.Itoa(j)
+			}
+			rng := rand.New(rand.NewPCG(1, 2))
+			b.ReportAllocs()
+			b.ResetTimer()
+			for i := 0; i < b.N; i++ {
+				ev.Key = keys[(uint64(i)*0x9E3779B97F4A7C15>>20)%uint64(nk)]
+				s := 0.0
+				for j := range ev.Features {
+					v := rng.NormFloat64()
+					ev.Features[j].Num = v
+					s += float64(j) * v
+				}
+				ev.Target = s + rng.NormFloat64()
+				e.Apply(Position{Offset: int64(i)}, ev)
+			}
+		})
+	}
+}

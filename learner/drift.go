@@ -68,7 +68,7 @@ func (s DriftState) String() string {
 // in standard deviations. After an alarm the statistic restarts from scratch.
 // The engine feeds it each learner's absolute prequential error.
 type PageHinkley struct {
-	cfg     DriftConfig
+	cfg     *DriftConfig // shared by an engine's detectors
 	n       int64
 	mean    float64
 	m2      float64
@@ -80,7 +80,14 @@ type PageHinkley struct {
 }
 
 func newPageHinkley(cfg DriftConfig) PageHinkley {
-	return PageHinkley{cfg: cfg.withDefaults(), since: math.MaxInt32}
+	c := cfg.withDefaults()
+	return newPageHinkleyShared(&c)
+}
+
+// newPageHinkleyShared is newPageHinkley with a configuration that already
+// has its defaults, shared by the caller's detectors.
+func newPageHinkleyShared(cfg *DriftConfig) PageHinkley {
+	return PageHinkley{cfg: cfg, since: math.MaxInt32}
 }
 
 // Add feeds one value and reports whether it raised an alarm.

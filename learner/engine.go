@@ -91,7 +91,9 @@ type Engine struct {
 	applied, rejected, duplicates, ignored int64
 	alarms, skipped                        int64
 
-	x []float64
+	x       []float64
+	scratch []*scratch   // per learner: working space its keys share
+	drift   *DriftConfig // e.cfg.Drift, shared by every key's detectors
 
 	stateVer uint32 // while decoding: the version of the state being read
 
@@ -99,13 +101,32 @@ type Engine struct {
 	lastOK   []bool    // whether it predicted (was ready)
 }
 
-// total is what a learner keeps across keys: its alarm count and the last
-// alarm, "last" meaning the latest by (event time, partition, offset), so that
-// it does not depend on how partitions interleave. Its metrics are pooled
-// from the keys' scorers when reported.
+// total is what a learner keeps across keys, as running totals brought up
+// to date by every event, so that a report reads them instead of visiting
+// every key: its pooled scorers, how many keys are in each drift state, the
+// late events of its time windows, its alarm count and the last alarm, "last"
+// meaning the latest by (event time, partition, offset), so that it does not
+// depend on how partitions interleave. None of it is in the state bytes: a
+// decoded engine adds its keys up again.
 type total struct {
+	pool      pool
+	states    [Drift + 1]int64 // keys per drift state
+	late      int64
 	alarms    int64
 	lastAlarm *Alarm
+}
+
+// count adds (sign 1) or takes out (−1) learner i of ks from the totals.
+func (t *total) count(ks *keyState, i int, sign int64) {
+	if sign > 0 {
+		t.pool.add(&ks.slots[i].score)
+	} else {
+		t.pool.remove(&ks.slots[i].score)
+	}
+	t.states[ks.slots[i].drift.State()] += sign
+	if l, ok := ks.slots[i].learner.(lateCounter); ok {
+		t.late += sign * l.Late()
+	}
 }
 
 // later reports whether alarm a comes after b in (time, partition, offset) order.
@@ -122,9 +143,15 @@ func (a Alarm) later(b Alarm) bool {
 type keyState struct {
 	key       string
 	partition int32
-	learners  []Learner
-	scores    []Scorer
-	drift     []PageHinkley
+	slots     []slot // one per learner, in configuration order
+}
+
+// slot is one learner of a key with its scorer and drift detector, together
+// in one allocation with the key's other slots.
+type slot struct {
+	learner Learner
+	score   Scorer
+	drift   PageHinkley
 }
 
 // NewEngine validates cfg, fills its defaults and returns an empty engine.
@@ -138,6 +165,7 @@ func NewEngine(cfg Config) (*Engine, error) {
 	cfg.Score = cfg.Score.withDefaults()
 	cfg.Drift = cfg.Drift.withDefaults()
 	e := &Engine{cfg: cfg, baseline: -1, keys: map[string]*keyState{}, hwm: map[int32]int64{}}
+	e.drift = &e.cfg.Drift
 	e.schema, _, _ = NewSchema(cfg.Features)
 	for i := range cfg.Learners {
 		s := &cfg.Learners[i]
@@ -147,9 +175,10 @@ func NewEngine(cfg Config) (*Engine, error) {
 		if s.Kind == KindMean && e.baseline < 0 {
 			e.baseline = i
 		}
-		e.totals = append(e.totals, total{})
+		e.totals = append(e.totals, total{pool: pool{alpha: cfg.Score.Fading}})
 		e.lastPred = append(e.lastPred, 0)
 		e.lastOK = append(e.lastOK, false)
+		e.scratch = append(e.scratch, nil)
 	}
 	if cfg.Features.TimeFeatures && e.needTime == "" {
 		e.needTime = "time features"
@@ -160,6 +189,11 @@ func NewEngine(cfg Config) (*Engine, error) {
 // Last returns learner i's prediction for the last event Apply applied, and
 // whether it made one (it was ready). Replays use it to plot predictions.
 func (e *Engine) Last(i int) (float64, bool) { return e.lastPred[i], e.lastOK[i] }
+
+// Recent returns learner i's recent MAE and RMSE pooled over all keys (nil
+// before any scored event) and how many recent errors they cover, from the
+// running totals: the figures a report gives, at the cost of two roundings.
+func (e *Engine) Recent(i int) (events int64, mae, rmse *float64) { return e.totals[i].pool.recent() }
 
 // LearnerAlarms returns the drift alarms learner i has raised, over all keys.
 func (e *Engine) LearnerAlarms(i int) int64 { return e.totals[i].alarms }
@@ -252,17 +286,32 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 	e.schema = schema
 	e.ignored += int64(ignored)
 	y := ev.Target
-	for i, l := range ks.learners {
+	for i := range ks.slots {
+		l := ks.slots[i].learner
+		t := &e.totals[i]
+		lc, windowed := l.(lateCounter)
+		var late int64
+		if windowed {
+			late = lc.Late()
+		}
 		if ev.HasTime {
 			l.Advance(ev.Time)
 		}
 		pred, ok := l.Predict(e.x)
 		e.lastPred[i], e.lastOK[i] = pred, ok
 		if ok {
-			ks.scores[i].Score(y, pred)
-			if ks.drift[i].Add(math.Abs(y - pred)) {
+			sc, d := &ks.slots[i].score, &ks.slots[i].drift
+			t.pool.remove(sc)
+			sc.Score(y, pred)
+			t.pool.add(sc)
+			before := d.State()
+			alarm := d.Add(math.Abs(y - pred))
+			if after := d.State(); after != before {
+				t.states[before]--
+				t.states[after]++
+			}
+			if alarm {
 				e.alarms++
-				t := &e.totals[i]
 				t.alarms++
 				a := Alarm{Position: pos, Key: ks.key, Time: ev.Time}
 				if t.lastAlarm == nil {
@@ -273,21 +322,26 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 				}
 			}
 		} else {
-			ks.scores[i].Unscore()
+			ks.slots[i].score.Unscore()
+			t.pool.unscored++
 		}
 		l.Learn(e.x, y, ev.Time)
+		if windowed {
+			t.late += lc.Late() - late
+		}
 	}
 	e.applied++
 	return true, nil
 }
 
 func (e *Engine) newKey(key string, partition int32) *keyState {
-	ks := &keyState{key: key, partition: partition}
+	n := len(e.cfg.Learners)
+	ks := &keyState{key: key, partition: partition, slots: make([]slot, n)}
 	d := e.schema.Dim()
 	for i := range e.cfg.Learners {
-		ks.learners = append(ks.learners, New(&e.cfg.Learners[i], d))
-		ks.scores = append(ks.scores, newScorer(e.cfg.Score.Recent, e.cfg.Score.Fading))
-		ks.drift = append(ks.drift, newPageHinkley(e.cfg.Drift))
+		ks.slots[i].learner = newShared(&e.cfg.Learners[i], d, &e.scratch[i])
+		ks.slots[i].score = newScorer(e.cfg.Score.Recent, e.cfg.Score.Fading)
+		ks.slots[i].drift = newPageHinkleyShared(e.drift)
 	}
 	return ks
 }
@@ -320,8 +374,8 @@ func (e *Engine) Predict(key, learner string, ev *Event) (Prediction, error) {
 	if _, err := e.schema.Vector(x, ev); err != nil {
 		return Prediction{}, err
 	}
-	l := ks.learners[i]
-	m := ks.scores[i].Metrics()
+	l := ks.slots[i].learner
+	m := ks.slots[i].score.Metrics()
 	p := Prediction{Trained: l.Trained(), Scored: m.Scored, RecentRMSE: m.Recent.RMSE}
 	// Predicting does not move a time window: only training does. A row's
 	// time only feeds the time features.
@@ -381,6 +435,9 @@ func (e *Engine) Clone() *Engine {
 func (e *Engine) addKey(ks *keyState) {
 	e.keys[ks.key] = ks
 	e.byName = append(e.byName, ks)
+	for i := range e.totals {
+		e.totals[i].count(ks, i, 1)
+	}
 }
 
 // ordered returns the key states sorted by key. Keys added since the last

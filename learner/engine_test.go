@@ -8,6 +8,7 @@ import (
 	"math"
 	"math/rand/v2"
 	"runtime"
+	"strings"
 	"sync"
 	"testing"
 )
@@ -326,6 +327,56 @@ func TestMemoryFollowsData(t *testing.T) {
 		t.Errorf("%d bytes a key with one event each, more than 4 KB", perKey)
 	}
 	runtime.KeepAlive(e)
+}
+
+// TestBytesPerKey measures what a key costs with two events (issue 13's
+// million-key case: 2 M events over 10⁶ keys), d = 8, for each learner kind
+// alone and for rls + mean together, the engine's own per-key bookkeeping
+// (scorer, drift detector, map entry) included. The README's figures come
+// from its log. Bounds: twice what was measured, so that only a real
+// regression fails (an rls + mean key took 2.6 KB before the packed R, the
+// shared scratch space and the grown-on-demand score window).
+func TestBytesPerKey(t *testing.T) {
+	cases := []struct {
+		specs []string
+		bound int64
+	}{
+		{[]string{"rls:forget=0.99"}, 2300},
+		{[]string{"mean:window=100"}, 1500},
+		{[]string{"knn:k=10,window=1000"}, 3600},
+		{[]string{"sliding-rls:window=500"}, 3300},
+		{[]string{"rls:forget=0.99", "mean:window=100"}, 3600},
+	}
+	keys := make([]string, 50_000)
+	for i := range keys {
+		keys[i] = fmt.Sprintf("meter-%06d", i)
+	}
+	fs := make([]Feature, 8)
+	for j := range fs {
+		fs[j].Name = fmt.Sprint("x", j)
+	}
+	for _, c := range cases {
+		runtime.GC()
+		var before, after runtime.MemStats
+		runtime.ReadMemStats(&before)
+		e := mustEngine(t, Config{MaxKeys: 100_000}, c.specs...)
+		for rep := 0; rep < 2; rep++ {
+			for i, k := range keys {
+				for j := range fs {
+					fs[j].Num = float64(i*j%7) + float64(rep)
+				}
+				e.Apply(Position{Offset: int64(rep*len(keys) + i)}, &Event{Key: k, Target: 1, Time: int64(rep*len(keys)+i) * 1e9, HasTime: true, Features: fs})
+			}
+		}
+		runtime.GC()
+		runtime.ReadMemStats(&after)
+		perKey := (int64(after.HeapAlloc) - int64(before.HeapAlloc)) / int64(len(keys))
+		t.Logf("%s: %d bytes a key (two events, d = 8)", strings.Join(c.specs, " + "), perKey)
+		if perKey > c.bound {
+			t.Errorf("%s: %d bytes a key, bound %d", strings.Join(c.specs, " + "), perKey, c.bound)
+		}
+		runtime.KeepAlive(e)
+	}
 }
 
 // TestPredictConcurrent: Engine.Predict keeps scratch space of its own, so

@@ -40,14 +40,18 @@ type Coefficients interface {
 }
 
 // New builds the learner of spec s for d-dimensional feature vectors.
-func New(s *Spec, d int) Learner {
+func New(s *Spec, d int) Learner { return newShared(s, d, new(*scratch)) }
+
+// newShared is New with working space shared through *sp, made when nil:
+// the engine gives every key's learner of one spec the same.
+func newShared(s *Spec, d int, sp **scratch) Learner {
 	switch s.Kind {
 	case KindKNN:
 		return newKNN(s.KNN, d)
 	case KindRLS:
-		return newRLS(s.RLS, d)
+		return newRLSShared(s.RLS, d, sp)
 	case KindSlidingRLS:
-		return newSliding(s.Sliding, d)
+		return newSlidingShared(s.Sliding, d, sp)
 	case KindMean:
 		return newMean(s.Mean)
 	}

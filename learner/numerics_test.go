@@ -274,11 +274,11 @@ func TestWindowedSumsDoNotDrift(t *testing.T) {
 		ks := e.keys[""]
 		// The mean baseline after training on event i.
 		wantMean, _ := twoPass(targets[lo : i+1])
-		if p, _ := ks.learners[0].Predict(nil); !closeTo(p, wantMean, tol, 1) {
+		if p, _ := ks.slots[0].learner.Predict(nil); !closeTo(p, wantMean, tol, 1) {
 			t.Fatalf("event %d: mean %.17g, two-pass %.17g", i, p, wantMean)
 		}
 		// k-NN's z-score scales: population variance of each feature.
-		knn := ks.learners[1].(*KNN)
+		knn := ks.slots[1].learner.(*KNN)
 		for j := range feats {
 			_, want := twoPass(feats[j][lo : i+1])
 			got := knn.moms[j].PopVariance()
@@ -299,7 +299,7 @@ func TestWindowedSumsDoNotDrift(t *testing.T) {
 				se += v
 			}
 			k := float64(len(es))
-			r := ks.scores[l].Metrics().Recent
+			r := ks.slots[l].score.Metrics().Recent
 			if !closeTo(*r.MAE, sa/k, tol, 0) || !closeTo(*r.RMSE, math.Sqrt(sq/k), tol, 0) || !closeTo(*r.Bias, se/k, tol, sa/k) {
 				t.Fatalf("event %d learner %d: recent mae %.17g rmse %.17g bias %.17g; two-pass %.17g %.17g %.17g",
 					i, l, *r.MAE, *r.RMSE, *r.Bias, sa/k, math.Sqrt(sq/k), se/k)

@@ -16,21 +16,47 @@ import "math"
 // LINPACK Users' Guide, SIAM 1979, ch. 10), both O(p²).
 type sqrtInfo struct {
 	p int
-	r []float64 // p*p, upper triangle used
+	r []float64 // the upper triangle of R packed by rows: Rᵢⱼ (j ≥ i) at base(i)+j
 	z []float64
-	a []float64 // scratch, p
-	c []float64 // scratch, p
+	s *scratch // a and c are used here
 }
 
-func newSqrtInfo(p int) sqrtInfo {
-	return sqrtInfo{p: p, r: make([]float64, p*p), z: make([]float64, p), a: make([]float64, p), c: make([]float64, p)}
+// scratch is working space of length p. The learners of one engine share
+// theirs (they run on one goroutine, one at a time), so that a key's model
+// holds only its state.
+type scratch struct{ u, a, c []float64 }
+
+func newScratch(p int) *scratch {
+	b := make([]float64, 3*p)
+	return &scratch{u: b[:p:p], a: b[p : 2*p : 2*p], c: b[2*p:]}
 }
+
+// useScratch returns *sp, first making it when it is nil or of another size.
+func useScratch(sp **scratch, p int) *scratch {
+	if *sp == nil || len((*sp).u) != p {
+		*sp = newScratch(p)
+	}
+	return *sp
+}
+
+// newSqrtInfo returns an empty R and z for p coefficients, and extra more
+// floats from the same allocation (a key's model is made on its first event,
+// so one allocation instead of several counts at a million keys).
+func newSqrtInfo(p int, s *scratch, extra int) (sqrtInfo, []float64) {
+	n := p * (p + 1) / 2
+	b := make([]float64, n+p+extra)
+	return sqrtInfo{p: p, r: b[:n:n], z: b[n : n+p : n+p], s: s}, b[n+p:]
+}
+
+// base returns the offset of row i in r less i, so that Rᵢⱼ is r[base(i)+j]:
+// row i holds p−i entries from Rᵢᵢ, at i·p − i(i−1)/2.
+func (q *sqrtInfo) base(i int) int { return i * (2*q.p - i - 1) / 2 }
 
 func (q *sqrtInfo) reset(diag float64) {
 	clear(q.r)
 	clear(q.z)
 	for i := 0; i < q.p; i++ {
-		q.r[i*q.p+i] = diag
+		q.r[q.base(i)+i] = diag
 	}
 }
 
@@ -42,7 +68,7 @@ func (q *sqrtInfo) reset(diag float64) {
 func (q *sqrtInfo) scale(s float64) {
 	p := q.p
 	for i := 0; i < p; i++ {
-		row := q.r[i*p+i : i*p+p]
+		row := q.r[q.base(i)+i : q.base(i)+p]
 		for j := range row {
 			row[j] *= s
 		}
@@ -77,11 +103,11 @@ const flushRel = 0x1p-120
 // the intercept's 1 intact. A remainder above the rule is always kept.
 func (q *sqrtInfo) add(x []float64, y float64) {
 	p := q.p
-	w := q.a
+	w := q.s.a
 	copy(w, x)
 	for i := 0; i < p; i++ {
 		wi := w[i]
-		ri := q.r[i*p : i*p+p]
+		ri := q.r[q.base(i) : q.base(i)+p] // entries j ≥ i
 		a := ri[i]
 		if wi == 0 || a == 0 && q.negligible(i, wi) {
 			continue
@@ -123,10 +149,10 @@ func dot2(a, b, c, d float64) float64 {
 // empty, is at most rankTol·√(‖R[0:i, i]‖² + wi²) (see add). Cost O(i); it
 // runs only while row i of R has no pivot.
 func (q *sqrtInfo) negligible(i int, wi float64) bool {
-	p := q.p
 	col := wi * wi
 	for k := 0; k < i; k++ {
-		col += q.r[k*p+i] * q.r[k*p+i]
+		rki := q.r[q.base(k)+i]
+		col += rki * rki
 	}
 	return math.Abs(wi) <= rankTol*math.Sqrt(col)
 }
@@ -136,7 +162,7 @@ func (q *sqrtInfo) negligible(i int, wi float64) bool {
 // positive definite in floating point; the caller then refactorises.
 func (q *sqrtInfo) remove(x []float64, y float64) bool {
 	p := q.p
-	s, c := q.a, q.c
+	s, c := q.s.a, q.s.c
 	// Solve Rᵀs = x. A column that is, to working precision, a combination
 	// of the ones before it (rankTol, as in solve) has a zero row in R: the
 	// row being removed has no component along it, so s there is 0 and its
@@ -147,10 +173,11 @@ func (q *sqrtInfo) remove(x []float64, y float64) bool {
 		v := x[j]
 		var col float64
 		for i := 0; i < j; i++ {
-			v -= q.r[i*p+j] * s[i]
-			col += q.r[i*p+j] * q.r[i*p+j]
+			rij := q.r[q.base(i)+j]
+			v -= rij * s[i]
+			col += rij * rij
 		}
-		d := q.r[j*p+j]
+		d := q.r[q.base(j)+j]
 		if d == 0 || math.Abs(d) <= rankTol*math.Sqrt(col+d*d) {
 			s[j] = 0
 			continue
@@ -176,9 +203,10 @@ func (q *sqrtInfo) remove(x []float64, y float64) bool {
 	for j := 0; j < p; j++ {
 		var xx float64
 		for i := j; i >= 0; i-- {
-			rij := q.r[i*p+j]
+			at := q.base(i) + j
+			rij := q.r[at]
 			t := c[i]*xx + s[i]*rij
-			q.r[i*p+j] = c[i]*rij - s[i]*xx
+			q.r[at] = c[i]*rij - s[i]*xx
 			xx = t
 		}
 	}
@@ -205,10 +233,11 @@ const rankTol = 1e-12
 func (q *sqrtInfo) solve(theta []float64) (deficient int) {
 	p := q.p
 	for i := p - 1; i >= 0; i-- {
-		d := q.r[i*p+i]
+		d := q.r[q.base(i)+i]
 		var col float64
 		for k := 0; k <= i; k++ {
-			col += q.r[k*p+i] * q.r[k*p+i]
+			rki := q.r[q.base(k)+i]
+			col += rki * rki
 		}
 		if d == 0 || math.Abs(d) <= rankTol*math.Sqrt(col) {
 			theta[i] = 0
@@ -217,7 +246,7 @@ func (q *sqrtInfo) solve(theta []float64) (deficient int) {
 		}
 		v := q.z[i]
 		for j := i + 1; j < p; j++ {
-			v -= q.r[i*p+j] * theta[j]
+			v -= q.r[q.base(i)+j] * theta[j]
 		}
 		theta[i] = v / d
 	}
@@ -225,12 +254,9 @@ func (q *sqrtInfo) solve(theta []float64) (deficient int) {
 }
 
 func (q *sqrtInfo) encode(w *encoder) {
-	p := q.p
-	w.int(p)
-	for i := 0; i < p; i++ {
-		for j := i; j < p; j++ {
-			w.f64(q.r[i*p+j])
-		}
+	w.int(q.p)
+	for _, v := range q.r { // row by row from the diagonal, as packed
+		w.f64(v)
 	}
 	for _, v := range q.z {
 		w.f64(v)
@@ -238,13 +264,9 @@ func (q *sqrtInfo) encode(w *encoder) {
 }
 
 func (q *sqrtInfo) decode(r *decoder) {
-	p := q.p
-	r.expect(p, "coefficient count")
-	clear(q.r)
-	for i := 0; i < p; i++ {
-		for j := i; j < p; j++ {
-			q.r[i*p+j] = r.f64()
-		}
+	r.expect(q.p, "coefficient count")
+	for i := range q.r {
+		q.r[i] = r.f64()
 	}
 	for i := range q.z {
 		q.z[i] = r.f64()

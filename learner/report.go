@@ -58,40 +58,35 @@ type AlarmReport struct {
 	Time     string   `json:"time,omitempty"`
 }
 
-// Report builds the report; withKeys adds per-key metrics.
+// Report builds the report from the running totals, in time independent of
+// the number of keys; withKeys adds per-key metrics (a visit of every key).
 func (e *Engine) Report(withKeys bool) Report {
 	r := Report{Events: e.applied, Rejected: e.rejected, Duplicates: e.duplicates, Skipped: e.skipped, IgnoredFeatures: e.ignored,
 		Keys: len(e.keys), RecentWindow: e.cfg.Score.Recent, Positions: e.Positions()}
-	// Keys by name alone, not by partition: the pooled sums then do not
-	// depend on which partition a key landed in.
-	keys := e.ordered()
+	var keys []*keyState
+	if withKeys {
+		// Keys by name alone, not by partition.
+		keys = e.ordered()
+	}
 	for i := range e.cfg.Learners {
 		s := &e.cfg.Learners[i]
 		t := &e.totals[i]
-		var all, base pooled
-		for _, ks := range keys {
-			all.add(&ks.scores[i])
-			if e.baseline >= 0 {
-				base.add(&ks.scores[e.baseline])
-			}
-		}
-		lr := LearnerReport{Name: s.Name, Spec: s.Text, Kind: s.Kind.String(), Metrics: all.metrics()}
+		lr := LearnerReport{Name: s.Name, Spec: s.Text, Kind: s.Kind.String(), Metrics: t.pool.metrics(), Late: t.late}
 		if e.baseline >= 0 {
-			lr.Skill = Skill(lr.Metrics, base.metrics())
+			lr.Skill = Skill(lr.Metrics, e.totals[e.baseline].pool.metrics())
 		}
 		state := Stable
+		for st, n := range t.states {
+			if n > 0 {
+				state = DriftState(st)
+			}
+		}
 		for _, ks := range keys {
-			state = max(state, ks.drift[i].State())
-			if l, ok := ks.learners[i].(lateCounter); ok {
-				lr.Late += l.Late()
+			kr := KeyReport{Key: ks.key, Metrics: ks.slots[i].score.Metrics(), Drift: ks.slots[i].drift.State().String()}
+			if e.baseline >= 0 {
+				kr.Skill = Skill(kr.Metrics, ks.slots[e.baseline].score.Metrics())
 			}
-			if withKeys {
-				kr := KeyReport{Key: ks.key, Metrics: ks.scores[i].Metrics(), Drift: ks.drift[i].State().String()}
-				if e.baseline >= 0 {
-					kr.Skill = Skill(kr.Metrics, ks.scores[e.baseline].Metrics())
-				}
-				lr.Keys = append(lr.Keys, kr)
-			}
+			lr.Keys = append(lr.Keys, kr)
 		}
 		lr.Drift = DriftReport{State: state.String(), Alarms: t.alarms}
 		if a := t.lastAlarm; a != nil {

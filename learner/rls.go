@@ -41,7 +41,6 @@ type RLS struct {
 	ex      expansion
 	qr      sqrtInfo
 	theta   []float64
-	u       []float64 // scratch
 	trained int64
 	last    int64 // newest event time seen by Learn
 	hasLast bool
@@ -50,10 +49,14 @@ type RLS struct {
 
 var _ Learner = (*RLS)(nil)
 
-func newRLS(cfg RLSConfig, d int) *RLS {
+func newRLS(cfg RLSConfig, d int) *RLS { return newRLSShared(cfg, d, new(*scratch)) }
+
+// newRLSShared is newRLS with working space shared through *sp (made when nil).
+func newRLSShared(cfg RLSConfig, d int, sp **scratch) *RLS {
 	ex := expansion{d: d, intercept: !cfg.NoIntercept, degree: cfg.Degree}
 	p := ex.p()
-	m := &RLS{cfg: cfg, ex: ex, qr: newSqrtInfo(p), theta: make([]float64, p), u: make([]float64, p)}
+	qr, theta := newSqrtInfo(p, useScratch(sp, p), p)
+	m := &RLS{cfg: cfg, ex: ex, qr: qr, theta: theta}
 	m.qr.reset(priorDiag(cfg.P0))
 	m.rankDef = p
 	return m
@@ -75,11 +78,11 @@ func (m *RLS) Trained() int64 { return m.trained }
 
 // Predict implements Learner: uᵀθ.
 func (m *RLS) Predict(x []float64) (float64, bool) {
-	m.ex.apply(m.u, x)
+	m.ex.apply(m.qr.s.u, x)
 	if m.trained < int64(len(m.theta)) {
 		return 0, false
 	}
-	return dot(m.u, m.theta), true
+	return dot(m.qr.s.u, m.theta), true
 }
 
 // predictShared implements Learner: uᵀθ with u of its own.
@@ -94,7 +97,7 @@ func (m *RLS) predictShared(x []float64) (float64, bool) {
 
 // Learn implements Learner.
 func (m *RLS) Learn(x []float64, y float64, t int64) {
-	m.ex.apply(m.u, x)
+	m.ex.apply(m.qr.s.u, x)
 	lambda := m.cfg.Forget
 	if m.cfg.HalfLife > 0 {
 		lambda = 1
@@ -108,7 +111,7 @@ func (m *RLS) Learn(x []float64, y float64, t int64) {
 	if lambda != 1 {
 		m.qr.scale(math.Sqrt(lambda))
 	}
-	m.qr.add(m.u, y)
+	m.qr.add(m.qr.s.u, y)
 	m.rankDef = m.qr.solve(m.theta)
 	m.trained++
 }

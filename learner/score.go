@@ -51,7 +51,7 @@ func (c ScoreConfig) withDefaults() ScoreConfig {
 // of their scale, so recent figures equal a fresh computation over the
 // window. Sums over all events are plain running sums, in event order.
 //
-// A learner's overall metrics pool its keys' scorers (see pooled): they
+// A learner's overall metrics pool its keys' scorers (see pool): they
 // depend only on each key's events in order, never on how the partitions of
 // a stream interleave, so a restart that interleaves differently ends in the
 // same state.
@@ -83,8 +83,12 @@ const IntervalZ = 1.96
 // is quoted and its coverage counted.
 const MinIntervalEvents = 30
 
+// scorerInitial is the recent window's first storage, in errors: it doubles
+// as errors arrive, up to Recent.
+const scorerInitial = 2
+
 func newScorer(recent int, alpha float64) Scorer {
-	n := min(recent, 8)
+	n := min(recent, scorerInitial)
 	return Scorer{rec: make([]float64, n), idx: window.NewIndex(n), recMax: recent, alpha: alpha}
 }
 
@@ -202,8 +206,7 @@ func (s *Scorer) Metrics() Metrics {
 
 // pooled sums scorers: the metrics of the union of their events. Recent
 // metrics pool each key's recent window; the fading estimate is
-// ΣS_α/ΣB_α over keys. Adding scorers in a fixed order (keys sorted) makes
-// the result independent of the order events arrived in across keys.
+// ΣS_α/ΣB_α over keys. A key's own metrics are a pool of one.
 type pooled struct {
 	alpha                    float64
 	scored, unscored         int64
@@ -230,6 +233,71 @@ func (p *pooled) add(s *Scorer) {
 	p.fadWeight += s.fadWeight
 	p.intervals += s.intervals
 	p.covered += s.covered
+}
+
+// pool is a learner's scorers over all keys, kept as running totals: the
+// engine takes a key's scorer out before it scores an event and puts it back
+// after, so a report reads the totals instead of visiting every key. Its
+// float sums are exact (window.Exact) and rounded once when read, so they
+// equal the keys' sums in any order: the totals do not depend on how the
+// partitions of a stream interleave, nor on the order keys were added.
+type pool struct {
+	alpha              float64
+	scored, unscored   int64
+	recN               int64
+	intervals, covered int64
+	sums               [poolSums]window.Exact
+}
+
+const poolSums = 9
+
+// floats lists the scorer's float sums in pool order.
+func (s *Scorer) floats() [poolSums]float64 {
+	return [poolSums]float64{s.sumAbs, s.sumSq, s.sumErr, s.recAbs.Value(), s.recSq.Value(), s.recErr.Value(), s.fadAbs, s.fadSq, s.fadWeight}
+}
+
+// add puts s into the pool.
+func (p *pool) add(s *Scorer) {
+	p.alpha = s.alpha
+	p.scored += s.Scored
+	p.unscored += s.Unscored
+	p.recN += int64(s.idx.Len())
+	p.intervals += s.intervals
+	p.covered += s.covered
+	for i, v := range s.floats() {
+		p.sums[i].Add(v)
+	}
+}
+
+// remove takes s, as it is now, out of the pool.
+func (p *pool) remove(s *Scorer) {
+	p.scored -= s.Scored
+	p.unscored -= s.Unscored
+	p.recN -= int64(s.idx.Len())
+	p.intervals -= s.intervals
+	p.covered -= s.covered
+	for i, v := range s.floats() {
+		p.sums[i].Sub(v)
+	}
+}
+
+// metrics rounds the totals and reports them as a pool of one would.
+func (p *pool) metrics() Metrics {
+	q := pooled{alpha: p.alpha, scored: p.scored, unscored: p.unscored, recN: int(p.recN), intervals: p.intervals, covered: p.covered}
+	v := func(i int) float64 { return p.sums[i].Value() }
+	q.sumAbs, q.sumSq, q.sumErr = v(0), v(1), v(2)
+	q.recAbs, q.recSq, q.recErr = v(3), v(4), v(5)
+	q.fadAbs, q.fadSq, q.fadWeight = v(6), v(7), v(8)
+	return q.metrics()
+}
+
+// recent returns the pooled recent MAE and RMSE (nil before any), reading
+// only the two sums they need.
+func (p *pool) recent() (n int64, mae, rmse *float64) {
+	if p.recN == 0 {
+		return 0, nil, nil
+	}
+	return p.recN, ptr(p.sums[3].Value() / float64(p.recN)), ptr(math.Sqrt(math.Max(p.sums[4].Value(), 0) / float64(p.recN)))
 }
 
 func (p *pooled) metrics() Metrics {
@@ -278,7 +346,7 @@ func (s *Scorer) decode(r *decoder, version uint32) {
 	s.Scored, s.Unscored = r.i64(), r.i64()
 	s.sumAbs, s.sumSq, s.sumErr = r.f64(), r.f64(), r.f64()
 	n := r.count(s.recMax, 8)
-	size := max(n, min(8, s.recMax), 1)
+	size := max(n, min(scorerInitial, s.recMax), 1)
 	s.rec = make([]float64, size)
 	for i := 0; i < n; i++ {
 		s.rec[i] = r.f64()

@@ -1,7 +1,9 @@
 package learner
 
 import (
+	"fmt"
 	"math"
+	"math/big"
 	"math/rand/v2"
 	"testing"
 )
@@ -139,5 +141,78 @@ func TestIntervalCoverage(t *testing.T) {
 	// times that is allowed (our own bound).
 	if m.Intervals != 200_000 || math.Abs(*m.Coverage-0.95) > 0.005 {
 		t.Errorf("coverage %.4f over %d intervals, want 0.95 ± 0.005", *m.Coverage, m.Intervals)
+	}
+}
+
+// TestRunningTotalsAreExactKeySums: a learner's overall figures come from
+// totals kept up to date event by event, never from a visit of the keys.
+// They must equal what a visit would give if it summed exactly: each pooled
+// sum is Σ over keys of the key's own sum, computed here with math/big (the
+// standard library's arbitrary precision, independent of window.Exact) and
+// rounded once; the counts and drift states likewise by a plain visit.
+func TestRunningTotalsAreExactKeySums(t *testing.T) {
+	e := mustEngine(t, Config{Score: ScoreConfig{Recent: 20}}, "knn:k=3,window=6h", "rls:forget=0.98", "mean:window=30")
+	rng := rand.New(rand.NewPCG(5, 6))
+	tm := int64(1_700_000_000e9)
+	for i := 0; i < 20_000; i++ {
+		tm += int64(rng.IntN(900)+1) * 1e9
+		a := rng.NormFloat64()
+		key := fmt.Sprintf("k%03d", rng.IntN(300))
+		y := 2*a + math.Pow(10, float64(rng.IntN(8)-3))*rng.NormFloat64() // errors over many magnitudes
+		late := tm - int64(rng.IntN(5))*int64(4*3600e9)                   // some older than the 6 h window
+		e.Apply(Position{int32(i % 4), int64(i)}, &Event{Key: key, Time: late, HasTime: true, Target: y, Features: []Feature{{Name: "a", Num: a}}})
+	}
+	r := e.Report(false)
+	for i, lr := range r.Learners {
+		var sums [poolSums]*big.Float
+		for j := range sums {
+			sums[j] = new(big.Float).SetPrec(2300)
+		}
+		var scored, recN int64
+		var late int64
+		state := Stable
+		for _, ks := range e.keys {
+			for j, v := range ks.slots[i].score.floats() {
+				sums[j].Add(sums[j], new(big.Float).SetFloat64(v))
+			}
+			scored += ks.slots[i].score.Scored
+			recN += int64(ks.slots[i].score.idx.Len())
+			state = max(state, ks.slots[i].drift.State())
+			if l, ok := ks.slots[i].learner.(lateCounter); ok {
+				late += l.Late()
+			}
+		}
+		f := func(j int) float64 { v, _ := sums[j].Float64(); return v }
+		n := float64(scored)
+		want := map[string][2]float64{
+			"mae":         {*lr.MAE, f(0) / n},
+			"rmse":        {*lr.RMSE, math.Sqrt(f(1) / n)},
+			"bias":        {*lr.Bias, f(2) / n},
+			"recent mae":  {*lr.Recent.MAE, f(3) / float64(recN)},
+			"recent rmse": {*lr.Recent.RMSE, math.Sqrt(f(4) / float64(recN))},
+			"recent bias": {*lr.Recent.Bias, f(5) / float64(recN)},
+			"fading mae":  {*lr.Fading.MAE, f(6) / f(8)},
+			"fading rmse": {*lr.Fading.RMSE, math.Sqrt(f(7) / f(8))},
+		}
+		for name, gw := range want {
+			if gw[0] != gw[1] {
+				t.Errorf("%s %s: running total gives %v, the exact sum over keys %v", lr.Name, name, gw[0], gw[1])
+			}
+		}
+		if lr.Scored != scored || int64(lr.Recent.Events) != recN || lr.Drift.State != state.String() || lr.Late != late {
+			t.Errorf("%s: scored %d recent %d state %s late %d; a visit of the keys gives %d %d %s %d",
+				lr.Name, lr.Scored, lr.Recent.Events, lr.Drift.State, lr.Late, scored, recN, state, late)
+		}
+		if i == 0 && late == 0 {
+			t.Error("the stream was meant to send late events to the 6 h window")
+		}
+	}
+	// A decoded engine adds its keys up afresh; its report is the same.
+	c := mustEngine(t, Config{Score: ScoreConfig{Recent: 20}}, "knn:k=3,window=6h", "rls:forget=0.98", "mean:window=30")
+	if err := c.Decode(e.Encode(nil)); err != nil {
+		t.Fatal(err)
+	}
+	if a, b := mustJSON(t, r), mustJSON(t, c.Report(false)); a != b {
+		t.Errorf("running totals and a fresh count differ:\n%s\n%s", a, b)
 	}
 }

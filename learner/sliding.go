@@ -29,7 +29,6 @@ type SlidingRLS struct {
 	w       rows // rows of regressors u, not raw features
 	qr      sqrtInfo
 	theta   []float64
-	u       []float64
 	trained int64
 	late    int64 // events older than the time window on arrival, not stored
 	evicted int
@@ -40,12 +39,14 @@ type SlidingRLS struct {
 
 var _ Learner = (*SlidingRLS)(nil)
 
-func newSliding(cfg SlidingConfig, d int) *SlidingRLS {
+func newSliding(cfg SlidingConfig, d int) *SlidingRLS { return newSlidingShared(cfg, d, new(*scratch)) }
+
+// newSlidingShared is newSliding with working space shared through *sp (made when nil).
+func newSlidingShared(cfg SlidingConfig, d int, sp **scratch) *SlidingRLS {
 	ex := expansion{d: d, intercept: !cfg.NoIntercept, degree: cfg.Degree}
 	p := ex.p()
-	m := &SlidingRLS{cfg: cfg, ex: ex, w: newRows(p, cfg.Window, cfg.Max), qr: newSqrtInfo(p),
-		theta: make([]float64, p), u: make([]float64, p), rankDef: p}
-	return m
+	qr, theta := newSqrtInfo(p, useScratch(sp, p), p)
+	return &SlidingRLS{cfg: cfg, ex: ex, w: newRows(p, cfg.Window, cfg.Max), qr: qr, theta: theta, rankDef: p}
 }
 
 // Advance implements Learner.
@@ -73,12 +74,12 @@ func (m *SlidingRLS) Refactorisations() int64 { return m.refacts }
 
 // Predict implements Learner.
 func (m *SlidingRLS) Predict(x []float64) (float64, bool) {
-	m.ex.apply(m.u, x)
+	m.ex.apply(m.qr.s.u, x)
 	p := len(m.theta)
 	if m.trained < int64(p) || m.w.len() < p {
 		return 0, false
 	}
-	return dot(m.u, m.theta), true
+	return dot(m.qr.s.u, m.theta), true
 }
 
 // predictShared implements Learner: the same with u of its own.
@@ -94,7 +95,7 @@ func (m *SlidingRLS) predictShared(x []float64) (float64, bool) {
 
 // Learn implements Learner.
 func (m *SlidingRLS) Learn(x []float64, y float64, t int64) {
-	m.ex.apply(m.u, x)
+	m.ex.apply(m.qr.s.u, x)
 	m.w.advance(t)
 	for s, ok := m.w.popExpired(); ok; s, ok = m.w.popExpired() {
 		m.drop(s)
@@ -107,9 +108,9 @@ func (m *SlidingRLS) Learn(x []float64, y float64, t int64) {
 	if s, ok := m.w.makeRoom(); ok {
 		m.drop(s)
 	}
-	m.w.push(m.u, y, t)
+	m.w.push(m.qr.s.u, y, t)
 	if !m.stale {
-		m.qr.add(m.u, y)
+		m.qr.add(m.qr.s.u, y)
 	}
 	m.trained++
 	m.refresh()

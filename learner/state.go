@@ -100,10 +100,11 @@ func (e *Engine) Sections() []Section {
 		w.int(j - i)
 		for _, ks := range keys[i:j] {
 			w.str(ks.key)
-			for n, l := range ks.learners {
+			for n := range ks.slots {
+				l := ks.slots[n].learner
 				l.encode(w)
-				ks.scores[n].encode(w)
-				ks.drift[n].encode(w)
+				ks.slots[n].score.encode(w)
+				ks.slots[n].drift.encode(w)
 			}
 		}
 		out = append(out, Section{Partition: p.Partition, Bytes: w.b})
@@ -272,12 +273,13 @@ func (e *Engine) decodePartition(s Section) error {
 		}
 		prev = key
 		ks := e.newKey(key, part)
-		for j, l := range ks.learners {
+		for j := range ks.slots {
+			l := ks.slots[j].learner
 			if err := l.decode(r); err != nil {
 				break
 			}
-			ks.scores[j].decode(r, e.stateVer)
-			ks.drift[j].decode(r)
+			ks.slots[j].score.decode(r, e.stateVer)
+			ks.slots[j].drift.decode(r)
 		}
 		e.addKey(ks)
 	}

@@ -1,0 +1,167 @@
+package main
+
+import (
+	"bufio"
+	"context"
+	"fmt"
+	"math/rand/v2"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"syscall"
+	"time"
+
+	"tidemark/api/intake"
+	"tidemark/api/replay"
+	"tidemark/learner"
+)
+
+// Issue 13's scale case: a replay of n events spread over k keys with
+// rls (d = 8) and mean:window=100, against the same events all on one key.
+// Each run is a child process of this one, so that its peak memory is its
+// own (getrusage's maximum resident set); the two are run in turn, twice.
+
+var keysSpecs = []string{"rls:forget=0.99", "mean:window=100"}
+
+// writeKeysHistory writes n events over k keys with eight numeric features,
+// one event a second: each run of k events visits every key once, in an
+// order shuffled afresh for each run (so that memory is not walked in the
+// order it was allocated).
+func writeKeysHistory(path string, n, k int) error {
+	f, err := os.Create(path)
+	if err != nil {
+		return err
+	}
+	w := bufio.NewWriterSize(f, 1<<20)
+	rng := rand.New(rand.NewPCG(13, uint64(k)))
+	t0 := time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC)
+	var b []byte
+	var perm []int
+	for i := 0; i < n; i++ {
+		if i%k == 0 {
+			perm = rng.Perm(k)
+		}
+		key := uint64(perm[i%k])
+		b = append(b[:0], `{"time":"`...)
+		b = t0.Add(time.Duration(i)*time.Second).AppendFormat(b, time.RFC3339)
+		b = append(b, `","key":"meter-`...)
+		b = strconv.AppendUint(b, key, 10)
+		b = append(b, `","features":{`...)
+		y := 0.0
+		for j := 0; j < 8; j++ {
+			v := rng.NormFloat64()
+			y += float64(j+1) * v
+			if j > 0 {
+				b = append(b, ',')
+			}
+			b = append(b, `"x`...)
+			b = strconv.AppendInt(b, int64(j), 10)
+			b = append(b, `":`...)
+			b = strconv.AppendFloat(b, v, 'g', 6, 64)
+		}
+		b = append(b, `},"target":`...)
+		b = strconv.AppendFloat(b, y+rng.NormFloat64(), 'g', 6, 64)
+		b = append(b, "}\n"...)
+		w.Write(b)
+	}
+	if err := w.Flush(); err != nil {
+		return err
+	}
+	return f.Close()
+}
+
+// replayChild is the child's side: replay path and print events/s.
+func replayChild(path string) {
+	var specs []learner.Spec
+	for _, s := range keysSpecs {
+		sp, _ := learner.ParseSpec(s)
+		specs = append(specs, sp)
+	}
+	eng, err := learner.NewEngine(learner.Config{Learners: specs, MaxKeys: 2_000_000})
+	if err != nil {
+		fmt.Fprintln(os.Stderr, err)
+		os.Exit(1)
+	}
+	h, err := intake.OpenHistory(path)
+	if err != nil {
+		fmt.Fprintln(os.Stderr, err)
+		os.Exit(1)
+	}
+	t0 := time.Now()
+	if err := replay.Replay(context.Background(), h, eng, replay.ReplayConfig{}); err != nil {
+		fmt.Fprintln(os.Stderr, err)
+		os.Exit(1)
+	}
+	fmt.Println(float64(eng.Applied())/time.Since(t0).Seconds(), eng.Report(false).Keys)
+}
+
+type keysRun struct {
+	rate  float64 // events/s
+	keys  int
+	rssMB float64
+}
+
+func runKeysChild(path string) (keysRun, error) {
+	exe, err := os.Executable()
+	if err != nil {
+		return keysRun{}, err
+	}
+	cmd := exec.Command(exe, "-replay-child", path)
+	cmd.Stderr = os.Stderr
+	out, err := cmd.Output()
+	if err != nil {
+		return keysRun{}, err
+	}
+	var r keysRun
+	if _, err := fmt.Sscan(strings.TrimSpace(string(out)), &r.rate, &r.keys); err != nil {
+		return keysRun{}, fmt.Errorf("child said %q: %v", out, err)
+	}
+	if ru, ok := cmd.ProcessState.SysUsage().(*syscall.Rusage); ok {
+		r.rssMB = float64(ru.Maxrss) / 1024 // kilobytes on Linux
+	}
+	return r, nil
+}
+
+// keysScale runs the case and returns its lines for the report.
+func keysScale() string {
+	n, k := 2_000_000, 1_000_000
+	if quick {
+		n, k = 400_000, 200_000
+	}
+	dir, err := os.MkdirTemp("", "tidemark-keys")
+	if err != nil {
+		return "keys: " + err.Error()
+	}
+	defer os.RemoveAll(dir)
+	one, many := filepath.Join(dir, "one.ndjson"), filepath.Join(dir, "many.ndjson")
+	if err := writeKeysHistory(one, n, 1); err != nil {
+		return "keys: " + err.Error()
+	}
+	if err := writeKeysHistory(many, n, k); err != nil {
+		return "keys: " + err.Error()
+	}
+	var best [2]keysRun
+	for rep := 0; rep < 2; rep++ {
+		for i, p := range []string{one, many} {
+			r, err := runKeysChild(p)
+			if err != nil {
+				return "keys: " + err.Error()
+			}
+			if r.rate > best[i].rate {
+				best[i] = r
+			}
+		}
+	}
+	ratio := best[1].rate / best[0].rate
+	verdict := "ok"
+	if ratio < 0.5 || best[1].rssMB > 2048 {
+		verdict = "MISSED"
+	}
+	return fmt.Sprintf("keys: replay of %d events, %s, child processes, better of two runs each\n"+
+		"  1 key:        %8.0f events/s, peak RSS %6.0f MiB\n"+
+		"  %7d keys: %8.0f events/s, peak RSS %6.0f MiB\n"+
+		"  ratio %.2f of the 1-key rate (target ≥ 0.5), peak RSS target < 2048 MiB: %s\n",
+		n, strings.Join(keysSpecs, " + "), best[0].rate, best[0].rssMB, best[1].keys, best[1].rate, best[1].rssMB, ratio, verdict)
+}
