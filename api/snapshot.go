@@ -25,11 +25,12 @@ type snapshot struct {
 	at          time.Time
 }
 
-// stateView is a copy of the engine, its report and the checkpoint it
-// descends from.
+// stateView is a published copy of the engine (learner.Engine.Publish: it
+// shares the keys that have not changed since), its report without keys and
+// the checkpoint it descends from.
 type stateView struct {
-	eng       *learner.Engine // predicts from any number of requests at once (learner.Engine.Predict)
-	report    learner.Report
+	eng       *learner.Engine // predicts and reports for any number of requests at once
+	report    learner.Report  // per-key figures are computed on request, from eng
 	ck        checkpoint.Info
 	ckVersion uint64
 	applied   int64
@@ -37,7 +38,8 @@ type stateView struct {
 }
 
 func newStateView(eng *learner.Engine, ck checkpoint.Info) *stateView {
-	return &stateView{eng: eng.Clone(), report: eng.Report(true), ck: ck, ckVersion: ck.Version, applied: eng.Applied(),
+	pub := eng.Publish()
+	return &stateView{eng: pub, report: pub.Report(false), ck: ck, ckVersion: ck.Version, applied: eng.Applied(),
 		positions: positionsKey(eng)}
 }
 

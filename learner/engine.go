@@ -5,6 +5,8 @@ import (
 	"encoding/hex"
 	"errors"
 	"fmt"
+	"hash/maphash"
+	"maps"
 	"math"
 	"slices"
 	"strings"
@@ -85,8 +87,19 @@ type Engine struct {
 	keys     map[string]*keyState
 	byName   []*keyState // the same; byName[:sorted] sorted by key, later ones in arrival order (see ordered)
 	sorted   int
-	totals   []total
-	hwm      map[int32]int64
+
+	// Publishing (see Publish): once an engine has published, its keys are
+	// also in a persistent trie, and a key published in an earlier epoch is
+	// copied before it changes. A published engine is frozen: it has the
+	// trie and no map.
+	seed       maphash.Seed
+	root       *trieNode
+	epoch      uint64
+	publishing bool
+	frozen     bool
+	nkeys      int // keys of a frozen engine
+	totals     []total
+	hwm        map[int32]int64
 
 	applied, rejected, duplicates, ignored int64
 	alarms, skipped                        int64
@@ -144,6 +157,9 @@ type keyState struct {
 	key       string
 	partition int32
 	slots     []slot // one per learner, in configuration order
+	hash      uint64 // of key, with the engine's seed (the trie's path)
+	epoch     uint64 // the publish epoch it was made in: changed in place only in that one
+	idx       int    // its place in Engine.byName
 }
 
 // slot is one learner of a key with its scorer and drift detector, together
@@ -164,7 +180,7 @@ func NewEngine(cfg Config) (*Engine, error) {
 	}
 	cfg.Score = cfg.Score.withDefaults()
 	cfg.Drift = cfg.Drift.withDefaults()
-	e := &Engine{cfg: cfg, baseline: -1, keys: map[string]*keyState{}, hwm: map[int32]int64{}}
+	e := &Engine{cfg: cfg, baseline: -1, keys: map[string]*keyState{}, hwm: map[int32]int64{}, seed: maphash.MakeSeed()}
 	e.drift = &e.cfg.Drift
 	e.schema, _, _ = NewSchema(cfg.Features)
 	for i := range cfg.Learners {
@@ -252,6 +268,9 @@ func (e *Engine) Skip(pos Position) {
 //
 // Apply allocates nothing for an event of a known key once the schema is set.
 func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
+	if e.frozen {
+		panic("learner: Apply on a published engine")
+	}
 	if e.Covers(pos) {
 		e.duplicates++
 		return false, nil
@@ -282,6 +301,8 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 		e.schema = schema
 		ks = e.newKey(ev.Key, pos.Partition)
 		e.addKey(ks)
+	} else if ks.epoch != e.epoch {
+		ks = e.own(ks)
 	}
 	e.schema = schema
 	e.ignored += int64(ignored)
@@ -336,7 +357,7 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 
 func (e *Engine) newKey(key string, partition int32) *keyState {
 	n := len(e.cfg.Learners)
-	ks := &keyState{key: key, partition: partition, slots: make([]slot, n)}
+	ks := &keyState{key: key, partition: partition, slots: make([]slot, n), hash: maphash.String(e.seed, key), epoch: e.epoch}
 	d := e.schema.Dim()
 	for i := range e.cfg.Learners {
 		ks.slots[i].learner = newShared(&e.cfg.Learners[i], d, &e.scratch[i])
@@ -366,7 +387,7 @@ func (e *Engine) Predict(key, learner string, ev *Event) (Prediction, error) {
 	if i < 0 {
 		return Prediction{}, fmt.Errorf("%w: %q (configured: %s)", ErrUnknownLearner, learner, e.cfg.Names())
 	}
-	ks := e.keys[key]
+	ks := e.lookup(key)
 	if ks == nil || e.schema == nil {
 		return Prediction{}, fmt.Errorf("%w: key %q has no events yet", ErrUnknownKey, key)
 	}
@@ -434,20 +455,47 @@ func (e *Engine) Clone() *Engine {
 // reports and state bytes need is produced when asked for (ordered).
 func (e *Engine) addKey(ks *keyState) {
 	e.keys[ks.key] = ks
+	ks.idx = len(e.byName)
 	e.byName = append(e.byName, ks)
+	if e.publishing {
+		e.root = e.root.with(ks, 0, e.epoch)
+	}
 	for i := range e.totals {
 		e.totals[i].count(ks, i, 1)
 	}
 }
 
+// lookup returns the state of key, or nil.
+func (e *Engine) lookup(key string) *keyState {
+	if e.frozen {
+		return e.root.get(key, maphash.String(e.seed, key))
+	}
+	return e.keys[key]
+}
+
+// numKeys returns the number of keys.
+func (e *Engine) numKeys() int {
+	if e.frozen {
+		return e.nkeys
+	}
+	return len(e.keys)
+}
+
 // ordered returns the key states sorted by key. Keys added since the last
 // call are sorted among themselves and merged in: O(t log t + k) for t new
-// keys among k, nothing when none is new.
+// keys among k, nothing when none is new. A published engine sorts a list
+// of its own on every call (it is read by many goroutines and changes nothing).
 func (e *Engine) ordered() []*keyState {
+	byKey := func(a, b *keyState) int { return strings.Compare(a.key, b.key) }
+	if e.frozen {
+		out := make([]*keyState, 0, e.nkeys)
+		e.root.each(func(ks *keyState) { out = append(out, ks) })
+		slices.SortFunc(out, byKey)
+		return out
+	}
 	if e.sorted == len(e.byName) {
 		return e.byName
 	}
-	byKey := func(a, b *keyState) int { return strings.Compare(a.key, b.key) }
 	head, tail := e.byName[:e.sorted], slices.Clone(e.byName[e.sorted:])
 	slices.SortFunc(tail, byKey)
 	merged := make([]*keyState, 0, len(e.byName))
@@ -462,8 +510,60 @@ func (e *Engine) ordered() []*keyState {
 		}
 	}
 	merged = append(append(merged, head[i:]...), tail[j:]...)
+	for i, ks := range merged {
+		ks.idx = i
+	}
 	e.byName, e.sorted = merged, len(merged)
 	return merged
+}
+
+// Publish returns a read-only copy of the engine as it is now, for readers
+// on other goroutines (predictions, reports, validation): any number of them
+// may use it at once while the engine goes on applying events. Its cost
+// follows what changed since the last publish, not the size of the state:
+// the copy shares every key's state with the engine, and the engine copies a
+// key (copy-on-write) the first time it changes after a publish. The first
+// publish lays the keys out in a persistent trie, once, in O(keys).
+//
+// Apply on the copy panics; so does Publish's copy being published again.
+func (e *Engine) Publish() *Engine {
+	if e.frozen {
+		panic("learner: Publish on a published engine")
+	}
+	if !e.publishing {
+		e.publishing = true
+		for _, ks := range e.byName {
+			ks.epoch = e.epoch
+			e.root = e.root.with(ks, 0, e.epoch)
+		}
+	}
+	v := &Engine{cfg: e.cfg, schema: e.schema, needTime: e.needTime, baseline: e.baseline,
+		applied: e.applied, rejected: e.rejected, duplicates: e.duplicates, ignored: e.ignored, alarms: e.alarms, skipped: e.skipped,
+		totals: slices.Clone(e.totals), hwm: maps.Clone(e.hwm), lastPred: slices.Clone(e.lastPred), lastOK: slices.Clone(e.lastOK),
+		scratch: make([]*scratch, len(e.scratch)), drift: e.drift,
+		seed: e.seed, root: e.root, frozen: true, nkeys: len(e.keys)}
+	for i := range v.totals {
+		if a := v.totals[i].lastAlarm; a != nil {
+			c := *a
+			v.totals[i].lastAlarm = &c
+		}
+	}
+	e.epoch++ // what v holds is now frozen
+	return v
+}
+
+// own returns a copy of ks that the engine may change: ks was published in
+// an earlier epoch and is read by whoever holds that publish.
+func (e *Engine) own(ks *keyState) *keyState {
+	c := &keyState{key: ks.key, partition: ks.partition, slots: make([]slot, len(ks.slots)), hash: ks.hash, epoch: e.epoch, idx: ks.idx}
+	for i := range ks.slots {
+		s := &ks.slots[i]
+		c.slots[i] = slot{learner: s.learner.clone(), score: s.score.clone(), drift: s.drift}
+	}
+	e.keys[c.key] = c
+	e.byName[c.idx] = c
+	e.root = e.root.with(c, 0, e.epoch)
+	return c
 }
 
 // sortedKeys returns the key states ordered by (partition, key), for the

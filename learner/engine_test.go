@@ -10,6 +10,7 @@ import (
 	"runtime"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"testing"
 )
 
@@ -417,5 +418,120 @@ func TestPredictConcurrent(t *testing.T) {
 			}
 		}()
 	}
+	wg.Wait()
+}
+
+// manyKeys is a stream over n keys (key i mod n), two features.
+func manyKeys(events, n int, seed uint64) []*Event {
+	rng := rand.New(rand.NewPCG(seed, 3))
+	out := make([]*Event, events)
+	tm := int64(1_700_000_000e9)
+	for i := range out {
+		tm += 60e9
+		a, b := rng.NormFloat64(), rng.NormFloat64()
+		out[i] = &Event{Key: fmt.Sprintf("room-%04d", rng.IntN(n)), Time: tm, HasTime: true, Target: 2*a - b + 0.1*rng.NormFloat64(),
+			Features: []Feature{{Name: "a", Num: a}, {Name: "b", Num: b}}}
+	}
+	return out
+}
+
+// TestPublishedEngineDoesNotChange: a published copy shows the engine as it
+// was when published, however many events the engine applies afterwards
+// (its keys are copied before they change), and publishing changes nothing
+// in what the engine computes: the same events with and without publishes
+// in between give the same state bytes and reports.
+func TestPublishedEngineDoesNotChange(t *testing.T) {
+	specs := []string{"knn:k=3,window=50", "rls:forget=0.99", "sliding-rls:window=30", "mean:window=20"}
+	events := manyKeys(6000, 200, 8)
+	a := mustEngine(t, Config{}, specs...)
+	b := mustEngine(t, Config{}, specs...)
+	type seen struct {
+		view   *Engine
+		state  []byte
+		report string
+		pred   map[string]float64
+	}
+	var views []seen
+	probe := events[:20]
+	for i, ev := range events {
+		pos := Position{Partition: int32(i % 3), Offset: int64(i)}
+		a.Apply(pos, ev)
+		b.Apply(pos, ev)
+		if i%97 == 0 || i == 3000 {
+			v := a.Publish()
+			s := seen{view: v, state: a.Encode(nil), report: mustJSON(t, a.Report(true)), pred: map[string]float64{}}
+			for j, r := range probe {
+				if p, err := a.Predict(r.Key, "rls:forget=0.99", r); err == nil {
+					s.pred[fmt.Sprint(j)] = p.Value
+				}
+			}
+			views = append(views, s)
+		}
+	}
+	if !bytes.Equal(a.Encode(nil), b.Encode(nil)) || mustJSON(t, a.Report(true)) != mustJSON(t, b.Report(true)) {
+		t.Fatal("publishing changed what the engine computes")
+	}
+	for n, s := range views {
+		if !bytes.Equal(s.view.Encode(nil), s.state) {
+			t.Fatalf("publish %d: its state bytes changed after it was published", n)
+		}
+		if got := mustJSON(t, s.view.Report(true)); got != s.report {
+			t.Fatalf("publish %d: its report changed after it was published", n)
+		}
+		for j, r := range probe {
+			p, err := s.view.Predict(r.Key, "rls:forget=0.99", r)
+			if want, ok := s.pred[fmt.Sprint(j)]; ok && (err != nil || p.Value != want) {
+				t.Fatalf("publish %d: row %d predicts %v (%v), %v when published", n, j, p.Value, err, want)
+			}
+		}
+	}
+	// A published copy refuses to learn.
+	defer func() {
+		if recover() == nil {
+			t.Error("Apply on a published engine did not panic")
+		}
+	}()
+	views[0].view.Apply(Position{Offset: 1 << 40}, events[0])
+}
+
+// TestPublishWhileApplying: readers predict and report from published
+// copies while the owner applies events and publishes again (run under -race
+// in CI: the copies share keys with the engine until a key changes).
+func TestPublishWhileApplying(t *testing.T) {
+	e := mustEngine(t, Config{}, "knn:k=3,window=50", "rls:forget=0.99", "mean:window=20")
+	events := manyKeys(8000, 50, 9)
+	for i, ev := range events[:500] {
+		e.Apply(Position{Offset: int64(i)}, ev)
+	}
+	var cur atomic.Pointer[Engine]
+	cur.Store(e.Publish())
+	done := make(chan struct{})
+	var wg sync.WaitGroup
+	for g := 0; g < 4; g++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for i := 0; ; i++ {
+				select {
+				case <-done:
+					return
+				default:
+				}
+				v := cur.Load()
+				r := events[i%len(events)]
+				v.Predict(r.Key, "knn:k=3,window=50", r)
+				if i%50 == 0 {
+					v.Report(i%100 == 0)
+				}
+			}
+		}()
+	}
+	for i, ev := range events[500:] {
+		e.Apply(Position{Offset: int64(500 + i)}, ev)
+		if i%25 == 0 {
+			cur.Store(e.Publish())
+		}
+	}
+	close(done)
 	wg.Wait()
 }

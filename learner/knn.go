@@ -2,6 +2,7 @@ package learner
 
 import (
 	"math"
+	"slices"
 
 	"tidemark/window"
 )
@@ -54,6 +55,16 @@ type neighbor struct {
 }
 
 var _ Learner = (*KNN)(nil)
+
+// clone implements Learner.
+func (m *KNN) clone() Learner {
+	c := *m
+	c.w = m.w.clone()
+	c.moms = slices.Clone(m.moms)
+	c.inv = make([]float64, len(m.inv))
+	c.best = make([]neighbor, len(m.best), cap(m.best))
+	return &c
+}
 
 func newKNN(cfg KNNConfig, d int) *KNN {
 	return &KNN{

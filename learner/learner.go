@@ -27,6 +27,10 @@ type Learner interface {
 	// goroutines may call it at once on a learner nobody is changing (a
 	// published copy). It allocates; the engine's hot path uses Predict.
 	predictShared(x []float64) (y float64, ok bool)
+	// clone returns an independent copy (scratch space, if any, shared
+	// with the original: the engine copies a key it published before
+	// changing it, on the same goroutine).
+	clone() Learner
 
 	encode(w *encoder)
 	decode(r *decoder) error

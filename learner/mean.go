@@ -22,6 +22,13 @@ type Mean struct {
 
 var _ Learner = (*Mean)(nil)
 
+// clone implements Learner.
+func (m *Mean) clone() Learner {
+	c := *m
+	c.w = m.w.clone()
+	return &c
+}
+
 func newMean(cfg MeanConfig) *Mean {
 	m := &Mean{cfg: cfg}
 	if !cfg.Window.All {

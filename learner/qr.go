@@ -48,6 +48,15 @@ func newSqrtInfo(p int, s *scratch, extra int) (sqrtInfo, []float64) {
 	return sqrtInfo{p: p, r: b[:n:n], z: b[n : n+p : n+p], s: s}, b[n+p:]
 }
 
+// clone returns a copy of q sharing its scratch space, and extra floats
+// from the same allocation, as newSqrtInfo.
+func (q *sqrtInfo) clone(extra int) (sqrtInfo, []float64) {
+	c, more := newSqrtInfo(q.p, q.s, extra)
+	copy(c.r, q.r)
+	copy(c.z, q.z)
+	return c, more
+}
+
 // base returns the offset of row i in r less i, so that Rᵢⱼ is r[base(i)+j]:
 // row i holds p−i entries from Rᵢᵢ, at i·p − i(i−1)/2.
 func (q *sqrtInfo) base(i int) int { return i * (2*q.p - i - 1) / 2 }

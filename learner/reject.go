@@ -82,8 +82,8 @@ func (v *Validator) Check(ev *Event) error {
 	if v.e.needTime != "" && !ev.HasTime {
 		return reject(RejectTime, "time is missing and %s needs it", v.e.needTime)
 	}
-	if _, ok := v.e.keys[ev.Key]; !ok && !v.newKeys[ev.Key] {
-		if n := len(v.e.keys) + len(v.newKeys); n >= v.e.cfg.MaxKeys {
+	if v.e.lookup(ev.Key) == nil && !v.newKeys[ev.Key] {
+		if n := v.e.numKeys() + len(v.newKeys); n >= v.e.cfg.MaxKeys {
 			return reject(RejectKeyCap, "key %q would be key number %d, past the cap of %d", truncate(ev.Key), n+1, v.e.cfg.MaxKeys)
 		}
 		v.newKeys[ev.Key] = true

@@ -62,7 +62,7 @@ type AlarmReport struct {
 // the number of keys; withKeys adds per-key metrics (a visit of every key).
 func (e *Engine) Report(withKeys bool) Report {
 	r := Report{Events: e.applied, Rejected: e.rejected, Duplicates: e.duplicates, Skipped: e.skipped, IgnoredFeatures: e.ignored,
-		Keys: len(e.keys), RecentWindow: e.cfg.Score.Recent, Positions: e.Positions()}
+		Keys: e.numKeys(), RecentWindow: e.cfg.Score.Recent, Positions: e.Positions()}
 	var keys []*keyState
 	if withKeys {
 		// Keys by name alone, not by partition.

@@ -62,6 +62,14 @@ func newRLSShared(cfg RLSConfig, d int, sp **scratch) *RLS {
 	return m
 }
 
+// clone implements Learner.
+func (m *RLS) clone() Learner {
+	c := *m
+	c.qr, c.theta = m.qr.clone(len(m.theta))
+	copy(c.theta, m.theta)
+	return &c
+}
+
 // priorDiag is the diagonal of R(0): A(0) = I/p0, so R(0) = I/√p0.
 func priorDiag(p0 float64) float64 {
 	if math.IsInf(p0, 1) {

@@ -1,6 +1,10 @@
 package learner
 
-import "tidemark/window"
+import (
+	"slices"
+
+	"tidemark/window"
+)
 
 // rows is the window of labelled rows a windowed learner keeps: d features,
 // a target and an event time per row, rows stored contiguously in slot order
@@ -50,6 +54,13 @@ func (r *rows) alloc(size int) {
 }
 
 func (r *rows) len() int { return r.idx.Len() }
+
+// clone returns an independent copy.
+func (r *rows) clone() rows {
+	c := *r
+	c.x, c.y, c.t = slices.Clone(r.x), slices.Clone(r.y), slices.Clone(r.t)
+	return c
+}
 
 // row returns the features in slot s.
 func (r *rows) row(s int) []float64 { return r.x[s*r.d : (s+1)*r.d : (s+1)*r.d] }

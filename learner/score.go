@@ -2,6 +2,7 @@ package learner
 
 import (
 	"math"
+	"slices"
 
 	"tidemark/window"
 )
@@ -90,6 +91,13 @@ const scorerInitial = 2
 func newScorer(recent int, alpha float64) Scorer {
 	n := min(recent, scorerInitial)
 	return Scorer{rec: make([]float64, n), idx: window.NewIndex(n), recMax: recent, alpha: alpha}
+}
+
+// clone returns an independent copy.
+func (s *Scorer) clone() Scorer {
+	c := *s
+	c.rec = slices.Clone(s.rec)
+	return c
 }
 
 // pushRecent appends e to the recent window, evicting (and returning) the

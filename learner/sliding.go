@@ -49,6 +49,15 @@ func newSlidingShared(cfg SlidingConfig, d int, sp **scratch) *SlidingRLS {
 	return &SlidingRLS{cfg: cfg, ex: ex, w: newRows(p, cfg.Window, cfg.Max), qr: qr, theta: theta, rankDef: p}
 }
 
+// clone implements Learner.
+func (m *SlidingRLS) clone() Learner {
+	c := *m
+	c.w = m.w.clone()
+	c.qr, c.theta = m.qr.clone(len(m.theta))
+	copy(c.theta, m.theta)
+	return &c
+}
+
 // Advance implements Learner.
 func (m *SlidingRLS) Advance(t int64) {
 	m.w.advance(t)
