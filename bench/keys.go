@@ -8,12 +8,15 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
+	"runtime"
 	"strconv"
 	"strings"
 	"syscall"
 	"time"
 
 	"tidemark/api/intake"
+	"tidemark/api/persist"
+	"tidemark/checkpoint"
 	"tidemark/api/replay"
 	"tidemark/learner"
 )
@@ -72,8 +75,11 @@ func writeKeysHistory(path string, n, k int) error {
 	return f.Close()
 }
 
-// replayChild is the child's side: replay path and print events/s.
-func replayChild(path string) {
+// replayChild is the child's side: replay path and print events/s and the
+// keys; with ckDir, then write the state as a checkpoint there, load it into
+// a fresh engine and write the same number of bytes to a plain file (the
+// floor), and print the three times in seconds and the file's size.
+func replayChild(path, ckDir string) {
 	var specs []learner.Spec
 	for _, s := range keysSpecs {
 		sp, _ := learner.ParseSpec(s)
@@ -94,29 +100,98 @@ func replayChild(path string) {
 		fmt.Fprintln(os.Stderr, err)
 		os.Exit(1)
 	}
-	fmt.Println(float64(eng.Applied())/time.Since(t0).Seconds(), eng.Report(false).Keys)
+	rate := float64(eng.Applied()) / time.Since(t0).Seconds()
+	if ckDir == "" {
+		fmt.Println(rate, eng.Report(false).Keys)
+		return
+	}
+	ckWrite, ckLoad, floor, size, err := checkpointTimes(eng, ckDir)
+	if err != nil {
+		fmt.Fprintln(os.Stderr, err)
+		os.Exit(1)
+	}
+	fmt.Println(rate, eng.Report(false).Keys, ckWrite, ckLoad, floor, size)
+}
+
+func checkpointTimes(eng *learner.Engine, dir string) (write, load, floor float64, size int64, err error) {
+	store, err := checkpoint.OpenStore(checkpoint.StoreConfig{Dir: dir})
+	if err != nil {
+		return
+	}
+	defer store.Close()
+	t0 := time.Now()
+	info, err := persist.Save(store, eng, checkpoint.Manual, 0, nil)
+	if err != nil {
+		return
+	}
+	write = time.Since(t0).Seconds()
+	size = info.Bytes
+	runtime.GC()
+	t0 = time.Now()
+	c, err := store.Load(info.Version)
+	if err != nil {
+		return
+	}
+	fresh, err := learner.NewEngine(eng.Config())
+	if err != nil {
+		return
+	}
+	if err = persist.Adopt(fresh, c, ""); err != nil {
+		return
+	}
+	load = time.Since(t0).Seconds()
+	c = nil
+	runtime.GC()
+	// The floor: the same number of bytes written and synced.
+	buf := make([]byte, 1<<20)
+	t0 = time.Now()
+	f, err := os.Create(filepath.Join(dir, "floor"))
+	if err != nil {
+		return
+	}
+	for left := info.Bytes; left > 0; left -= int64(len(buf)) {
+		if _, err = f.Write(buf[:min(left, int64(len(buf)))]); err != nil {
+			return
+		}
+	}
+	if err = f.Sync(); err != nil {
+		return
+	}
+	f.Close()
+	floor = time.Since(t0).Seconds()
+	return
 }
 
 type keysRun struct {
-	rate  float64 // events/s
-	keys  int
-	rssMB float64
+	rate                   float64 // events/s
+	keys                   int
+	rssMB                  float64
+	ckWrite, ckLoad, floor float64 // seconds
+	ckBytes                int64
 }
 
-func runKeysChild(path string) (keysRun, error) {
+func runKeysChild(path, ckDir string) (keysRun, error) {
 	exe, err := os.Executable()
 	if err != nil {
 		return keysRun{}, err
 	}
-	cmd := exec.Command(exe, "-replay-child", path)
+	args := []string{"-replay-child", path}
+	if ckDir != "" {
+		args = append(args, "-checkpoint-dir", ckDir)
+	}
+	cmd := exec.Command(exe, args...)
 	cmd.Stderr = os.Stderr
 	out, err := cmd.Output()
 	if err != nil {
 		return keysRun{}, err
 	}
 	var r keysRun
-	if _, err := fmt.Sscan(strings.TrimSpace(string(out)), &r.rate, &r.keys); err != nil {
+	f := strings.Fields(string(out))
+	if _, err := fmt.Sscan(strings.Join(f[:min(2, len(f))], " "), &r.rate, &r.keys); err != nil {
 		return keysRun{}, fmt.Errorf("child said %q: %v", out, err)
+	}
+	if len(f) == 6 {
+		fmt.Sscan(strings.Join(f[2:], " "), &r.ckWrite, &r.ckLoad, &r.floor, &r.ckBytes)
 	}
 	if ru, ok := cmd.ProcessState.SysUsage().(*syscall.Rusage); ok {
 		r.rssMB = float64(ru.Maxrss) / 1024 // kilobytes on Linux
@@ -145,7 +220,7 @@ func keysScale() string {
 	var best [2]keysRun
 	for rep := 0; rep < 2; rep++ {
 		for i, p := range []string{one, many} {
-			r, err := runKeysChild(p)
+			r, err := runKeysChild(p, "")
 			if err != nil {
 				return "keys: " + err.Error()
 			}
@@ -159,9 +234,22 @@ func keysScale() string {
 	if ratio < 0.5 || best[1].rssMB > 2048 {
 		verdict = "MISSED"
 	}
+	// The checkpoint of the many-key state, in a run of its own (its peak
+	// memory is not the replay's).
+	ck, err := runKeysChild(many, filepath.Join(dir, "checkpoints"))
+	if err != nil {
+		return "keys: checkpoint: " + err.Error()
+	}
+	ckVerdict := "ok"
+	if ck.ckWrite > 5 || ck.ckLoad > 5 {
+		ckVerdict = "MISSED"
+	}
 	return fmt.Sprintf("keys: replay of %d events, %s, child processes, better of two runs each\n"+
 		"  1 key:        %8.0f events/s, peak RSS %6.0f MiB\n"+
 		"  %7d keys: %8.0f events/s, peak RSS %6.0f MiB\n"+
-		"  ratio %.2f of the 1-key rate (target ≥ 0.5), peak RSS target < 2048 MiB: %s\n",
-		n, strings.Join(keysSpecs, " + "), best[0].rate, best[0].rssMB, best[1].keys, best[1].rate, best[1].rssMB, ratio, verdict)
+		"  ratio %.2f of the 1-key rate (target ≥ 0.5), peak RSS target < 2048 MiB: %s\n"+
+		"  checkpoint of the %d-key state, %.0f MiB file: write %.2f s, load %.2f s (target < 5 s each: %s); "+
+		"writing and syncing the same bytes %.2f s: write/floor %.1f\n",
+		n, strings.Join(keysSpecs, " + "), best[0].rate, best[0].rssMB, best[1].keys, best[1].rate, best[1].rssMB, ratio, verdict,
+		ck.keys, float64(ck.ckBytes)/(1<<20), ck.ckWrite, ck.ckLoad, ckVerdict, ck.floor, ck.ckWrite/ck.floor)
 }

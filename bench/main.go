@@ -65,6 +65,7 @@ func main() {
 	child := flag.String("replay-child", "", "internal: replay this history and print events/s (the keys case's child process)")
 	only := flag.String("only", "", "run only the named extra: keys")
 	writeKeys := flag.String("write-keys-history", "", "write the keys case's history (2 M events, 10⁶ keys) to this file and exit")
+	ckDir := flag.String("checkpoint-dir", "", "with -replay-child: then time a checkpoint of the state written there and loaded back")
 	cpuprofile := flag.String("cpuprofile", "", "with -replay-child: write a CPU profile here")
 	flag.Parse()
 	if *writeKeys != "" {
@@ -82,7 +83,7 @@ func main() {
 				defer pprof.StopCPUProfile()
 			}
 		}
-		replayChild(*child)
+		replayChild(*child, *ckDir)
 		return
 	}
 	if *only == "keys" {

@@ -11,8 +11,26 @@ import (
 	"time"
 )
 
-// FormatVersion is the file format this build writes.
-const FormatVersion = 1
+// FormatVersion is the file format this build writes; it reads 1 and 2.
+//
+// Version 2 puts the section table and the manifest after the sections, so
+// that a state is written as it is encoded, key by key, without a second
+// copy of it in memory:
+//
+//	magic "TMCKPT\r\n", u32 format version
+//	the sections' zstd frames, back to back
+//	section table: per section kind (0 global, 1 partition), u32 partition,
+//	  u64 raw length, u64 stored length, SHA-256 of the raw bytes
+//	manifest (JSON)
+//	u32 section count, u32 manifest length, u64 file length
+//	u32 CRC-32C of everything before it
+//
+// Version 1 has the same parts with the manifest and table first (after a
+// u64 file length and u32 manifest length in the header): it needs every
+// section's size and digest before the first byte of state is written.
+const FormatVersion = 2
+
+const footerLen = 4 + 4 + 8 + trailerLen
 
 const (
 	magic        = "TMCKPT\r\n"
@@ -95,8 +113,9 @@ func stateDigest(secs []Section) string {
 	return hex.EncodeToString(h.Sum(nil))
 }
 
-// encodeFile builds a checkpoint file. compress appends the zstd frame of src
-// to dst.
+// encodeFile builds a checkpoint file of format version 1, which this build
+// reads but no longer writes (tests keep it). compress appends the zstd
+// frame of src to dst.
 func encodeFile(m *Manifest, secs []Section, compress func(src, dst []byte) []byte) ([]byte, error) {
 	if len(secs) == 0 {
 		return nil, fmt.Errorf("checkpoint: no sections to write")
@@ -116,7 +135,7 @@ func encodeFile(m *Manifest, secs []Section, compress func(src, dst []byte) []by
 	}
 	b := make([]byte, 0, headerLen+len(man)+4+entryLen*len(secs))
 	b = append(b, magic...)
-	b = binary.LittleEndian.AppendUint32(b, FormatVersion)
+	b = binary.LittleEndian.AppendUint32(b, 1)
 	b = binary.LittleEndian.AppendUint64(b, 0) // length, patched below
 	b = binary.LittleEndian.AppendUint32(b, uint32(len(man)))
 	b = append(b, man...)
@@ -174,15 +193,19 @@ func parseFile(file string, b []byte, maxRaw int64) (*parsed, error) {
 		}
 		return nil, corrupt(file, len(b), ErrTruncated, "file of %d bytes is shorter than a header", len(b))
 	}
+	switch v := binary.LittleEndian.Uint32(b[8:12]); v {
+	case 1:
+	case 2:
+		return parseFile2(file, b, maxRaw)
+	default:
+		return nil, corrupt(file, 8, ErrUnsupportedVersion, "format version %d, this build reads 1 and 2", v)
+	}
 	if n := binary.LittleEndian.Uint64(b[12:20]); n != uint64(len(b)) {
 		return nil, corrupt(file, len(b), ErrTruncated, "file is %d bytes but declares %d", len(b), n)
 	}
 	body := b[:len(b)-trailerLen]
 	if got, want := crc32.Checksum(body, castagnoli), binary.LittleEndian.Uint32(b[len(b)-trailerLen:]); got != want {
 		return nil, corrupt(file, len(b)-trailerLen, ErrChecksum, "CRC-32C %08x, file says %08x", got, want)
-	}
-	if v := binary.LittleEndian.Uint32(b[8:12]); v != FormatVersion {
-		return nil, corrupt(file, 8, ErrUnsupportedVersion, "format version %d, this build reads %d", v, FormatVersion)
 	}
 	off := 20
 	ml := int(binary.LittleEndian.Uint32(b[off:]))
@@ -235,6 +258,73 @@ func parseFile(file string, b []byte, maxRaw int64) (*parsed, error) {
 	}
 	if d, err := hex.DecodeString(p.manifest.StateSHA256); err != nil || len(d) != sha256.Size {
 		return nil, corrupt(file, 24, nil, "manifest state_sha256 %q is not a SHA-256", p.manifest.StateSHA256)
+	}
+	return p, nil
+}
+
+// parseFile2 is parseFile for format version 2 (see FormatVersion).
+func parseFile2(file string, b []byte, maxRaw int64) (*parsed, error) {
+	const start = 12 // magic and version
+	if len(b) < start+footerLen {
+		return nil, corrupt(file, len(b), ErrTruncated, "file of %d bytes is shorter than a header and footer", len(b))
+	}
+	foot := len(b) - footerLen
+	if n := binary.LittleEndian.Uint64(b[foot+8:]); n != uint64(len(b)) {
+		return nil, corrupt(file, len(b), ErrTruncated, "file is %d bytes but declares %d", len(b), n)
+	}
+	body := b[:len(b)-trailerLen]
+	if got, want := crc32.Checksum(body, castagnoli), binary.LittleEndian.Uint32(b[len(b)-trailerLen:]); got != want {
+		return nil, corrupt(file, len(b)-trailerLen, ErrChecksum, "CRC-32C %08x, file says %08x", got, want)
+	}
+	n := int(binary.LittleEndian.Uint32(b[foot:]))
+	ml := int(binary.LittleEndian.Uint32(b[foot+4:]))
+	if ml > maxManifest || ml > foot-start {
+		return nil, corrupt(file, foot+4, nil, "manifest length %d does not fit", ml)
+	}
+	manOff := foot - ml
+	if n < 1 || n > maxSections || n > (manOff-start)/entryLen {
+		return nil, corrupt(file, foot, nil, "section count %d does not fit", n)
+	}
+	p := &parsed{}
+	dec := json.NewDecoder(bytes.NewReader(b[manOff:foot]))
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(&p.manifest); err != nil {
+		return nil, corrupt(file, manOff, nil, "manifest: %v", err)
+	}
+	tableOff := manOff - n*entryLen
+	off, bodyOff := tableOff, start
+	var raw uint64
+	for i := 0; i < n; i++ {
+		e := entry{
+			global:    b[off] == kindGlobal,
+			partition: int32(binary.LittleEndian.Uint32(b[off+1:])),
+			raw:       binary.LittleEndian.Uint64(b[off+5:]),
+			stored:    binary.LittleEndian.Uint64(b[off+13:]),
+			offset:    bodyOff,
+		}
+		if b[off] > kindPartiton || (i == 0) != e.global {
+			return nil, corrupt(file, off, nil, "section %d has kind %d (the global section comes first, once)", i, b[off])
+		}
+		copy(e.sum[:], b[off+21:off+53])
+		if e.stored > uint64(tableOff-bodyOff) {
+			return nil, corrupt(file, off+13, nil, "section %d stored length %d does not fit", i, e.stored)
+		}
+		raw += e.raw
+		if e.raw > uint64(maxRaw) || raw > uint64(maxRaw) {
+			return nil, corrupt(file, off+5, ErrTooLarge, "state of more than %d bytes (limit %d)", raw, maxRaw)
+		}
+		bodyOff += int(e.stored)
+		p.entries = append(p.entries, e)
+		off += entryLen
+	}
+	if bodyOff != tableOff {
+		return nil, corrupt(file, bodyOff, nil, "%d bytes between the last section and the table", tableOff-bodyOff)
+	}
+	if int64(raw) != p.manifest.RawBytes {
+		return nil, corrupt(file, manOff, nil, "manifest says %d raw bytes, sections hold %d", p.manifest.RawBytes, raw)
+	}
+	if d, err := hex.DecodeString(p.manifest.StateSHA256); err != nil || len(d) != sha256.Size {
+		return nil, corrupt(file, manOff, nil, "manifest state_sha256 %q is not a SHA-256", p.manifest.StateSHA256)
 	}
 	return p, nil
 }

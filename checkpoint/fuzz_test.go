@@ -10,7 +10,7 @@ import (
 // FuzzDecode feeds arbitrary bytes to the checkpoint decoder: it must return
 // an error or a verified checkpoint, never panic, hang or allocate beyond the
 // decoded-size limit. Seeds: the golden version-1 file and its hostile copies
-// in testdata.
+// in testdata, and a version-2 file written here.
 func FuzzDecode(f *testing.F) {
 	for _, pattern := range []string{"../testdata/checkpoint-v1/*.tdmk", "../testdata/checkpoint-hostile/*.tdmk"} {
 		paths, _ := filepath.Glob(pattern)
@@ -25,6 +25,14 @@ func FuzzDecode(f *testing.F) {
 	s, err := OpenStore(StoreConfig{Dir: f.TempDir(), MaxRawBytes: 8 << 20})
 	if err != nil {
 		f.Fatal(err)
+	}
+	// A file of the format this build writes (version 2).
+	in, err := s.Write(Manifest{Reason: Manual, ConfigSHA256: "ab"}, []Section{{Global: true, Bytes: []byte("global")}, {Partition: 3, Bytes: []byte("keys of partition 3")}})
+	if err != nil {
+		f.Fatal(err)
+	}
+	if b, err := os.ReadFile(filepath.Join(s.Dir(), in.File)); err == nil {
+		f.Add(b)
 	}
 	f.Fuzz(func(t *testing.T, b []byte) {
 		c, err := s.decode("fuzz", b, nil)

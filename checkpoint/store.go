@@ -1,11 +1,17 @@
 package checkpoint
 
 import (
+	"bufio"
 	"crypto/rand"
 	"crypto/sha256"
+	"encoding/binary"
 	"encoding/hex"
+	"encoding/json"
 	"errors"
 	"fmt"
+	"hash"
+	"hash/crc32"
+	"io"
 	"io/fs"
 	"path/filepath"
 	"slices"
@@ -255,12 +261,42 @@ func (s *Store) scan() ([]uint64, map[uint64]bool, error) {
 	return vs, pins, nil
 }
 
-// Write stores a new checkpoint of the given sections and returns its info.
-// It assigns the version (one past the newest present), the created time
-// (unless set), the state digest and raw size. On any failure — a full disk
-// included — earlier versions are untouched, no partial file is left under
-// a checkpoint name, and the error says what failed.
+// Write stores a new checkpoint of the given sections and returns its info;
+// see WriteState.
 func (s *Store) Write(m Manifest, secs []Section) (Info, error) {
+	if len(secs) == 0 {
+		return Info{}, fmt.Errorf("checkpoint: no sections to write")
+	}
+	return s.WriteState(m, func(sink Sink) error {
+		for _, sec := range secs {
+			if err := sink.Begin(sec.Global, sec.Partition); err != nil {
+				return err
+			}
+			if _, err := sink.Write(sec.Bytes); err != nil {
+				return err
+			}
+		}
+		return nil
+	})
+}
+
+// Sink receives a state section by section: Begin starts a section (the
+// global one first), Write appends its bytes.
+type Sink interface {
+	Begin(global bool, partition int32) error
+	Write(p []byte) (int, error)
+}
+
+// WriteState stores a new checkpoint whose state emit writes into the sink
+// it is given, and returns its info. The state is compressed and written to
+// disk as it arrives, never held in memory whole; it is refused, with an
+// error wrapping ErrTooLarge, as soon as it passes the limit loading
+// enforces (MaxRawBytes). WriteState assigns the version (one past the
+// newest present), the created time (unless set), the state digest and raw
+// size. On any failure — a full disk, an error from emit — earlier versions
+// are untouched, no partial file is left under a checkpoint name, and the
+// error says what failed.
+func (s *Store) WriteState(m Manifest, emit func(Sink) error) (Info, error) {
 	if s.cfg.ReadOnly {
 		return Info{}, fmt.Errorf("%w: cannot write a checkpoint in %s", ErrReadOnly, s.cfg.Dir)
 	}
@@ -280,30 +316,20 @@ func (s *Store) Write(m Manifest, secs []Section) (Info, error) {
 	if _, err := ParseReason(string(m.Reason)); err != nil {
 		return Info{}, err
 	}
-	// Never write what loading would refuse: the same limit on decoded state.
-	var raw int64
-	for _, sec := range secs {
-		raw += int64(len(sec.Bytes))
-	}
-	if raw > s.cfg.MaxRawBytes {
-		return Info{}, fmt.Errorf("%w: the state is %d bytes, over the limit of %d bytes that loading enforces (StoreConfig.MaxRawBytes); "+
-			"it was not written, earlier versions are intact", ErrTooLarge, raw, s.cfg.MaxRawBytes)
-	}
-	b, err := encodeFile(&m, secs, s.enc.EncodeAll)
-	if err != nil {
-		return Info{}, err
-	}
 	name := FileName(m.Version)
 	final := filepath.Join(s.cfg.Dir, name)
 	var rnd [6]byte
 	rand.Read(rnd[:])
 	tmp := final + tmpMark + hex.EncodeToString(rnd[:])
-	if err := s.writeFile(tmp, b); err != nil {
-		s.cfg.FS.Remove(tmp)
-		return Info{}, fmt.Errorf("checkpoint: write version %d: %w", m.Version, err)
+	size, err := s.writeStream(tmp, &m, emit)
+	if err == nil {
+		err = s.cfg.FS.Rename(tmp, final)
 	}
-	if err := s.cfg.FS.Rename(tmp, final); err != nil {
+	if err != nil {
 		s.cfg.FS.Remove(tmp)
+		if errors.Is(err, ErrTooLarge) {
+			return Info{}, err
+		}
 		return Info{}, fmt.Errorf("checkpoint: write version %d: %w", m.Version, err)
 	}
 	if err := s.cfg.FS.SyncDir(s.cfg.Dir); err != nil {
@@ -311,9 +337,153 @@ func (s *Store) Write(m Manifest, secs []Section) (Info, error) {
 	}
 	vs = append(vs, m.Version)
 	s.retain(vs, pins)
-	in := info(&m, name, int64(len(b)), pins[m.Version])
+	in := info(&m, name, size, pins[m.Version])
 	s.remember(in)
 	return in, nil
+}
+
+// writeStream writes a format-2 file at path (see FormatVersion), syncs and
+// closes it, and returns its size. It fills in m's digest and raw size.
+func (s *Store) writeStream(path string, m *Manifest, emit func(Sink) error) (int64, error) {
+	f, err := s.cfg.FS.Create(path)
+	if err != nil {
+		return 0, err
+	}
+	w := &streamWriter{crc: crc32.New(castagnoli), digest: sha256.New(), sec: sha256.New(), max: s.cfg.MaxRawBytes, enc: s.enc}
+	w.out = bufio.NewWriterSize(io.MultiWriter(f, w.crc), 1<<20)
+	err = w.run(m, emit)
+	if err == nil {
+		err = f.Sync()
+	}
+	if cerr := f.Close(); err == nil {
+		err = cerr
+	}
+	return w.n, err
+}
+
+// streamWriter is the Sink of WriteState: raw bytes are counted and hashed
+// (per section and for the state digest) and compressed, one zstd frame per
+// section, into the file; the CRC-32C runs over every byte written.
+type streamWriter struct {
+	out     *bufio.Writer
+	crc     hash.Hash32
+	n       int64 // bytes written to the file
+	enc     *zstd.Encoder
+	digest  hash.Hash
+	sec     hash.Hash
+	raw     int64 // raw bytes of the whole state
+	max     int64
+	entries []entry
+	open    bool
+	start   int64 // file offset of the open section
+}
+
+func (w *streamWriter) write(p []byte) error {
+	n, err := w.out.Write(p)
+	w.n += int64(n)
+	return err
+}
+
+// Write is the frame's destination: the file.
+type fileSide struct{ w *streamWriter }
+
+func (f fileSide) Write(p []byte) (int, error) {
+	if err := f.w.write(p); err != nil {
+		return 0, err
+	}
+	return len(p), nil
+}
+
+func (w *streamWriter) Begin(global bool, partition int32) error {
+	if err := w.end(); err != nil {
+		return err
+	}
+	if global != (len(w.entries) == 0) {
+		return fmt.Errorf("checkpoint: the global section must come first, once")
+	}
+	kind := entry{global: global, partition: partition}
+	w.entries = append(w.entries, kind)
+	w.open, w.start = true, w.n
+	w.sec.Reset()
+	w.enc.Reset(fileSide{w})
+	return nil
+}
+
+func (w *streamWriter) Write(p []byte) (int, error) {
+	if !w.open {
+		return 0, fmt.Errorf("checkpoint: state bytes before the first section")
+	}
+	if w.raw += int64(len(p)); w.raw > w.max {
+		return 0, fmt.Errorf("%w: the state passed %d bytes, the limit that loading enforces (StoreConfig.MaxRawBytes); "+
+			"it was not written, earlier versions are intact", ErrTooLarge, w.max)
+	}
+	w.entries[len(w.entries)-1].raw += uint64(len(p))
+	w.sec.Write(p)
+	w.digest.Write(p)
+	return w.enc.Write(p)
+}
+
+// end closes the open section's frame and records its table entry.
+func (w *streamWriter) end() error {
+	if !w.open {
+		return nil
+	}
+	w.open = false
+	if err := w.enc.Close(); err != nil {
+		return err
+	}
+	e := &w.entries[len(w.entries)-1]
+	e.stored = uint64(w.n - w.start)
+	w.sec.Sum(e.sum[:0])
+	return nil
+}
+
+func (w *streamWriter) run(m *Manifest, emit func(Sink) error) error {
+	w.write([]byte(magic))
+	w.write(binary.LittleEndian.AppendUint32(nil, FormatVersion))
+	if err := emit(w); err != nil {
+		w.enc.Reset(io.Discard)
+		return err
+	}
+	if err := w.end(); err != nil {
+		return err
+	}
+	if len(w.entries) == 0 {
+		return fmt.Errorf("checkpoint: no sections to write")
+	}
+	m.StateSHA256 = hex.EncodeToString(w.digest.Sum(nil))
+	m.RawBytes = w.raw
+	man, err := json.Marshal(m)
+	if err != nil {
+		return fmt.Errorf("checkpoint: manifest: %w", err)
+	}
+	var b []byte
+	for _, e := range w.entries {
+		kind := byte(kindPartiton)
+		if e.global {
+			kind = kindGlobal
+		}
+		b = append(b, kind)
+		b = binary.LittleEndian.AppendUint32(b, uint32(e.partition))
+		b = binary.LittleEndian.AppendUint64(b, e.raw)
+		b = binary.LittleEndian.AppendUint64(b, e.stored)
+		b = append(b, e.sum[:]...)
+	}
+	b = append(b, man...)
+	b = binary.LittleEndian.AppendUint32(b, uint32(len(w.entries)))
+	b = binary.LittleEndian.AppendUint32(b, uint32(len(man)))
+	b = binary.LittleEndian.AppendUint64(b, uint64(w.n)+uint64(len(b))+8+trailerLen)
+	if err := w.write(b); err != nil {
+		return err
+	}
+	if err := w.out.Flush(); err != nil {
+		return err
+	}
+	// The CRC covers what was flushed; the trailer goes after it.
+	if err := w.write(binary.LittleEndian.AppendUint32(nil, w.crc.Sum32())); err != nil {
+		return err
+	}
+	return w.out.Flush()
 }
 
 func (s *Store) writeFile(path string, b []byte) error {

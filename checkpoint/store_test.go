@@ -361,3 +361,86 @@ func TestWriteRefusesWhatLoadWouldRefuse(t *testing.T) {
 		t.Errorf("versions %v after the refused write, want [1]", vs)
 	}
 }
+
+// TestWriteStateStreams: a state handed over in small pieces, as the engine
+// streams it key by key, is stored and loads back byte for byte, with the
+// digest of the whole; a state that passes the limit part-way is refused
+// and leaves nothing behind, not even a temporary file.
+func TestWriteStateStreams(t *testing.T) {
+	s := openTest(t, StoreConfig{MaxRawBytes: 1 << 20})
+	secs := testSections(3)
+	in, err := s.WriteState(manifest(7), func(sink Sink) error {
+		for _, sec := range secs {
+			if err := sink.Begin(sec.Global, sec.Partition); err != nil {
+				return err
+			}
+			for b := sec.Bytes; len(b) > 0; b = b[min(len(b), 7):] {
+				if _, err := sink.Write(b[:min(len(b), 7)]); err != nil {
+					return err
+				}
+			}
+		}
+		return nil
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	c, err := s.Load(in.Version)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(c.Sections) != len(secs) || c.Manifest.StateSHA256 != stateDigest(secs) {
+		t.Fatalf("loaded %d sections, digest %s; wrote %d, digest %s", len(c.Sections), c.Manifest.StateSHA256, len(secs), stateDigest(secs))
+	}
+	for i := range secs {
+		if !bytes.Equal(c.Sections[i].Bytes, secs[i].Bytes) || c.Sections[i].Partition != secs[i].Partition {
+			t.Errorf("section %d differs", i)
+		}
+	}
+	_, err = s.WriteState(manifest(8), func(sink Sink) error {
+		sink.Begin(true, 0)
+		for i := 0; i < 100; i++ {
+			if _, err := sink.Write(make([]byte, 64<<10)); err != nil {
+				return err
+			}
+		}
+		t.Error("the sink took 6.4 MiB past a 1 MiB limit")
+		return nil
+	})
+	if !errors.Is(err, ErrTooLarge) {
+		t.Errorf("a state past the limit: %v, want ErrTooLarge", err)
+	}
+	names, _ := os.ReadDir(s.Dir())
+	for _, n := range names {
+		if strings.Contains(n.Name(), tmpMark) {
+			t.Errorf("%s left behind", n.Name())
+		}
+	}
+}
+
+// TestFormatVersion1StillLoads: files of the first format, with the table
+// and manifest before the state, are still read and verified.
+func TestFormatVersion1StillLoads(t *testing.T) {
+	s := openTest(t, StoreConfig{})
+	m := manifest(3)
+	m.Version, m.Created = 1, time.Date(2026, 12, 1, 0, 0, 0, 0, time.UTC)
+	b, err := encodeFile(&m, testSections(2), s.enc.EncodeAll)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(filepath.Join(s.Dir(), FileName(1)), b, 0o600); err != nil {
+		t.Fatal(err)
+	}
+	c, err := s.Load(1)
+	if err != nil {
+		t.Fatalf("a version-1 file: %v", err)
+	}
+	if c.Manifest.StateSHA256 != stateDigest(testSections(2)) {
+		t.Error("a version-1 file loads another state")
+	}
+	b[len(b)/2] ^= 1
+	os.WriteFile(filepath.Join(s.Dir(), FileName(1)), b, 0o600)
+	if _, err := s.Load(1); !errors.Is(err, ErrCorrupt) {
+		t.Errorf("a damaged version-1 file: %v, want ErrCorrupt", err)
+	}
+}

@@ -566,14 +566,6 @@ func (e *Engine) own(ks *keyState) *keyState {
 	return c
 }
 
-// sortedKeys returns the key states ordered by (partition, key), for the
-// partition sections of the state.
-func (e *Engine) sortedKeys() []*keyState {
-	out := slices.Clone(e.ordered())
-	slices.SortStableFunc(out, func(a, b *keyState) int { return int(a.partition) - int(b.partition) })
-	return out
-}
-
 // Digest returns the hex SHA-256 of a canonical description of the
 // configuration (learner names and canonical specs, features, key cap,
 // scoring and drift settings, defaults filled in). A checkpoint records it so

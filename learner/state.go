@@ -48,10 +48,69 @@ type Section struct {
 	Bytes     []byte
 }
 
-// Sections encodes the state: the global section first, then one per
-// partition in ascending order.
-func (e *Engine) Sections() []Section {
+// SectionSink receives the state section by section (EncodeSections):
+// Begin starts a section, Write appends to it. A checkpoint store streams
+// what it receives to disk.
+type SectionSink interface {
+	Begin(global bool, partition int32) error
+	Write(p []byte) (int, error)
+}
+
+// sinkFlush is how many encoded bytes EncodeSections gathers before it
+// hands them to the sink: the state is never in memory twice.
+const sinkFlush = 256 << 10
+
+// EncodeSections writes the state into sink key by key: the global section
+// first, then one per partition in ascending order, the same bytes as
+// Sections. It stops at the sink's first error. The engine may be a
+// published copy, encoded on another goroutine while its owner goes on.
+func (e *Engine) EncodeSections(sink SectionSink) error {
 	w := &encoder{}
+	e.encodeGlobal(w)
+	if err := sink.Begin(true, 0); err != nil {
+		return err
+	}
+	if _, err := sink.Write(w.b); err != nil {
+		return err
+	}
+	// Keys by partition, each partition's in key order: one pass over the
+	// sorted keys.
+	byPart := map[int32][]*keyState{}
+	for _, ks := range e.ordered() {
+		byPart[ks.partition] = append(byPart[ks.partition], ks)
+	}
+	for _, p := range e.Positions() {
+		if err := sink.Begin(false, p.Partition); err != nil {
+			return err
+		}
+		keys := byPart[p.Partition]
+		w.b = append(w.b[:0], partitionMagic...)
+		w.u32(uint32(p.Partition))
+		w.i64(p.Offset)
+		w.int(len(keys))
+		for _, ks := range keys {
+			w.str(ks.key)
+			for n := range ks.slots {
+				s := &ks.slots[n]
+				s.learner.encode(w)
+				s.score.encode(w)
+				s.drift.encode(w)
+			}
+			if len(w.b) >= sinkFlush {
+				if _, err := sink.Write(w.b); err != nil {
+					return err
+				}
+				w.b = w.b[:0]
+			}
+		}
+		if _, err := sink.Write(w.b); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+func (e *Engine) encodeGlobal(w *encoder) {
 	w.b = append(w.b, globalMagic...)
 	w.u32(stateVersion)
 	w.int(len(e.cfg.Learners))
@@ -82,34 +141,28 @@ func (e *Engine) Sections() []Section {
 			w.i64(t.lastAlarm.Time)
 		}
 	}
-	out := []Section{{Global: true, Bytes: w.b}}
-	keys := e.sortedKeys()
-	for _, p := range e.Positions() {
-		w := &encoder{}
-		w.b = append(w.b, partitionMagic...)
-		w.u32(uint32(p.Partition))
-		w.i64(p.Offset)
-		i := 0
-		for i < len(keys) && keys[i].partition < p.Partition {
-			i++
-		}
-		j := i
-		for j < len(keys) && keys[j].partition == p.Partition {
-			j++
-		}
-		w.int(j - i)
-		for _, ks := range keys[i:j] {
-			w.str(ks.key)
-			for n := range ks.slots {
-				l := ks.slots[n].learner
-				l.encode(w)
-				ks.slots[n].score.encode(w)
-				ks.slots[n].drift.encode(w)
-			}
-		}
-		out = append(out, Section{Partition: p.Partition, Bytes: w.b})
-	}
-	return out
+}
+
+// sectionList is a SectionSink that keeps the sections in memory.
+type sectionList []Section
+
+func (l *sectionList) Begin(global bool, partition int32) error {
+	*l = append(*l, Section{Global: global, Partition: partition})
+	return nil
+}
+
+func (l *sectionList) Write(p []byte) (int, error) {
+	s := &(*l)[len(*l)-1]
+	s.Bytes = append(s.Bytes, p...)
+	return len(p), nil
+}
+
+// Sections encodes the state in memory: the global section first, then one
+// per partition in ascending order (see EncodeSections, which streams it).
+func (e *Engine) Sections() []Section {
+	var l sectionList
+	e.EncodeSections(&l)
+	return l
 }
 
 // Encode appends the whole state, its sections in a container, to dst.

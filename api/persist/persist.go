@@ -36,7 +36,8 @@ func Manifest(eng *learner.Engine, reason checkpoint.Reason, parent uint64) chec
 	return m
 }
 
-// Save writes the engine's state to store as a new version with the given
+// Save writes the engine's state (a live engine or a published copy) to
+// store as a new version with the given
 // reason and parent (0: none); source, marshalled to JSON, records what the
 // state was read from (a service's skip rule, a replay's history prefix).
 func Save(store *checkpoint.Store, eng *learner.Engine, reason checkpoint.Reason, parent uint64, source any) (checkpoint.Info, error) {
@@ -48,7 +49,8 @@ func Save(store *checkpoint.Store, eng *learner.Engine, reason checkpoint.Reason
 		}
 		m.Source = b
 	}
-	return store.Write(m, ToCheckpoint(eng.Sections()))
+	// Key by key into the file: the state is never in memory twice.
+	return store.WriteState(m, func(sink checkpoint.Sink) error { return eng.EncodeSections(sink) })
 }
 
 // Adopt decodes checkpoint c into eng after checking that it was taken under
