@@ -16,8 +16,8 @@ import (
 
 	"tidemark/api/intake"
 	"tidemark/api/persist"
-	"tidemark/checkpoint"
 	"tidemark/api/replay"
+	"tidemark/checkpoint"
 	"tidemark/learner"
 )
 
