@@ -105,51 +105,57 @@ func replayChild(path, ckDir string) {
 		fmt.Println(rate, eng.Report(false).Keys)
 		return
 	}
-	ckWrite, ckLoad, floor, size, err := checkpointTimes(eng, ckDir)
+	store, err := checkpoint.OpenStore(checkpoint.StoreConfig{Dir: ckDir})
 	if err != nil {
 		fmt.Fprintln(os.Stderr, err)
 		os.Exit(1)
 	}
-	fmt.Println(rate, eng.Report(false).Keys, ckWrite, ckLoad, floor, size)
-}
-
-func checkpointTimes(eng *learner.Engine, dir string) (write, load, floor float64, size int64, err error) {
-	store, err := checkpoint.OpenStore(checkpoint.StoreConfig{Dir: dir})
-	if err != nil {
-		return
-	}
 	defer store.Close()
-	t0 := time.Now()
+	keys, cfg := eng.Report(false).Keys, eng.Config()
+	t0 = time.Now()
 	info, err := persist.Save(store, eng, checkpoint.Manual, 0, nil)
 	if err != nil {
-		return
+		fmt.Fprintln(os.Stderr, err)
+		os.Exit(1)
 	}
-	write = time.Since(t0).Seconds()
-	size = info.Bytes
+	ckWrite := time.Since(t0).Seconds()
+	// Load as a restarted service does: into an empty process, the engine
+	// that wrote it gone.
+	eng = nil
 	runtime.GC()
 	t0 = time.Now()
 	c, err := store.Load(info.Version)
+	if err == nil {
+		var fresh *learner.Engine
+		if fresh, err = learner.NewEngine(cfg); err == nil {
+			err = persist.Adopt(fresh, c, "")
+		}
+	}
 	if err != nil {
-		return
+		fmt.Fprintln(os.Stderr, err)
+		os.Exit(1)
 	}
-	fresh, err := learner.NewEngine(eng.Config())
-	if err != nil {
-		return
-	}
-	if err = persist.Adopt(fresh, c, ""); err != nil {
-		return
-	}
-	load = time.Since(t0).Seconds()
+	ckLoad := time.Since(t0).Seconds()
 	c = nil
 	runtime.GC()
-	// The floor: the same number of bytes written and synced.
+	floor, err := writeFloor(ckDir, info.Bytes)
+	if err != nil {
+		fmt.Fprintln(os.Stderr, err)
+		os.Exit(1)
+	}
+	fmt.Println(rate, keys, ckWrite, ckLoad, floor, info.Bytes)
+}
+
+// writeFloor writes and syncs n bytes to a new file in dir: the floor of a
+// checkpoint write of n bytes.
+func writeFloor(dir string, n int64) (floor float64, err error) {
 	buf := make([]byte, 1<<20)
-	t0 = time.Now()
+	t0 := time.Now()
 	f, err := os.Create(filepath.Join(dir, "floor"))
 	if err != nil {
 		return
 	}
-	for left := info.Bytes; left > 0; left -= int64(len(buf)) {
+	for left := n; left > 0; left -= int64(len(buf)) {
 		if _, err = f.Write(buf[:min(left, int64(len(buf)))]); err != nil {
 			return
 		}

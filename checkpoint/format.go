@@ -18,16 +18,18 @@ import (
 // copy of it in memory:
 //
 //	magic "TMCKPT\r\n", u32 format version
-//	the sections' zstd frames, back to back
+//	the sections' zstd frames, back to back, each with its content checksum
 //	section table: per section kind (0 global, 1 partition), u32 partition,
-//	  u64 raw length, u64 stored length, SHA-256 of the raw bytes
+//	  u64 raw length, u64 stored length
 //	manifest (JSON)
 //	u32 section count, u32 manifest length, u64 file length
 //	u32 CRC-32C of everything before it
 //
 // Version 1 has the same parts with the manifest and table first (after a
-// u64 file length and u32 manifest length in the header): it needs every
-// section's size and digest before the first byte of state is written.
+// u64 file length and u32 manifest length in the header) and a SHA-256 per
+// section in the table: it needs every section's size and digest before the
+// first byte of state is written. In both, the manifest's state_sha256 is
+// the SHA-256 of all sections' raw bytes in order, checked on every full load.
 const FormatVersion = 2
 
 const footerLen = 4 + 4 + 8 + trailerLen
@@ -35,7 +37,8 @@ const footerLen = 4 + 4 + 8 + trailerLen
 const (
 	magic        = "TMCKPT\r\n"
 	headerLen    = 24
-	entryLen     = 53
+	entryLen     = 53 // format 1
+	entryLen2    = 21 // format 2: no SHA-256 per section (the frames carry checksums)
 	trailerLen   = 4
 	maxManifest  = 16 << 20
 	maxSections  = 1 << 20
@@ -166,6 +169,7 @@ type entry struct {
 	partition int32
 	raw       uint64
 	stored    uint64
+	hasSum    bool // format 1 keeps a SHA-256 per section
 	sum       [32]byte
 	offset    int // of the body in the file
 }
@@ -239,6 +243,7 @@ func parseFile(file string, b []byte, maxRaw int64) (*parsed, error) {
 			return nil, corrupt(file, off, nil, "section %d has kind %d (the global section comes first, once)", i, b[off])
 		}
 		copy(e.sum[:], b[off+21:off+53])
+		e.hasSum = true
 		if e.stored > uint64(len(body)-bodyOff) {
 			return nil, corrupt(file, off+13, nil, "section %d stored length %d does not fit", i, e.stored)
 		}
@@ -282,7 +287,7 @@ func parseFile2(file string, b []byte, maxRaw int64) (*parsed, error) {
 		return nil, corrupt(file, foot+4, nil, "manifest length %d does not fit", ml)
 	}
 	manOff := foot - ml
-	if n < 1 || n > maxSections || n > (manOff-start)/entryLen {
+	if n < 1 || n > maxSections || n > (manOff-start)/entryLen2 {
 		return nil, corrupt(file, foot, nil, "section count %d does not fit", n)
 	}
 	p := &parsed{}
@@ -291,7 +296,7 @@ func parseFile2(file string, b []byte, maxRaw int64) (*parsed, error) {
 	if err := dec.Decode(&p.manifest); err != nil {
 		return nil, corrupt(file, manOff, nil, "manifest: %v", err)
 	}
-	tableOff := manOff - n*entryLen
+	tableOff := manOff - n*entryLen2
 	off, bodyOff := tableOff, start
 	var raw uint64
 	for i := 0; i < n; i++ {
@@ -305,7 +310,6 @@ func parseFile2(file string, b []byte, maxRaw int64) (*parsed, error) {
 		if b[off] > kindPartiton || (i == 0) != e.global {
 			return nil, corrupt(file, off, nil, "section %d has kind %d (the global section comes first, once)", i, b[off])
 		}
-		copy(e.sum[:], b[off+21:off+53])
 		if e.stored > uint64(tableOff-bodyOff) {
 			return nil, corrupt(file, off+13, nil, "section %d stored length %d does not fit", i, e.stored)
 		}
@@ -315,7 +319,7 @@ func parseFile2(file string, b []byte, maxRaw int64) (*parsed, error) {
 		}
 		bodyOff += int(e.stored)
 		p.entries = append(p.entries, e)
-		off += entryLen
+		off += entryLen2
 	}
 	if bodyOff != tableOff {
 		return nil, corrupt(file, bodyOff, nil, "%d bytes between the last section and the table", tableOff-bodyOff)

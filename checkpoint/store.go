@@ -18,6 +18,7 @@ import (
 	"strconv"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"github.com/klauspost/compress/zstd"
@@ -142,7 +143,7 @@ func OpenStore(cfg StoreConfig) (*Store, error) {
 	} else if err := cfg.FS.MkdirAll(cfg.Dir); err != nil {
 		return nil, fmt.Errorf("checkpoint: %w", err)
 	}
-	enc, err := zstd.NewWriter(nil, zstd.WithEncoderConcurrency(1), zstd.WithEncoderLevel(zstd.SpeedDefault))
+	enc, err := zstd.NewWriter(nil, zstd.WithEncoderConcurrency(1), zstd.WithEncoderLevel(zstd.SpeedFastest), zstd.WithEncoderCRC(false))
 	if err != nil {
 		return nil, fmt.Errorf("checkpoint: %w", err)
 	}
@@ -349,9 +350,15 @@ func (s *Store) writeStream(path string, m *Manifest, emit func(Sink) error) (in
 	if err != nil {
 		return 0, err
 	}
-	w := &streamWriter{crc: crc32.New(castagnoli), digest: sha256.New(), sec: sha256.New(), max: s.cfg.MaxRawBytes, enc: s.enc}
+	w := &streamWriter{f: f, crc: crc32.New(castagnoli), digest: sha256.New(), max: s.cfg.MaxRawBytes, enc: s.enc}
 	w.out = bufio.NewWriterSize(io.MultiWriter(f, w.crc), 1<<20)
 	err = w.run(m, emit)
+	if w.syncing != nil {
+		<-w.syncing
+		if err == nil {
+			err = w.syncErr
+		}
+	}
 	if err == nil {
 		err = f.Sync()
 	}
@@ -361,30 +368,74 @@ func (s *Store) writeStream(path string, m *Manifest, emit func(Sink) error) (in
 	return w.n, err
 }
 
-// streamWriter is the Sink of WriteState: raw bytes are counted and hashed
-// (per section and for the state digest) and compressed, one zstd frame per
-// section, into the file; the CRC-32C runs over every byte written.
+// streamWriter is the Sink of WriteState. The caller's goroutine counts the
+// raw bytes and copies them into chunks; a second goroutine hashes them (the
+// state digest), compresses them, one zstd frame per section, and writes the
+// frames to the file under a running CRC-32C, so that encoding, hashing and
+// compressing overlap. Every syncEvery bytes written it starts a sync in
+// the background, so that the disk works while the state is still being
+// encoded and the final sync finds little left to do.
 type streamWriter struct {
+	f       File
 	out     *bufio.Writer
 	crc     hash.Hash32
-	n       int64 // bytes written to the file
+	n       int64 // bytes written to the file (second goroutine until done)
 	enc     *zstd.Encoder
 	digest  hash.Hash
-	sec     hash.Hash
 	raw     int64 // raw bytes of the whole state
 	max     int64
-	entries []entry
+	entries []entry // appended by Begin
 	open    bool
-	start   int64 // file offset of the open section
+	cur     []byte
+
+	work    chan chunk
+	free    chan []byte
+	done    chan error
+	failed  atomic.Bool
+	synced  int64         // file offset at the last background sync
+	syncing chan struct{} // closed when the background sync in flight ends
+	syncErr error         // its result, read after syncing is closed
+	stored  []uint64      // per section, by the second goroutine
 }
+
+// chunk is a piece of work for the second goroutine: raw bytes of the open
+// section, or (b nil) the start of the next section.
+type chunk struct{ b []byte }
+
+const (
+	chunkSize = 1 << 20
+	syncEvery = 64 << 20
+)
 
 func (w *streamWriter) write(p []byte) error {
 	n, err := w.out.Write(p)
 	w.n += int64(n)
+	if err == nil && w.n-w.synced >= syncEvery && w.syncing == nil {
+		// Start the disk on what is written so far. A sync in flight is
+		// waited for only at the end.
+		if err = w.out.Flush(); err == nil {
+			w.synced = w.n
+			done := make(chan struct{})
+			w.syncing = done
+			go func() {
+				// An error here must not be lost: a failed sync may
+				// clear the error a later one would report.
+				w.syncErr = w.f.Sync()
+				close(done)
+			}()
+		}
+	} else if w.syncing != nil {
+		select {
+		case <-w.syncing:
+			w.syncing = nil
+			err = w.syncErr
+		default:
+		}
+	}
 	return err
 }
 
-// Write is the frame's destination: the file.
+// fileSide is the frames' destination: the file.
 type fileSide struct{ w *streamWriter }
 
 func (f fileSide) Write(p []byte) (int, error) {
@@ -394,62 +445,117 @@ func (f fileSide) Write(p []byte) (int, error) {
 	return len(p), nil
 }
 
+// compress is the second goroutine. It records each section's stored length
+// in stored (read by run once it is done).
+func (w *streamWriter) compress() {
+	var err error
+	start := int64(0)
+	open := false
+	end := func() {
+		if open && err == nil {
+			err = w.enc.Close()
+			w.stored = append(w.stored, uint64(w.n-start))
+		}
+	}
+	for c := range w.work {
+		if err != nil {
+			continue // drain
+		}
+		if c.b == nil {
+			end()
+			start, open = w.n, true
+			w.enc.Reset(fileSide{w})
+			continue
+		}
+		w.digest.Write(c.b)
+		if _, err = w.enc.Write(c.b); err != nil {
+			w.failed.Store(true)
+		}
+		w.free <- c.b[:0]
+	}
+	end()
+	if err != nil {
+		w.failed.Store(true)
+		w.enc.Reset(io.Discard)
+	}
+	w.done <- err
+}
+
 func (w *streamWriter) Begin(global bool, partition int32) error {
-	if err := w.end(); err != nil {
+	if err := w.flush(); err != nil {
 		return err
 	}
 	if global != (len(w.entries) == 0) {
 		return fmt.Errorf("checkpoint: the global section must come first, once")
 	}
-	kind := entry{global: global, partition: partition}
-	w.entries = append(w.entries, kind)
-	w.open, w.start = true, w.n
-	w.sec.Reset()
-	w.enc.Reset(fileSide{w})
+	w.entries = append(w.entries, entry{global: global, partition: partition})
+	w.open = true
+	w.work <- chunk{}
 	return nil
 }
 
+// cur is the chunk being filled; it goes to the second goroutine when full.
 func (w *streamWriter) Write(p []byte) (int, error) {
 	if !w.open {
 		return 0, fmt.Errorf("checkpoint: state bytes before the first section")
+	}
+	if w.failed.Load() {
+		return 0, fmt.Errorf("checkpoint: writing the file failed")
 	}
 	if w.raw += int64(len(p)); w.raw > w.max {
 		return 0, fmt.Errorf("%w: the state passed %d bytes, the limit that loading enforces (StoreConfig.MaxRawBytes); "+
 			"it was not written, earlier versions are intact", ErrTooLarge, w.max)
 	}
 	w.entries[len(w.entries)-1].raw += uint64(len(p))
-	w.sec.Write(p)
-	w.digest.Write(p)
-	return w.enc.Write(p)
+	n := len(p)
+	for len(p) > 0 {
+		if w.cur == nil {
+			w.cur = <-w.free
+		}
+		k := min(len(p), chunkSize-len(w.cur))
+		w.cur = append(w.cur, p[:k]...)
+		p = p[k:]
+		if len(w.cur) == chunkSize {
+			w.work <- chunk{b: w.cur}
+			w.cur = nil
+		}
+	}
+	return n, nil
 }
 
-// end closes the open section's frame and records its table entry.
-func (w *streamWriter) end() error {
-	if !w.open {
-		return nil
+// flush hands the chunk being filled to the second goroutine.
+func (w *streamWriter) flush() error {
+	if len(w.cur) > 0 {
+		w.work <- chunk{b: w.cur}
+		w.cur = nil
 	}
-	w.open = false
-	if err := w.enc.Close(); err != nil {
-		return err
-	}
-	e := &w.entries[len(w.entries)-1]
-	e.stored = uint64(w.n - w.start)
-	w.sec.Sum(e.sum[:0])
 	return nil
 }
 
 func (w *streamWriter) run(m *Manifest, emit func(Sink) error) error {
 	w.write([]byte(magic))
 	w.write(binary.LittleEndian.AppendUint32(nil, FormatVersion))
-	if err := emit(w); err != nil {
-		w.enc.Reset(io.Discard)
+	w.work, w.free, w.done = make(chan chunk, 4), make(chan []byte, 6), make(chan error, 1)
+	for i := 0; i < cap(w.free); i++ {
+		w.free <- make([]byte, 0, chunkSize)
+	}
+	go w.compress()
+	err := emit(w)
+	if err == nil {
+		err = w.flush()
+	}
+	close(w.work)
+	if cerr := <-w.done; cerr != nil {
+		err = cerr // what went wrong with the file, rather than that it did
+	}
+	if err != nil {
 		return err
 	}
-	if err := w.end(); err != nil {
-		return err
-	}
-	if len(w.entries) == 0 {
+	if len(w.entries) == 0 || len(w.stored) != len(w.entries) {
 		return fmt.Errorf("checkpoint: no sections to write")
+	}
+	for i := range w.entries {
+		w.entries[i].stored = w.stored[i]
 	}
 	m.StateSHA256 = hex.EncodeToString(w.digest.Sum(nil))
 	m.RawBytes = w.raw
@@ -467,7 +573,6 @@ func (w *streamWriter) run(m *Manifest, emit func(Sink) error) error {
 		b = binary.LittleEndian.AppendUint32(b, uint32(e.partition))
 		b = binary.LittleEndian.AppendUint64(b, e.raw)
 		b = binary.LittleEndian.AppendUint64(b, e.stored)
-		b = append(b, e.sum[:]...)
 	}
 	b = append(b, man...)
 	b = binary.LittleEndian.AppendUint32(b, uint32(len(w.entries)))
@@ -623,7 +728,7 @@ func (s *Store) decode(name string, b []byte, only []int32) (*Checkpoint, error)
 		if uint64(len(raw)) != e.raw {
 			return nil, corrupt(name, e.offset, nil, "section %d decompresses to %d bytes, table says %d", i, len(raw), e.raw)
 		}
-		if sha256.Sum256(raw) != e.sum {
+		if e.hasSum && sha256.Sum256(raw) != e.sum {
 			return nil, corrupt(name, e.offset, ErrChecksum, "section %d SHA-256 mismatch", i)
 		}
 		c.Sections = append(c.Sections, Section{Global: e.global, Partition: e.partition, Bytes: raw})

@@ -317,6 +317,12 @@ func (e *Engine) decodePartition(s Section) error {
 	if nk > 0 && e.schema == nil {
 		r.fail("keys without a schema")
 	}
+	if len(e.keys) == 0 && nk > 0 && r.err == nil {
+		// Room for the keys at once, not by doubling (nk is bounded by
+		// the bytes left: at least 8 a key).
+		e.keys = make(map[string]*keyState, nk)
+		e.byName = make([]*keyState, 0, nk)
+	}
 	prev := ""
 	for i := 0; i < nk && r.err == nil; i++ {
 		key := r.str(MaxKeyBytes)
