@@ -71,12 +71,15 @@ var (
 	descLag      = prometheus.NewDesc("tidemark_intake_lag_events", "Events in the source not yet applied, per partition.", []string{"partition"}, nil)
 	descReady    = prometheus.NewDesc("tidemark_ready", "1 once restored and caught up with the stream.", nil, nil)
 	descConn     = prometheus.NewDesc("tidemark_intake_connected", "1 while the Kafka brokers answer (Kafka intake only).", nil, nil)
+	descState    = prometheus.NewDesc("tidemark_state_bytes", "Bytes the model state holds, as estimated from its windows and coefficients (what the memory budget is held to).", nil, nil)
+	descBudget   = prometheus.NewDesc("tidemark_memory_budget_bytes", "The memory budget: events of new keys are rejected (reason memory_budget) while the state is at or past it; 0 for none.", nil, nil)
+	descKeys     = prometheus.NewDesc("tidemark_keys", "Distinct keys in the state.", nil, nil)
 	descStopped  = prometheus.NewDesc("tidemark_intake_stopped", "1 while a fault of the data directory stops intake (see /readyz for what and why).", nil, nil)
 )
 
 func (c *snapshotCollector) Describe(ch chan<- *prometheus.Desc) {
 	for _, d := range []*prometheus.Desc{descApplied, descRejected, descSkipped, descDead, descRMSE, descMAE, descSkill,
-		descScored, descDrift, descAlarms, descCkVer, descCkAge, descCkBytes, descLag, descReady, descConn, descStopped} {
+		descScored, descDrift, descAlarms, descCkVer, descCkAge, descCkBytes, descLag, descReady, descConn, descStopped, descState, descBudget, descKeys} {
 		ch <- d
 	}
 }
@@ -97,6 +100,9 @@ func (c *snapshotCollector) Collect(ch chan<- prometheus.Metric) {
 	counter(descRejected, float64(r.Rejected))
 	counter(descSkipped, float64(r.Skipped))
 	counter(descDead, float64(snap.dead))
+	gauge(descState, float64(r.StateBytes))
+	gauge(descBudget, float64(c.s.cfg.Engine.MemoryBudget))
+	gauge(descKeys, float64(r.Keys))
 	for _, l := range r.Learners {
 		if l.RMSE != nil {
 			gauge(descRMSE, *l.RMSE, l.Name, "all")

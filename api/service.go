@@ -173,6 +173,9 @@ func (s *Service) Run(ctx context.Context) error {
 	}
 	s.addr = ln.Addr().String()
 	close(s.listening)
+	if b := s.cfg.Engine.MemoryBudget; b > 0 {
+		s.cfg.Log.Info("memory budget: events of new keys are refused once the state holds this much", "bytes", b, "max_keys", s.cfg.Engine.MaxKeys)
+	}
 	srvErr := make(chan error, 1)
 	go func() {
 		var err error

@@ -27,7 +27,13 @@ import (
 // Defaults of StoreConfig.
 const (
 	DefaultRetain      = 20
-	DefaultMaxRawBytes = 1 << 30 // 1 GiB of decoded state
+	// DefaultMaxRawBytes bounds a checkpoint's decoded state: 16 GiB, room
+	// for some 15 million keys of rls + mean (10⁶ such keys encode to
+	// 1.05 GB), as the engine can hold that many on a large machine. A
+	// file's CRC-32C is checked before anything is decompressed, so damage
+	// never reaches the decompressor; a file crafted to pass it can make a
+	// load allocate up to this limit, no more.
+	DefaultMaxRawBytes = 16 << 30
 )
 
 // StoreConfig configures a Store. Zero fields take the defaults.

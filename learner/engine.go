@@ -10,10 +10,14 @@ import (
 	"math"
 	"slices"
 	"strings"
+	"unsafe"
 )
 
-// DefaultMaxKeys is the cap on distinct keys when Config.MaxKeys is zero.
-const DefaultMaxKeys = 10_000
+// DefaultMaxKeys is the cap on distinct keys when Config.MaxKeys is zero:
+// a safeguard against a runaway key space, far above what one machine is
+// expected to hold of light learners (10⁶ keys of rls + mean take about
+// 1.8 GB). What protects memory is the memory budget (Config.MemoryBudget).
+const DefaultMaxKeys = 10_000_000
 
 // Position is where an event sits in its stream: a partition and an offset
 // within it (a Kafka partition and offset; a journal's sequence number; a
@@ -31,8 +35,16 @@ type Config struct {
 	Learners []Spec        // at least one; names unique
 	Features FeatureConfig // schema, hashing, time features
 	MaxKeys  int           // distinct keys; events for new keys beyond it are rejected. Default: DefaultMaxKeys.
-	Score    ScoreConfig
-	Drift    DriftConfig
+	// MemoryBudget, when positive, is the most the model state may hold, in
+	// bytes as estimated from what the learners hold (StateBytes; windows
+	// and coefficients, not their allocations): an event of a new key is
+	// rejected while the estimate is at or past it, and keys already there
+	// go on learning (their windows may still grow to their bounds). 0: no
+	// budget. The estimate is deterministic, so a restart refuses the same
+	// keys; the process's memory runs about 1.0–1.5× the estimate.
+	MemoryBudget int64
+	Score        ScoreConfig
+	Drift        DriftConfig
 }
 
 // Validate reports every problem with c at once. It changes nothing.
@@ -50,6 +62,9 @@ func (c *Config) Validate() error {
 	}
 	if c.MaxKeys < 0 {
 		errs = append(errs, fmt.Errorf("%w: max keys %d is negative", ErrInvalidSpec, c.MaxKeys))
+	}
+	if c.MemoryBudget < 0 {
+		errs = append(errs, fmt.Errorf("%w: memory budget %d is negative", ErrInvalidSpec, c.MemoryBudget))
 	}
 	if c.Features.HashBuckets < 0 || c.Features.HashBuckets > 1<<16 {
 		errs = append(errs, fmt.Errorf("%w: hash buckets %d: want 1 to 65536", ErrInvalidSpec, c.Features.HashBuckets))
@@ -98,8 +113,10 @@ type Engine struct {
 	publishing bool
 	frozen     bool
 	nkeys      int // keys of a frozen engine
-	totals     []total
-	hwm        map[int32]int64
+
+	keyBase int64 // estimated bytes of the keys themselves (keyBase), summed; the learners' are in totals
+	totals  []total
+	hwm     map[int32]int64
 
 	applied, rejected, duplicates, ignored int64
 	alarms, skipped                        int64
@@ -125,6 +142,7 @@ type total struct {
 	pool      pool
 	states    [Drift + 1]int64 // keys per drift state
 	late      int64
+	held      int64 // estimated bytes of this learner's slots over all keys
 	alarms    int64
 	lastAlarm *Alarm
 }
@@ -137,6 +155,10 @@ func (t *total) count(ks *keyState, i int, sign int64) {
 		t.pool.remove(&ks.slots[i].score)
 	}
 	t.states[ks.slots[i].drift.State()] += sign
+	if sign > 0 {
+		ks.slots[i].held = slotHeld(&ks.slots[i])
+	}
+	t.held += sign * ks.slots[i].held
 	if l, ok := ks.slots[i].learner.(lateCounter); ok {
 		t.late += sign * l.Late()
 	}
@@ -168,6 +190,7 @@ type slot struct {
 	learner Learner
 	score   Scorer
 	drift   PageHinkley
+	held    int64 // its estimated bytes (slotHeld) when last counted
 }
 
 // NewEngine validates cfg, fills its defaults and returns an empty engine.
@@ -298,6 +321,10 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 			e.rejected++
 			return false, reject(RejectKeyCap, "key %q would be key number %d, past the cap of %d", truncate(ev.Key), len(e.keys)+1, e.cfg.MaxKeys)
 		}
+		if err := e.overBudget(ev.Key); err != nil {
+			e.rejected++
+			return false, err
+		}
 		e.schema = schema
 		ks = e.newKey(ev.Key, pos.Partition)
 		e.addKey(ks)
@@ -349,6 +376,11 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 		l.Learn(e.x, y, ev.Time)
 		if windowed {
 			t.late += lc.Late() - late
+		}
+		if s := &ks.slots[i]; s.held != slotHeld(s) {
+			h := slotHeld(s)
+			t.held += h - s.held
+			s.held = h
 		}
 	}
 	e.applied++
@@ -454,6 +486,7 @@ func (e *Engine) Clone() *Engine {
 // addKey registers a new key's state in O(1) amortised: the key order
 // reports and state bytes need is produced when asked for (ordered).
 func (e *Engine) addKey(ks *keyState) {
+	e.keyBase += keyBase(ks)
 	e.keys[ks.key] = ks
 	ks.idx = len(e.byName)
 	e.byName = append(e.byName, ks)
@@ -463,6 +496,56 @@ func (e *Engine) addKey(ks *keyState) {
 	for i := range e.totals {
 		e.totals[i].count(ks, i, 1)
 	}
+}
+
+// keyBase estimates the bytes of a key apart from its learners: its state's
+// header, its name and its entry in the engine's tables.
+func keyBase(ks *keyState) int64 {
+	return int64(unsafe.Sizeof(*ks)) + int64(len(ks.key)) + keyTableBytes
+}
+
+// slotHeld estimates the bytes of one learner of a key: the learner
+// (Learner.held), its scorer with its recent errors, its drift detector.
+func slotHeld(s *slot) int64 {
+	return int64(unsafe.Sizeof(*s)) + 8*int64(s.score.idx.Len()) + s.learner.held()
+}
+
+// keyTableBytes is a key's share of the key map and list (common practice
+// for a Go map of string to pointer: about 40 bytes an entry, plus 8 in the list).
+const keyTableBytes = 48
+
+// StateBytes returns the estimate of the bytes the state holds that
+// Config.MemoryBudget is held to.
+func (e *Engine) StateBytes() int64 {
+	n := e.keyBase
+	for i := range e.totals {
+		n += e.totals[i].held
+	}
+	return n
+}
+
+// overBudget returns a rejection when a new key would pass the memory budget.
+func (e *Engine) overBudget(key string) error {
+	if b := e.cfg.MemoryBudget; b > 0 {
+		if n := e.StateBytes(); n >= b {
+			return reject(RejectMemory, "key %q is new and the state holds about %s, at its memory budget of %s: new keys are refused, "+
+				"known ones go on learning; raise the memory budget to take more keys", truncate(key), bytesText(n), bytesText(b))
+		}
+	}
+	return nil
+}
+
+// bytesText writes n bytes in binary units, for messages.
+func bytesText(n int64) string {
+	switch {
+	case n >= 1<<30:
+		return fmt.Sprintf("%.1f GiB", float64(n)/(1<<30))
+	case n >= 1<<20:
+		return fmt.Sprintf("%.1f MiB", float64(n)/(1<<20))
+	case n >= 1<<10:
+		return fmt.Sprintf("%.1f KiB", float64(n)/(1<<10))
+	}
+	return fmt.Sprintf("%d bytes", n)
 }
 
 // lookup returns the state of key, or nil.
@@ -541,7 +624,7 @@ func (e *Engine) Publish() *Engine {
 		applied: e.applied, rejected: e.rejected, duplicates: e.duplicates, ignored: e.ignored, alarms: e.alarms, skipped: e.skipped,
 		totals: slices.Clone(e.totals), hwm: maps.Clone(e.hwm), lastPred: slices.Clone(e.lastPred), lastOK: slices.Clone(e.lastOK),
 		scratch: make([]*scratch, len(e.scratch)), drift: e.drift,
-		seed: e.seed, root: e.root, frozen: true, nkeys: len(e.keys)}
+		seed: e.seed, root: e.root, frozen: true, nkeys: len(e.keys), keyBase: e.keyBase}
 	for i := range v.totals {
 		if a := v.totals[i].lastAlarm; a != nil {
 			c := *a
@@ -558,7 +641,7 @@ func (e *Engine) own(ks *keyState) *keyState {
 	c := &keyState{key: ks.key, partition: ks.partition, slots: make([]slot, len(ks.slots)), hash: ks.hash, epoch: e.epoch, idx: ks.idx}
 	for i := range ks.slots {
 		s := &ks.slots[i]
-		c.slots[i] = slot{learner: s.learner.clone(), score: s.score.clone(), drift: s.drift}
+		c.slots[i] = slot{learner: s.learner.clone(), score: s.score.clone(), drift: s.drift, held: s.held}
 	}
 	e.keys[c.key] = c
 	e.byName[c.idx] = c
@@ -567,22 +650,41 @@ func (e *Engine) own(ks *keyState) *keyState {
 }
 
 // Digest returns the hex SHA-256 of a canonical description of the
-// configuration (learner names and canonical specs, features, key cap,
-// scoring and drift settings, defaults filled in). A checkpoint records it so
-// that a resume under another configuration is refused.
-func (c Config) Digest() string {
+// configuration (learner names and canonical specs, features, scoring and
+// drift settings, defaults filled in). A checkpoint records it so that a
+// resume under another configuration is refused. The capacity limits (key
+// cap, memory budget) are not in it: they decide which new keys are taken,
+// not what a state means, and an operator may raise them and resume.
+func (c Config) Digest() string { return c.digest(false, 0) }
+
+// Digests returns the digests a checkpoint of this configuration may carry:
+// Digest, and those builds before the capacity limits left the digest
+// wrote, with the key cap in it: the one configured, or the default of
+// those builds, 10 000.
+func (c Config) Digests() []string {
+	out := []string{c.Digest(), c.digest(true, legacyMaxKeys)}
+	if c.MaxKeys != 0 && c.MaxKeys != legacyMaxKeys && c.MaxKeys != DefaultMaxKeys {
+		out = append(out, c.digest(true, c.MaxKeys))
+	}
+	return out
+}
+
+// legacyMaxKeys was DefaultMaxKeys while the key cap was in the digest.
+const legacyMaxKeys = 10_000
+
+func (c Config) digest(withCap bool, maxKeys int) string {
 	c.Score = c.Score.withDefaults()
 	c.Drift = c.Drift.withDefaults()
-	if c.MaxKeys == 0 {
-		c.MaxKeys = DefaultMaxKeys
-	}
 	h := sha256.New()
 	for _, s := range c.Learners {
 		fmt.Fprintf(h, "learner %q %s\n", s.Name, s.Canonical())
 	}
 	f := c.Features
 	fmt.Fprintf(h, "numeric %q\ncategorical %q\nbuckets %d\ntime %t\n", f.Numeric, f.Categorical, bucketsOf(f), f.TimeFeatures)
-	fmt.Fprintf(h, "max_keys %d\nscore %d %g\ndrift %g %g %d %t\n", c.MaxKeys, c.Score.Recent, c.Score.Fading,
+	if withCap {
+		fmt.Fprintf(h, "max_keys %d\n", maxKeys)
+	}
+	fmt.Fprintf(h, "score %d %g\ndrift %g %g %d %t\n", c.Score.Recent, c.Score.Fading,
 		c.Drift.Delta, c.Drift.Lambda, c.Drift.MinEvents, c.Drift.Raw)
 	return hex.EncodeToString(h.Sum(nil))
 }

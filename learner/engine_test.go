@@ -372,7 +372,13 @@ func TestBytesPerKey(t *testing.T) {
 		runtime.GC()
 		runtime.ReadMemStats(&after)
 		perKey := (int64(after.HeapAlloc) - int64(before.HeapAlloc)) / int64(len(keys))
-		t.Logf("%s: %d bytes a key (two events, d = 8)", strings.Join(c.specs, " + "), perKey)
+		estimate := e.StateBytes() / int64(len(keys))
+		t.Logf("%s: %d bytes a key (two events, d = 8); estimated %d", strings.Join(c.specs, " + "), perKey, estimate)
+		// The memory budget's estimate counts what is held, not the
+		// allocations' rounding and doubling: it should be near.
+		if r := float64(perKey) / float64(estimate); r < 0.8 || r > 1.6 {
+			t.Errorf("%s: the estimate %d is %.2f of the %d measured", strings.Join(c.specs, " + "), estimate, 1/r, perKey)
+		}
 		if perKey > c.bound {
 			t.Errorf("%s: %d bytes a key, bound %d", strings.Join(c.specs, " + "), perKey, c.bound)
 		}
@@ -534,4 +540,56 @@ func TestPublishWhileApplying(t *testing.T) {
 	}
 	close(done)
 	wg.Wait()
+}
+
+// TestMemoryBudget: past its memory budget the engine refuses events of new
+// keys (kind memory_budget) and goes on learning the keys it has; the
+// estimate it holds to is a function of the state, so a run cut in two by a
+// checkpoint refuses exactly the keys an uninterrupted run refuses.
+func TestMemoryBudget(t *testing.T) {
+	cfg := Config{MemoryBudget: 200 << 10}
+	events := manyKeys(4000, 400, 11)
+	a := mustEngine(t, cfg, "rls:forget=0.99", "mean:window=20")
+	refused := map[string]bool{}
+	for i, ev := range events {
+		before := a.StateBytes()
+		_, err := a.Apply(Position{Offset: int64(i)}, ev)
+		var r *Rejection
+		switch {
+		case errors.As(err, &r) && r.Kind == RejectMemory:
+			if before < cfg.MemoryBudget {
+				t.Fatalf("event %d refused at %d bytes, under the budget", i, before)
+			}
+			if !strings.Contains(err.Error(), "memory budget") {
+				t.Errorf("the refusal does not say why: %v", err)
+			}
+			refused[ev.Key] = true
+		case err != nil:
+			t.Fatal(err)
+		case refused[ev.Key]:
+			t.Fatalf("key %s was refused, then taken", ev.Key)
+		}
+	}
+	r := a.Report(false)
+	if len(refused) == 0 || r.Keys == 400 || r.StateBytes < cfg.MemoryBudget {
+		t.Fatalf("keys %d, refused %d, state %d bytes of a %d budget: the budget did not bind", r.Keys, len(refused), r.StateBytes, cfg.MemoryBudget)
+	}
+	if r.Rejected == 0 || r.Events+r.Rejected != int64(len(events)) {
+		t.Errorf("applied %d and rejected %d of %d", r.Events, r.Rejected, len(events))
+	}
+	// Cut in two: the second half resumes from the first half's bytes.
+	b := mustEngine(t, cfg, "rls:forget=0.99", "mean:window=20")
+	for i, ev := range events[:1700] {
+		b.Apply(Position{Offset: int64(i)}, ev)
+	}
+	c := mustEngine(t, cfg, "rls:forget=0.99", "mean:window=20")
+	if err := c.Decode(b.Encode(nil)); err != nil {
+		t.Fatal(err)
+	}
+	for i, ev := range events[1700:] {
+		c.Apply(Position{Offset: int64(1700 + i)}, ev)
+	}
+	if a.Digest() != c.Digest() || mustJSON(t, a.Report(false)) != mustJSON(t, c.Report(false)) {
+		t.Error("a run resumed from a checkpoint refuses other keys than an uninterrupted one")
+	}
 }

@@ -3,6 +3,7 @@ package learner
 import (
 	"math"
 	"slices"
+	"unsafe"
 
 	"tidemark/window"
 )
@@ -55,6 +56,12 @@ type neighbor struct {
 }
 
 var _ Learner = (*KNN)(nil)
+
+// held implements Learner.
+func (m *KNN) held() int64 {
+	return int64(unsafe.Sizeof(*m)) + int64(len(m.moms))*int64(unsafe.Sizeof(window.Moments{})+8) +
+		int64(cap(m.best))*int64(unsafe.Sizeof(neighbor{})) + m.w.held()
+}
 
 // clone implements Learner.
 func (m *KNN) clone() Learner {

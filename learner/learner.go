@@ -31,6 +31,11 @@ type Learner interface {
 	// with the original: the engine copies a key it published before
 	// changing it, on the same goroutine).
 	clone() Learner
+	// held estimates the bytes the learner holds, from what it holds (rows,
+	// coefficients), not from its allocations: the same for a learner and
+	// its decoded copy, so that a memory budget refuses the same keys after
+	// a restart as without one.
+	held() int64
 
 	encode(w *encoder)
 	decode(r *decoder) error

@@ -1,6 +1,9 @@
 package learner
 
-import "tidemark/window"
+import (
+	"tidemark/window"
+	"unsafe"
+)
 
 // Mean predicts the mean target over its window — the last Count events,
 // those within Span of event time, or all (the default). It is the baseline
@@ -21,6 +24,9 @@ type Mean struct {
 }
 
 var _ Learner = (*Mean)(nil)
+
+// held implements Learner.
+func (m *Mean) held() int64 { return int64(unsafe.Sizeof(*m)) + m.w.held() }
 
 // clone implements Learner.
 func (m *Mean) clone() Learner {

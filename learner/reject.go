@@ -13,6 +13,9 @@ const (
 	RejectTime
 	// RejectKeyCap: the event's key would be new, past the cap on keys.
 	RejectKeyCap
+	// RejectMemory: the event's key would be new and the state is at its
+	// memory budget.
+	RejectMemory
 )
 
 func (k RejectKind) String() string {
@@ -23,6 +26,8 @@ func (k RejectKind) String() string {
 		return "time"
 	case RejectKeyCap:
 		return "key_cap"
+	case RejectMemory:
+		return "memory_budget"
 	}
 	return fmt.Sprintf("RejectKind(%d)", int(k))
 }
@@ -85,6 +90,9 @@ func (v *Validator) Check(ev *Event) error {
 	if v.e.lookup(ev.Key) == nil && !v.newKeys[ev.Key] {
 		if n := v.e.numKeys() + len(v.newKeys); n >= v.e.cfg.MaxKeys {
 			return reject(RejectKeyCap, "key %q would be key number %d, past the cap of %d", truncate(ev.Key), n+1, v.e.cfg.MaxKeys)
+		}
+		if err := v.e.overBudget(ev.Key); err != nil {
+			return err
 		}
 		v.newKeys[ev.Key] = true
 	}

@@ -5,15 +5,18 @@ import "time"
 // Report is a snapshot of every learner's prequential metrics; it is the
 // object `tidemark replay --json` prints and GET /v1/learners serves.
 type Report struct {
-	Events          int64           `json:"events"` // events applied (trained on)
-	Rejected        int64           `json:"rejected"`
-	Duplicates      int64           `json:"duplicates"`
-	Skipped         int64           `json:"skipped"` // passed over by a restore that skipped a range
-	IgnoredFeatures int64           `json:"ignored_features"`
-	Keys            int             `json:"keys"`
-	RecentWindow    int             `json:"recent_window"` // scored events per key in the "recent" metrics
-	Positions       []Position      `json:"positions"`
-	Learners        []LearnerReport `json:"learners"`
+	Events          int64 `json:"events"` // events applied (trained on)
+	Rejected        int64 `json:"rejected"`
+	Duplicates      int64 `json:"duplicates"`
+	Skipped         int64 `json:"skipped"` // passed over by a restore that skipped a range
+	IgnoredFeatures int64 `json:"ignored_features"`
+	Keys            int   `json:"keys"`
+	// StateBytes estimates the bytes the model state holds (windows,
+	// coefficients, scorers): what Config.MemoryBudget is held to.
+	StateBytes   int64           `json:"state_bytes"`
+	RecentWindow int             `json:"recent_window"` // scored events per key in the "recent" metrics
+	Positions    []Position      `json:"positions"`
+	Learners     []LearnerReport `json:"learners"`
 }
 
 // LearnerReport is one learner's metrics, overall and (optionally) per key.
@@ -28,8 +31,11 @@ type LearnerReport struct {
 	Drift DriftReport `json:"drift"`
 	// Late counts the events that were already older than this learner's
 	// time window on arrival: scored, but not stored (0 without a time window).
-	Late int64       `json:"late"`
-	Keys []KeyReport `json:"keys,omitempty"`
+	Late int64 `json:"late"`
+	// StateBytes estimates the bytes this learner holds over all keys
+	// (model, scorer, drift detector; see Report.StateBytes).
+	StateBytes int64       `json:"state_bytes"`
+	Keys       []KeyReport `json:"keys,omitempty"`
 }
 
 // lateCounter is implemented by learners with a time window.
@@ -62,7 +68,7 @@ type AlarmReport struct {
 // the number of keys; withKeys adds per-key metrics (a visit of every key).
 func (e *Engine) Report(withKeys bool) Report {
 	r := Report{Events: e.applied, Rejected: e.rejected, Duplicates: e.duplicates, Skipped: e.skipped, IgnoredFeatures: e.ignored,
-		Keys: e.numKeys(), RecentWindow: e.cfg.Score.Recent, Positions: e.Positions()}
+		Keys: e.numKeys(), StateBytes: e.StateBytes(), RecentWindow: e.cfg.Score.Recent, Positions: e.Positions()}
 	var keys []*keyState
 	if withKeys {
 		// Keys by name alone, not by partition.
@@ -71,7 +77,7 @@ func (e *Engine) Report(withKeys bool) Report {
 	for i := range e.cfg.Learners {
 		s := &e.cfg.Learners[i]
 		t := &e.totals[i]
-		lr := LearnerReport{Name: s.Name, Spec: s.Text, Kind: s.Kind.String(), Metrics: t.pool.metrics(), Late: t.late}
+		lr := LearnerReport{Name: s.Name, Spec: s.Text, Kind: s.Kind.String(), Metrics: t.pool.metrics(), Late: t.late, StateBytes: t.held}
 		if e.baseline >= 0 {
 			lr.Skill = Skill(lr.Metrics, e.totals[e.baseline].pool.metrics())
 		}

@@ -3,6 +3,7 @@ package learner
 import (
 	"math"
 	"time"
+	"unsafe"
 )
 
 // RLS is exponentially weighted recursive least squares on the regressors
@@ -60,6 +61,11 @@ func newRLSShared(cfg RLSConfig, d int, sp **scratch) *RLS {
 	m.qr.reset(priorDiag(cfg.P0))
 	m.rankDef = p
 	return m
+}
+
+// held implements Learner.
+func (m *RLS) held() int64 {
+	return int64(unsafe.Sizeof(*m)) + 8*int64(len(m.qr.r)+len(m.qr.z)+len(m.theta))
 }
 
 // clone implements Learner.

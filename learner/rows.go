@@ -55,6 +55,9 @@ func (r *rows) alloc(size int) {
 
 func (r *rows) len() int { return r.idx.Len() }
 
+// held estimates the bytes of the rows held: features, target and time.
+func (r *rows) held() int64 { return int64(r.idx.Len()) * int64(8*r.d+16) }
+
 // clone returns an independent copy.
 func (r *rows) clone() rows {
 	c := *r

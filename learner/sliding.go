@@ -1,5 +1,7 @@
 package learner
 
+import "unsafe"
+
 // SlidingRLS is the exact least-squares fit over the events in a sliding
 // window (the last Count events, or those within Span of event time of the
 // newest):
@@ -47,6 +49,11 @@ func newSlidingShared(cfg SlidingConfig, d int, sp **scratch) *SlidingRLS {
 	p := ex.p()
 	qr, theta := newSqrtInfo(p, useScratch(sp, p), p)
 	return &SlidingRLS{cfg: cfg, ex: ex, w: newRows(p, cfg.Window, cfg.Max), qr: qr, theta: theta, rankDef: p}
+}
+
+// held implements Learner.
+func (m *SlidingRLS) held() int64 {
+	return int64(unsafe.Sizeof(*m)) + 8*int64(len(m.qr.r)+len(m.qr.z)+len(m.theta)) + m.w.held()
 }
 
 // clone implements Learner.

@@ -12,6 +12,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"slices"
 
 	"tidemark/checkpoint"
 	"tidemark/learner"
@@ -57,7 +58,7 @@ func Save(store *checkpoint.Store, eng *learner.Engine, reason checkpoint.Reason
 // eng's configuration; otherwise the error wraps ErrResume and ends with
 // hint (what the user should do).
 func Adopt(eng *learner.Engine, c *checkpoint.Checkpoint, hint string) error {
-	if want := eng.Config().Digest(); c.Manifest.ConfigSHA256 != want {
+	if !slices.Contains(eng.Config().Digests(), c.Manifest.ConfigSHA256) {
 		return fmt.Errorf("%w: checkpoint %d was taken under another configuration of learners or features; %s", ErrResume, c.Manifest.Version, hint)
 	}
 	if err := eng.DecodeSections(FromCheckpoint(c.Sections)); err != nil {

@@ -84,10 +84,14 @@ func splitLearners(specs []learner.Spec, n int) [][]int {
 // configuration, as one engine would.
 func mergeReports(cfg learner.Config, groups [][]int, engines []*learner.Engine) learner.Report {
 	out := engines[0].Report(true)
+	for _, l := range out.Learners {
+		out.StateBytes -= l.StateBytes // what is left is the keys' own share, once
+	}
 	out.Learners = make([]learner.LearnerReport, len(cfg.Learners))
 	for g, eng := range engines {
 		for k, l := range eng.Report(true).Learners {
 			out.Learners[groups[g][k]] = l
+			out.StateBytes += l.StateBytes
 		}
 	}
 	base := slices.IndexFunc(cfg.Learners, func(s learner.Spec) bool { return s.Kind == learner.KindMean })

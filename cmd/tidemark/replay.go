@@ -24,6 +24,7 @@ type engineFlags struct {
 	timeFeatures bool
 	hashBuckets  int
 	maxKeys      int
+	memoryBudget byteSize
 	numeric      string
 	categorical  string
 }
@@ -35,13 +36,15 @@ func (f *engineFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&f.numeric, "numeric", "", "fix the schema's numeric features, comma-separated (default: from the first valid event)")
 	fs.StringVar(&f.categorical, "categorical", "", "fix the schema's categorical (string) features, comma-separated")
 	fs.IntVar(&f.maxKeys, "max-keys", learner.DefaultMaxKeys, "cap on distinct keys; events for new keys past it are rejected")
+	f.memoryBudget = byteSize(defaultMemoryBudget())
+	fs.Var(&f.memoryBudget, "memory-budget", "most the model state may hold (e.g. 8GiB, 512MiB; 0 for none); events of new keys past it are\nrejected, known keys go on learning (default: half of this machine's memory)")
 }
 
 func (f *engineFlags) config() (learner.Config, error) {
 	cfg := learner.Config{
 		Features: learner.FeatureConfig{HashBuckets: f.hashBuckets, TimeFeatures: f.timeFeatures,
 			Numeric: splitList(f.numeric), Categorical: splitList(f.categorical)},
-		MaxKeys: f.maxKeys,
+		MaxKeys: f.maxKeys, MemoryBudget: int64(f.memoryBudget),
 	}
 	var errs []error
 	for _, text := range f.learners {

@@ -40,6 +40,7 @@ type fileConfig struct {
 	BodyLimit          int64    `yaml:"body_limit"`
 	MaxRows            int      `yaml:"max_rows"`
 	MaxKeys            int      `yaml:"max_keys"`
+	MemoryBudget       string   `yaml:"memory_budget"`
 	Features           struct {
 		Numeric      []string `yaml:"numeric"`
 		Categorical  []string `yaml:"categorical"`
@@ -205,6 +206,11 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	}
 	if !set["max-keys"] && fc.MaxKeys != 0 {
 		ef.maxKeys = fc.MaxKeys
+	}
+	if !set["memory-budget"] && fc.MemoryBudget != "" {
+		if err := ef.memoryBudget.Set(fc.MemoryBudget); err != nil {
+			problems = append(problems, fmt.Errorf("memory_budget: %w", err))
+		}
 	}
 	if !set["numeric"] && len(fc.Features.Numeric) > 0 {
 		ef.numeric = strings.Join(fc.Features.Numeric, ",")
