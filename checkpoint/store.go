@@ -26,7 +26,7 @@ import (
 
 // Defaults of StoreConfig.
 const (
-	DefaultRetain      = 20
+	DefaultRetain = 20
 	// DefaultMaxRawBytes bounds a checkpoint's decoded state: 16 GiB, room
 	// for some 15 million keys of rls + mean (10⁶ such keys encode to
 	// 1.05 GB), as the engine can hold that many on a large machine. A
