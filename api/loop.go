@@ -297,7 +297,7 @@ func (l *loop) apply(it item) {
 		if rj := (*learner.Rejection)(nil); errors.As(err, &rj) {
 			reason = rj.Kind.String()
 		}
-		l.metrics.rejections.WithLabelValues(reason).Inc()
+		l.metrics.rejected(reason).Inc()
 		l.dead.add(it.pos, err, it.data)
 	} else if a := l.eng.Alarms(); a != l.lastAlarms {
 		l.lastAlarms = a

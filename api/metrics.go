@@ -3,6 +3,7 @@ package api
 import (
 	"net/http"
 	"strconv"
+	"sync"
 	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
@@ -22,6 +23,7 @@ type metrics struct {
 	faults             *prometheus.CounterVec
 	lost               prometheus.Counter
 	rejections         *prometheus.CounterVec
+	byReason           sync.Map // reason → prometheus.Counter of rejections, looked up once
 	refused            *prometheus.CounterVec
 }
 
@@ -144,4 +146,14 @@ func (c *snapshotCollector) Collect(ch chan<- prometheus.Metric) {
 	}
 	gauge(descReady, ready)
 	gauge(descStopped, stopped)
+}
+
+// rejected returns the rejection counter of a reason.
+func (m *metrics) rejected(reason string) prometheus.Counter {
+	if c, ok := m.byReason.Load(reason); ok {
+		return c.(prometheus.Counter)
+	}
+	c := m.rejections.WithLabelValues(reason)
+	m.byReason.Store(reason, c)
+	return c
 }

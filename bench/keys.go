@@ -14,6 +14,7 @@ import (
 	"syscall"
 	"time"
 
+	"tidemark/api"
 	"tidemark/api/intake"
 	"tidemark/api/persist"
 	"tidemark/api/replay"
@@ -258,4 +259,93 @@ func keysScale() string {
 		"writing and syncing the same bytes %.2f s: write/floor %.1f\n",
 		n, strings.Join(keysSpecs, " + "), best[0].rate, best[0].rssMB, best[1].keys, best[1].rate, best[1].rssMB, ratio, verdict,
 		ck.keys, float64(ck.ckBytes)/(1<<20), ck.ckWrite, ck.ckLoad, ckVerdict, ck.floor, ck.ckWrite/ck.floor)
+}
+
+// rejectFlood is issue 13's flood: the service reading a history of 300
+// good events on 10 keys, then n events each of a new key past a cap of 10
+// keys (rejected, written to the dead letters), against the same count of
+// events all accepted. Both through the whole service (history intake,
+// loop, dead letters, curve points every 100 applied events, publishing
+// every 5 ms), timed until the published state covers the last position;
+// in turn, three times, the best of each.
+func rejectFlood() string {
+	const n = 200_000
+	dir, err := os.MkdirTemp("", "tidemark-flood")
+	if err != nil {
+		return "flood: " + err.Error()
+	}
+	defer os.RemoveAll(dir)
+	write := func(name string, reject bool) (string, error) {
+		path := filepath.Join(dir, name)
+		f, err := os.Create(path)
+		if err != nil {
+			return "", err
+		}
+		w := bufio.NewWriter(f)
+		t0 := time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC)
+		for i := 0; i < 300+n; i++ {
+			key := "room-" + strconv.Itoa(i%10)
+			if reject && i >= 300 {
+				key = "new-" + strconv.Itoa(i)
+			}
+			fmt.Fprintf(w, `{"time":%q,"key":%q,"features":{"x":%d},"target":%d}`+"\n", t0.Add(time.Duration(i)*time.Second).Format(time.RFC3339), key, i%7, i%5)
+		}
+		if err := w.Flush(); err != nil {
+			return "", err
+		}
+		return path, f.Close()
+	}
+	good, err := write("good.ndjson", false)
+	if err != nil {
+		return "flood: " + err.Error()
+	}
+	bad, err := write("bad.ndjson", true)
+	if err != nil {
+		return "flood: " + err.Error()
+	}
+	run := func(history string) (float64, error) {
+		spec, _ := learner.ParseSpec("rls:forget=0.995")
+		cfg := api.Config{Listen: "127.0.0.1:0", DataDir: filepath.Join(dir, fmt.Sprint("data", time.Now().UnixNano())), History: history,
+			PublishEvery: 5 * time.Millisecond, Engine: learner.Config{Learners: []learner.Spec{spec}, MaxKeys: 10}}
+		svc, err := api.New(cfg)
+		if err != nil {
+			return 0, err
+		}
+		ctx, cancel := context.WithCancel(context.Background())
+		done := make(chan error, 1)
+		t0 := time.Now()
+		go func() { done <- svc.Run(ctx) }()
+		last := []learner.Position{{Partition: 0, Offset: 300 + n}}
+		for {
+			if _, ok := svc.Progress(last); ok {
+				break
+			}
+			select {
+			case err := <-done:
+				cancel()
+				return 0, fmt.Errorf("the service stopped: %v", err)
+			case <-time.After(time.Millisecond):
+			}
+		}
+		el := time.Since(t0).Seconds()
+		cancel()
+		<-done
+		return float64(300+n) / el, nil
+	}
+	var best [2]float64
+	for rep := 0; rep < 3; rep++ {
+		for i, h := range []string{good, bad} {
+			r, err := run(h)
+			if err != nil {
+				return "flood: " + err.Error()
+			}
+			best[i] = max(best[i], r)
+		}
+	}
+	verdict := "ok"
+	if best[1] < best[0]/2 {
+		verdict = "MISSED"
+	}
+	return fmt.Sprintf("flood: the service reading 300 good events, then %d events of new keys past a cap of 10 (rejected, dead-lettered)\n"+
+		"  all accepted: %8.0f events/s; the flood: %8.0f events/s; ratio %.2f (target ≥ 0.5): %s\n", n, best[0], best[1], best[1]/best[0], verdict)
 }
