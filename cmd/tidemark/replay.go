@@ -37,7 +37,7 @@ func (f *engineFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&f.categorical, "categorical", "", "fix the schema's categorical (string) features, comma-separated")
 	fs.IntVar(&f.maxKeys, "max-keys", learner.DefaultMaxKeys, "cap on distinct keys; events for new keys past it are rejected")
 	f.memoryBudget = byteSize(defaultMemoryBudget())
-	fs.Var(&f.memoryBudget, "memory-budget", "most the model state may hold (e.g. 8GiB, 512MiB; 0 for none); events of new keys past it are\nrejected, known keys go on learning (default: half of this machine's memory)")
+	fs.Var(&f.memoryBudget, "memory-budget", "most the model state may hold (e.g. 8GiB, 512MiB; 0 for none); events of new keys past it are\nrejected, known keys go on learning; the default is half of this machine's memory")
 }
 
 func (f *engineFlags) config() (learner.Config, error) {
