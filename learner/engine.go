@@ -388,8 +388,8 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 }
 
 func (e *Engine) newKey(key string, partition int32) *keyState {
-	n := len(e.cfg.Learners)
-	ks := &keyState{key: key, partition: partition, slots: make([]slot, n), hash: maphash.String(e.seed, key), epoch: e.epoch}
+	ks := allocKey(len(e.cfg.Learners))
+	ks.key, ks.partition, ks.hash, ks.epoch = key, partition, maphash.String(e.seed, key), e.epoch
 	d := e.schema.Dim()
 	for i := range e.cfg.Learners {
 		ks.slots[i].learner = newShared(&e.cfg.Learners[i], d, &e.scratch[i])
@@ -397,6 +397,43 @@ func (e *Engine) newKey(key string, partition int32) *keyState {
 		ks.slots[i].drift = newPageHinkleyShared(e.drift)
 	}
 	return ks
+}
+
+// allocKey returns an empty key state with n slots, in one allocation
+// with them for up to four learners: a key's header and its slots then
+// share cache lines, and a million keys are a million objects fewer.
+func allocKey(n int) *keyState {
+	switch n {
+	case 1:
+		b := new(struct {
+			ks keyState
+			s  [1]slot
+		})
+		b.ks.slots = b.s[:]
+		return &b.ks
+	case 2:
+		b := new(struct {
+			ks keyState
+			s  [2]slot
+		})
+		b.ks.slots = b.s[:]
+		return &b.ks
+	case 3:
+		b := new(struct {
+			ks keyState
+			s  [3]slot
+		})
+		b.ks.slots = b.s[:]
+		return &b.ks
+	case 4:
+		b := new(struct {
+			ks keyState
+			s  [4]slot
+		})
+		b.ks.slots = b.s[:]
+		return &b.ks
+	}
+	return &keyState{slots: make([]slot, n)}
 }
 
 // Prediction is the answer of one learner for one row.
@@ -638,7 +675,8 @@ func (e *Engine) Publish() *Engine {
 // own returns a copy of ks that the engine may change: ks was published in
 // an earlier epoch and is read by whoever holds that publish.
 func (e *Engine) own(ks *keyState) *keyState {
-	c := &keyState{key: ks.key, partition: ks.partition, slots: make([]slot, len(ks.slots)), hash: ks.hash, epoch: e.epoch, idx: ks.idx}
+	c := allocKey(len(ks.slots))
+	c.key, c.partition, c.hash, c.epoch, c.idx = ks.key, ks.partition, ks.hash, e.epoch, ks.idx
 	for i := range ks.slots {
 		s := &ks.slots[i]
 		c.slots[i] = slot{learner: s.learner.clone(), score: s.score.clone(), drift: s.drift, held: s.held}
