@@ -101,7 +101,7 @@ func decodeItem(it *item) {
 
 // restoreLatest loads the newest good checkpoint at start.
 func (l *loop) restoreLatest() error {
-	c, skipped, err := persist.Newest(l.store)
+	c, skipped, err := persist.AdoptNewest(l.store, l.eng, adoptHint)
 	for _, e := range skipped {
 		l.cfg.Log.Warn("skipping a checkpoint that fails its checks", "error", e)
 	}
@@ -114,9 +114,7 @@ func (l *loop) restoreLatest() error {
 	if err != nil {
 		return err
 	}
-	if err := l.adopt(c); err != nil {
-		return err
-	}
+	l.lastAlarms = l.eng.Alarms()
 	var src serviceSource
 	if json.Unmarshal(c.Manifest.Source, &src) == nil && src.Skip != nil {
 		l.skip = src.Skip
@@ -128,18 +126,13 @@ func (l *loop) restoreLatest() error {
 	return nil
 }
 
-// adopt decodes checkpoint c into the engine after checking its configuration.
-func (l *loop) adopt(c *checkpoint.Checkpoint) error {
-	if err := l.decodeInto(l.eng, c); err != nil {
-		return err
-	}
-	l.lastAlarms = l.eng.Alarms()
-	return nil
-}
+// adoptHint ends the error of a checkpoint taken under another configuration.
+const adoptHint = "start with the same settings, or point --data at another directory"
 
-// decodeInto decodes checkpoint c into eng after checking its configuration.
+// decodeInto decodes checkpoint c into eng after checking its configuration
+// (and, for a checkpoint opened without it, its state digest).
 func (l *loop) decodeInto(eng *learner.Engine, c *checkpoint.Checkpoint) error {
-	return persist.Adopt(eng, c, "start with the same settings, or point --data at another directory")
+	return persist.Adopt(eng, c, adoptHint)
 }
 
 // setCatchUp records the positions the engine must reach to be ready: what
@@ -484,16 +477,20 @@ func (l *loop) restore(v uint64, req RestoreRequest) cmdResult {
 	if err != nil {
 		return cmdResult{err: cmdErr(ErrInvalidRequest, "%v", err)}
 	}
-	c, err := l.store.Load(v)
-	if errors.Is(err, checkpoint.ErrNotFound) {
-		return cmdResult{err: cmdErr(ErrNoCheckpoint, "checkpoint %d does not exist; GET /v1/checkpoints lists them", v)}
-	}
-	if err != nil {
+	failsChecks := func(err error) cmdResult {
 		msg := fmt.Sprintf("checkpoint %d fails its checks and cannot be restored: %v", v, err)
 		if good, _, lerr := l.store.Latest(); lerr == nil {
 			msg += fmt.Sprintf("; the newest good version is %d", good.Manifest.Version)
 		}
 		return cmdResult{err: cmdErr(ErrConflict, "%s", msg).withCause(err)}
+	}
+	// Opened without its state digest, which is checked while it decodes.
+	c, err := l.store.Open(v)
+	if errors.Is(err, checkpoint.ErrNotFound) {
+		return cmdResult{err: cmdErr(ErrNoCheckpoint, "checkpoint %d does not exist; GET /v1/checkpoints lists them", v)}
+	}
+	if err != nil {
+		return failsChecks(err)
 	}
 	// The restored state is built beside the live one and becomes live only
 	// once the checkpoint recording it is durable: a restore happens as a
@@ -502,7 +499,9 @@ func (l *loop) restore(v uint64, req RestoreRequest) cmdResult {
 	if err != nil {
 		return cmdResult{err: err}
 	}
-	if err := l.decodeInto(eng, c); err != nil {
+	if err := l.decodeInto(eng, c); errors.Is(err, checkpoint.ErrCorrupt) {
+		return failsChecks(err)
+	} else if err != nil {
 		return cmdResult{err: err}
 	}
 	if mode == ResumeFromNow {

@@ -129,19 +129,22 @@ func replayChild(path, ckDir string) {
 	eng = nil
 	runtime.GC()
 	t0 = time.Now()
-	c, err := store.Load(info.Version)
+	// As a service starts: the newest checkpoint, its digest checked while
+	// it decodes.
+	fresh, err := learner.NewEngine(cfg)
+	var c *checkpoint.Checkpoint
 	if err == nil {
-		var fresh *learner.Engine
-		if fresh, err = learner.NewEngine(cfg); err == nil {
-			err = persist.Adopt(fresh, c, "")
-		}
+		c, _, err = persist.AdoptNewest(store, fresh, "")
+	}
+	if err == nil && (c == nil || c.Manifest.Version != info.Version) {
+		err = fmt.Errorf("adopted %v, not version %d", c, info.Version)
 	}
 	if err != nil {
 		fmt.Fprintln(os.Stderr, err)
 		os.Exit(1)
 	}
 	ckLoad := time.Since(t0).Seconds()
-	c = nil
+	c, fresh = nil, nil
 	runtime.GC()
 	floor, err := writeFloor(ckDir, info.Bytes)
 	if err != nil {

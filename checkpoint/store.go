@@ -96,12 +96,34 @@ type Info struct {
 	Error       string     `json:"error,omitempty"` // set, and nothing else trusted, when the file fails a check
 }
 
-// Checkpoint is a loaded, fully verified checkpoint.
+// Checkpoint is a loaded checkpoint: fully verified when it comes from Load,
+// all but its state digest when it comes from Open (see Verify).
 type Checkpoint struct {
 	Manifest Manifest
 	Sections []Section
 	Info     Info
+
+	file     string
+	verified bool
 }
+
+// Verify checks the state digest (the SHA-256 of every section's bytes
+// against the manifest's state_sha256), once; a mismatch wraps ErrCorrupt
+// and ErrChecksum. It reads Sections only, so it may run on another
+// goroutine while the caller decodes them.
+func (c *Checkpoint) Verify() error {
+	if c.verified {
+		return nil
+	}
+	if stateDigest(c.Sections) != c.Manifest.StateSHA256 {
+		return corrupt(c.file, 24, ErrChecksum, "state digest does not match state_sha256")
+	}
+	c.verified = true
+	return nil
+}
+
+// Verified reports whether Verify has passed (always, after Load).
+func (c *Checkpoint) Verified() bool { return c.verified }
 
 // Store is a directory of versioned checkpoints. See the package doc for the
 // guarantees. Safe for concurrent use.
@@ -641,6 +663,22 @@ func info(m *Manifest, name string, size int64, pinned bool) Info {
 // Load reads and verifies version v completely. A file that fails any check
 // returns an error wrapping ErrCorrupt; a missing one ErrNotFound.
 func (s *Store) Load(v uint64) (*Checkpoint, error) {
+	c, err := s.load(v, nil)
+	if err == nil {
+		err = c.Verify()
+	}
+	if err != nil {
+		s.forget(v)
+		return nil, err
+	}
+	return c, nil
+}
+
+// Open is Load without the state digest, which the caller checks with
+// Checkpoint.Verify before trusting the state: hashing a large state then
+// overlaps with decoding it. Every other check — length, CRC-32C, format,
+// sizes, decompression — is done.
+func (s *Store) Open(v uint64) (*Checkpoint, error) {
 	return s.load(v, nil)
 }
 
@@ -663,7 +701,7 @@ func (s *Store) load(v uint64, only []int32) (*Checkpoint, error) {
 	if err != nil {
 		return nil, fmt.Errorf("checkpoint: %w", err)
 	}
-	c, err := s.decode(name, b, only)
+	c, err := s.open(name, b, only)
 	if err != nil {
 		s.forget(v)
 		return nil, err
@@ -717,12 +755,27 @@ func (s *Store) cached(v uint64) (Info, bool) {
 
 // decode verifies a checkpoint file's bytes and decompresses its sections
 // (only those of the given partitions, with the global one, when only is not nil).
+// decode is open, and Verify of the whole state when every section was read.
 func (s *Store) decode(name string, b []byte, only []int32) (*Checkpoint, error) {
+	c, err := s.open(name, b, only)
+	if err == nil && only == nil {
+		err = c.Verify()
+	}
+	if err != nil {
+		return nil, err
+	}
+	return c, nil
+}
+
+// open checks and decompresses a file's sections (those of the given
+// partitions and the global one, or all when only is nil), all but the
+// state digest.
+func (s *Store) open(name string, b []byte, only []int32) (*Checkpoint, error) {
 	p, err := parseFile(name, b, s.cfg.MaxRawBytes)
 	if err != nil {
 		return nil, err
 	}
-	c := &Checkpoint{Manifest: p.manifest}
+	c := &Checkpoint{Manifest: p.manifest, file: name}
 	for i, e := range p.entries {
 		if only != nil && !e.global && !slices.Contains(only, e.partition) {
 			continue
@@ -739,11 +792,9 @@ func (s *Store) decode(name string, b []byte, only []int32) (*Checkpoint, error)
 		}
 		c.Sections = append(c.Sections, Section{Global: e.global, Partition: e.partition, Bytes: raw})
 	}
-	if only == nil && stateDigest(c.Sections) != p.manifest.StateSHA256 {
-		return nil, corrupt(name, 24, ErrChecksum, "state digest does not match state_sha256")
-	}
 	return c, nil
 }
+
 
 // List returns every checkpoint in the store, oldest first, from its
 // manifest: the file's structure and CRC-32C are checked, its state is not

@@ -56,15 +56,55 @@ func Save(store *checkpoint.Store, eng *learner.Engine, reason checkpoint.Reason
 
 // Adopt decodes checkpoint c into eng after checking that it was taken under
 // eng's configuration; otherwise the error wraps ErrResume and ends with
-// hint (what the user should do).
+// hint (what the user should do). A checkpoint not yet verified (Store.Open)
+// has its state digest checked while it is decoded, on another goroutine; on
+// a mismatch the error wraps checkpoint.ErrCorrupt and eng is unchanged.
 func Adopt(eng *learner.Engine, c *checkpoint.Checkpoint, hint string) error {
 	if !slices.Contains(eng.Config().Digests(), c.Manifest.ConfigSHA256) {
 		return fmt.Errorf("%w: checkpoint %d was taken under another configuration of learners or features; %s", ErrResume, c.Manifest.Version, hint)
 	}
-	if err := eng.DecodeSections(FromCheckpoint(c.Sections)); err != nil {
+	verified := make(chan error, 1)
+	go func() { verified <- c.Verify() }()
+	fresh, err := learner.NewEngine(eng.Config())
+	if err == nil {
+		err = fresh.DecodeSections(FromCheckpoint(c.Sections))
+	}
+	if verr := <-verified; verr != nil {
+		return verr
+	}
+	if err != nil {
 		return fmt.Errorf("checkpoint %d: %w", c.Manifest.Version, err)
 	}
+	*eng = *fresh
 	return nil
+}
+
+// AdoptNewest adopts the newest checkpoint of store that passes every check,
+// trying older ones in turn (see Adopt; each is opened without its digest,
+// which is checked while it decodes). It returns the checkpoint adopted (nil
+// when the store holds none; eng is then unchanged) and the errors of those
+// it passed over. A checkpoint of another configuration stops it with an
+// error wrapping ErrResume.
+func AdoptNewest(store *checkpoint.Store, eng *learner.Engine, hint string) (c *checkpoint.Checkpoint, skipped []error, err error) {
+	vs, err := store.Versions()
+	if err != nil {
+		return nil, nil, err
+	}
+	for i := len(vs) - 1; i >= 0; i-- {
+		c, err := store.Open(vs[i])
+		if err == nil {
+			err = Adopt(eng, c, hint)
+		}
+		switch {
+		case err == nil:
+			return c, skipped, nil
+		case errors.Is(err, checkpoint.ErrCorrupt), errors.Is(err, checkpoint.ErrNotFound):
+			skipped = append(skipped, err)
+		default:
+			return nil, skipped, err
+		}
+	}
+	return nil, skipped, nil
 }
 
 // Newest loads the newest checkpoint of store that passes every check. Newer
