@@ -795,7 +795,6 @@ func (s *Store) open(name string, b []byte, only []int32) (*Checkpoint, error) {
 	return c, nil
 }
 
-
 // List returns every checkpoint in the store, oldest first, from its
 // manifest: the file's structure and CRC-32C are checked, its state is not
 // decompressed (Load and Verify do that). A file that fails has only Version,
