@@ -230,30 +230,13 @@ func parseFile(file string, b []byte, maxRaw int64) (*parsed, error) {
 		return nil, corrupt(file, off-4, nil, "section count %d does not fit", n)
 	}
 	bodyOff := off + n*entryLen
-	var raw uint64
-	for i := 0; i < n; i++ {
-		e := entry{
-			global:    b[off] == kindGlobal,
-			partition: int32(binary.LittleEndian.Uint32(b[off+1:])),
-			raw:       binary.LittleEndian.Uint64(b[off+5:]),
-			stored:    binary.LittleEndian.Uint64(b[off+13:]),
-			offset:    bodyOff,
-		}
-		if b[off] > kindPartiton || (i == 0) != e.global {
-			return nil, corrupt(file, off, nil, "section %d has kind %d (the global section comes first, once)", i, b[off])
-		}
-		copy(e.sum[:], b[off+21:off+53])
-		e.hasSum = true
-		if e.stored > uint64(len(body)-bodyOff) {
-			return nil, corrupt(file, off+13, nil, "section %d stored length %d does not fit", i, e.stored)
-		}
-		raw += e.raw
-		if e.raw > uint64(maxRaw) || raw > uint64(maxRaw) {
-			return nil, corrupt(file, off+5, ErrTooLarge, "state of more than %d bytes (limit %d)", raw, maxRaw)
-		}
-		bodyOff += int(e.stored)
-		p.entries = append(p.entries, e)
-		off += entryLen
+	var (
+		raw uint64
+		err error
+	)
+	p.entries, bodyOff, raw, err = parseTable(file, b, off, n, entryLen, bodyOff, len(body), maxRaw)
+	if err != nil {
+		return nil, err
 	}
 	if bodyOff != len(body) {
 		return nil, corrupt(file, bodyOff, nil, "%d bytes after the last section", len(body)-bodyOff)
@@ -297,30 +280,11 @@ func parseFile2(file string, b []byte, maxRaw int64) (*parsed, error) {
 		return nil, corrupt(file, manOff, nil, "manifest: %v", err)
 	}
 	tableOff := manOff - n*entryLen2
-	off, bodyOff := tableOff, start
-	var raw uint64
-	for i := 0; i < n; i++ {
-		e := entry{
-			global:    b[off] == kindGlobal,
-			partition: int32(binary.LittleEndian.Uint32(b[off+1:])),
-			raw:       binary.LittleEndian.Uint64(b[off+5:]),
-			stored:    binary.LittleEndian.Uint64(b[off+13:]),
-			offset:    bodyOff,
-		}
-		if b[off] > kindPartiton || (i == 0) != e.global {
-			return nil, corrupt(file, off, nil, "section %d has kind %d (the global section comes first, once)", i, b[off])
-		}
-		if e.stored > uint64(tableOff-bodyOff) {
-			return nil, corrupt(file, off+13, nil, "section %d stored length %d does not fit", i, e.stored)
-		}
-		raw += e.raw
-		if e.raw > uint64(maxRaw) || raw > uint64(maxRaw) {
-			return nil, corrupt(file, off+5, ErrTooLarge, "state of more than %d bytes (limit %d)", raw, maxRaw)
-		}
-		bodyOff += int(e.stored)
-		p.entries = append(p.entries, e)
-		off += entryLen2
+	entries, bodyOff, raw, err := parseTable(file, b, tableOff, n, entryLen2, start, tableOff, maxRaw)
+	if err != nil {
+		return nil, err
 	}
+	p.entries = entries
 	if bodyOff != tableOff {
 		return nil, corrupt(file, bodyOff, nil, "%d bytes between the last section and the table", tableOff-bodyOff)
 	}
@@ -331,4 +295,40 @@ func parseFile2(file string, b []byte, maxRaw int64) (*parsed, error) {
 		return nil, corrupt(file, manOff, nil, "manifest state_sha256 %q is not a SHA-256", p.manifest.StateSHA256)
 	}
 	return p, nil
+}
+
+// parseTable reads n section entries of size size (format 1: with a SHA-256
+// each; format 2: without) from b at off, the sections' bodies starting at
+// bodyOff and ending by end. It returns them with each body's offset, where
+// the bodies end, and their raw size in all, checked against maxRaw.
+func parseTable(file string, b []byte, off, n, size, bodyOff, end int, maxRaw int64) ([]entry, int, uint64, error) {
+	var raw uint64
+	entries := make([]entry, 0, n)
+	for i := 0; i < n; i++ {
+		e := entry{
+			global:    b[off] == kindGlobal,
+			partition: int32(binary.LittleEndian.Uint32(b[off+1:])),
+			raw:       binary.LittleEndian.Uint64(b[off+5:]),
+			stored:    binary.LittleEndian.Uint64(b[off+13:]),
+			offset:    bodyOff,
+		}
+		if b[off] > kindPartiton || (i == 0) != e.global {
+			return nil, 0, 0, corrupt(file, off, nil, "section %d has kind %d (the global section comes first, once)", i, b[off])
+		}
+		if size == entryLen {
+			copy(e.sum[:], b[off+21:off+53])
+			e.hasSum = true
+		}
+		if e.stored > uint64(end-bodyOff) {
+			return nil, 0, 0, corrupt(file, off+13, nil, "section %d stored length %d does not fit", i, e.stored)
+		}
+		raw += e.raw
+		if e.raw > uint64(maxRaw) || raw > uint64(maxRaw) {
+			return nil, 0, 0, corrupt(file, off+5, ErrTooLarge, "state of more than %d bytes (limit %d)", raw, maxRaw)
+		}
+		bodyOff += int(e.stored)
+		entries = append(entries, e)
+		off += size
+	}
+	return entries, bodyOff, raw, nil
 }

@@ -106,6 +106,25 @@ func BenchmarkReport(b *testing.B) {
 	}
 }
 
+// keysEngine returns an engine of rls (d = 8) and the given mean spec, with
+// cfg's other settings and a cap of nk keys; nk key names; and an event of
+// eight features to fill in.
+func keysEngine(nk int, meanSpec string, cfg Config) (*Engine, []string, *Event) {
+	rls, _ := ParseSpec("rls:forget=0.99")
+	mean, _ := ParseSpec(meanSpec)
+	cfg.Learners, cfg.MaxKeys = []Spec{rls, mean}, nk
+	e, _ := NewEngine(cfg)
+	keys := make([]string, nk)
+	for i := range keys {
+		keys[i] = "meter-" + strconv.Itoa(i)
+	}
+	ev := &Event{Features: make([]Feature, 8)}
+	for j := range ev.Features {
+		ev.Features[j].Name = "x" + strconv.Itoa(j)
+	}
+	return e, keys, ev
+}
+
 // BenchmarkApplyKeys applies events of rls (d=8) + mean:window=100 spread
 // over 1 or 10⁶ keys (issue 13's case): the cost of an event should not
 // depend on how many keys the state holds. Keys are visited in a scattered
@@ -113,17 +132,7 @@ func BenchmarkReport(b *testing.B) {
 func BenchmarkApplyKeys(b *testing.B) {
 	for _, nk := range []int{1, 1_000_000} {
 		b.Run("keys="+strconv.Itoa(nk), func(b *testing.B) {
-			rls, _ := ParseSpec("rls:forget=0.99")
-			mean, _ := ParseSpec("mean:window=100")
-			e, _ := NewEngine(Config{Learners: []Spec{rls, mean}, MaxKeys: nk})
-			keys := make([]string, nk)
-			for i := range keys {
-				keys[i] = "meter-" + strconv.Itoa(i)
-			}
-			ev := &Event{Features: make([]Feature, 8)}
-			for j := range ev.Features {
-				ev.Features[j].Name = "x" + strconv.Itoa(j)
-			}
+			e, keys, ev := keysEngine(nk, "mean:window=100", Config{})
 			rng := rand.New(rand.NewPCG(1, 2))
 			b.ReportAllocs()
 			b.ResetTimer()
@@ -158,17 +167,7 @@ func BenchmarkPublish(b *testing.B) {
 				name = "keys=" + strconv.Itoa(nk) + "/publish"
 			}
 			b.Run(name, func(b *testing.B) {
-				rls, _ := ParseSpec("rls:forget=0.99")
-				mean, _ := ParseSpec("mean:window=10")
-				e, _ := NewEngine(Config{Learners: []Spec{rls, mean}, MaxKeys: nk, Score: ScoreConfig{Recent: 10}})
-				keys := make([]string, nk)
-				for i := range keys {
-					keys[i] = "meter-" + strconv.Itoa(i)
-				}
-				ev := &Event{Features: make([]Feature, 8)}
-				for j := range ev.Features {
-					ev.Features[j].Name = "x" + strconv.Itoa(j)
-				}
+				e, keys, ev := keysEngine(nk, "mean:window=10", Config{Score: ScoreConfig{Recent: 10}})
 				rng := rand.New(rand.NewPCG(1, 2))
 				off := int64(0)
 				apply := func(k string) {

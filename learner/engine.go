@@ -405,35 +405,25 @@ func (e *Engine) newKey(key string, partition int32) *keyState {
 func allocKey(n int) *keyState {
 	switch n {
 	case 1:
-		b := new(struct {
-			ks keyState
-			s  [1]slot
-		})
-		b.ks.slots = b.s[:]
-		return &b.ks
+		return allocWith(func(a *[1]slot) []slot { return a[:] })
 	case 2:
-		b := new(struct {
-			ks keyState
-			s  [2]slot
-		})
-		b.ks.slots = b.s[:]
-		return &b.ks
+		return allocWith(func(a *[2]slot) []slot { return a[:] })
 	case 3:
-		b := new(struct {
-			ks keyState
-			s  [3]slot
-		})
-		b.ks.slots = b.s[:]
-		return &b.ks
+		return allocWith(func(a *[3]slot) []slot { return a[:] })
 	case 4:
-		b := new(struct {
-			ks keyState
-			s  [4]slot
-		})
-		b.ks.slots = b.s[:]
-		return &b.ks
+		return allocWith(func(a *[4]slot) []slot { return a[:] })
 	}
 	return &keyState{slots: make([]slot, n)}
+}
+
+// allocWith allocates a key state followed by the slot array A.
+func allocWith[A any](slots func(*A) []slot) *keyState {
+	b := new(struct {
+		ks keyState
+		s  A
+	})
+	b.ks.slots = slots(&b.s)
+	return &b.ks
 }
 
 // Prediction is the answer of one learner for one row.
