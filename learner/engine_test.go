@@ -593,3 +593,25 @@ func TestMemoryBudget(t *testing.T) {
 		t.Error("a run resumed from a checkpoint refuses other keys than an uninterrupted one")
 	}
 }
+
+// TestPrefetchChangesNothing: reading a key's state ahead (as the replay
+// does for the next event) leaves the state bytes as they were, and
+// allocates nothing.
+func TestPrefetchChangesNothing(t *testing.T) {
+	events := manyKeys(3000, 100, 12)
+	a := mustEngine(t, Config{}, allKinds[:5]...)
+	b := mustEngine(t, Config{}, allKinds[:5]...)
+	for i, ev := range events {
+		a.Apply(Position{Offset: int64(i)}, ev)
+		if i+1 < len(events) {
+			b.Prefetch(events[i+1])
+		}
+		b.Apply(Position{Offset: int64(i)}, ev)
+	}
+	if a.Digest() != b.Digest() {
+		t.Error("prefetching changed the state")
+	}
+	if n := testing.AllocsPerRun(100, func() { b.Prefetch(events[7]) }); n != 0 {
+		t.Errorf("Prefetch allocates %v times", n)
+	}
+}

@@ -63,6 +63,15 @@ func (m *KNN) held() int64 {
 		int64(cap(m.best))*int64(unsafe.Sizeof(neighbor{})) + m.w.held()
 }
 
+// touch implements Learner.
+func (m *KNN) touch() float64 {
+	v := m.w.touch()
+	if len(m.moms) > 0 {
+		v += m.moms[0].Mean()
+	}
+	return v
+}
+
 // clone implements Learner.
 func (m *KNN) clone() Learner {
 	c := *m

@@ -36,6 +36,10 @@ type Learner interface {
 	// its decoded copy, so that a memory budget refuses the same keys after
 	// a restart as without one.
 	held() int64
+	// touch reads a word of each of the learner's arrays and returns
+	// something of it, so that the memory it will work on is on its way
+	// to the cache (see Engine.Prefetch).
+	touch() float64
 
 	encode(w *encoder)
 	decode(r *decoder) error

@@ -28,6 +28,9 @@ var _ Learner = (*Mean)(nil)
 // held implements Learner.
 func (m *Mean) held() int64 { return int64(unsafe.Sizeof(*m)) + m.w.held() }
 
+// touch implements Learner.
+func (m *Mean) touch() float64 { return m.w.touch() + float64(m.trained) }
+
 // clone implements Learner.
 func (m *Mean) clone() Learner {
 	c := *m

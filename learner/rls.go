@@ -68,6 +68,9 @@ func (m *RLS) held() int64 {
 	return int64(unsafe.Sizeof(*m)) + 8*int64(len(m.qr.r)+len(m.qr.z)+len(m.theta))
 }
 
+// touch implements Learner.
+func (m *RLS) touch() float64 { return m.qr.r[0] + m.qr.r[len(m.qr.r)-1] + m.theta[len(m.theta)-1] }
+
 // clone implements Learner.
 func (m *RLS) clone() Learner {
 	c := *m

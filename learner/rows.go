@@ -58,6 +58,19 @@ func (r *rows) len() int { return r.idx.Len() }
 // held estimates the bytes of the rows held: features, target and time.
 func (r *rows) held() int64 { return int64(r.idx.Len()) * int64(8*r.d+16) }
 
+// touch reads the newest row's target and time (see Learner.touch).
+func (r *rows) touch() float64 {
+	if r.idx.Len() == 0 {
+		return 0
+	}
+	s := r.idx.Slot(r.idx.Len() - 1)
+	v := r.y[s] + float64(r.t[s])
+	if r.d > 0 {
+		v += r.x[s*r.d]
+	}
+	return v
+}
+
 // clone returns an independent copy.
 func (r *rows) clone() rows {
 	c := *r

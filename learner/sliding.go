@@ -56,6 +56,11 @@ func (m *SlidingRLS) held() int64 {
 	return int64(unsafe.Sizeof(*m)) + 8*int64(len(m.qr.r)+len(m.qr.z)+len(m.theta)) + m.w.held()
 }
 
+// touch implements Learner.
+func (m *SlidingRLS) touch() float64 {
+	return m.qr.r[0] + m.qr.r[len(m.qr.r)-1] + m.theta[len(m.theta)-1] + m.w.touch()
+}
+
 // clone implements Learner.
 func (m *SlidingRLS) clone() Learner {
 	c := *m

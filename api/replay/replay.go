@@ -271,6 +271,10 @@ func (r *replayer) run(ctx context.Context, h *intake.History) error {
 		eof := false
 		for i := range batch {
 			it := &batch[i]
+			// With many keys, the next key's state is read ahead (learner.Engine.Prefetch).
+			if i+1 < len(batch) && batch[i+1].kind == lineEvent {
+				r.eng.Prefetch(&batch[i+1].ev)
+			}
 			if err = r.step(it); err != nil {
 				break
 			}
