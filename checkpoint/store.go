@@ -481,13 +481,18 @@ func (w *streamWriter) compress() {
 	open := false
 	end := func() {
 		if open && err == nil {
-			err = w.enc.Close()
+			if err = w.enc.Close(); err != nil {
+				w.failed.Store(true)
+			}
 			w.stored = append(w.stored, uint64(w.n-start))
 		}
 	}
 	for c := range w.work {
-		if err != nil {
-			continue // drain
+		if err != nil { // drain: the caller stops at its next Write
+			if c.b != nil {
+				w.free <- c.b[:0]
+			}
+			continue
 		}
 		if c.b == nil {
 			end()

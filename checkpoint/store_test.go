@@ -6,6 +6,7 @@ import (
 	"encoding/hex"
 	"errors"
 	"fmt"
+	"math/rand/v2"
 	"os"
 	"path/filepath"
 	"strings"
@@ -442,5 +443,68 @@ func TestFormatVersion1StillLoads(t *testing.T) {
 	os.WriteFile(filepath.Join(s.Dir(), FileName(1)), b, 0o600)
 	if _, err := s.Load(1); !errors.Is(err, ErrCorrupt) {
 		t.Errorf("a damaged version-1 file: %v, want ErrCorrupt", err)
+	}
+}
+
+// TestDiskFullDuringALargeState: the disk fills while a state many times the
+// writer's buffers is still being handed over; the writer must stop and say
+// so, not wait for buffers the failed compressor no longer returns.
+func TestDiskFullDuringALargeState(t *testing.T) {
+	ffs := &failFS{budget: 4 << 20}
+	s := openTest(t, StoreConfig{Dir: t.TempDir(), FS: ffs})
+	rng := rand.New(rand.NewPCG(1, 1))
+	chunk := make([]byte, 256<<10)
+	done := make(chan error, 1)
+	go func() {
+		_, err := s.WriteState(manifest(1), func(sink Sink) error {
+			sink.Begin(true, 0)
+			for i := 0; i < 200; i++ { // 50 MiB of incompressible bytes
+				for j := range chunk {
+					chunk[j] = byte(rng.Uint32())
+				}
+				if _, err := sink.Write(chunk); err != nil {
+					return err
+				}
+			}
+			return nil
+		})
+		done <- err
+	}()
+	select {
+	case err := <-done:
+		if !errors.Is(err, syscall.ENOSPC) {
+			t.Errorf("a full disk during a large state: %v, want ENOSPC", err)
+		}
+	case <-time.After(60 * time.Second):
+		t.Fatal("the writer hung after the disk filled")
+	}
+}
+
+// TestDiskFullAtAnyPoint: whatever byte the disk fills at — inside a
+// section's frame or where one ends — a write of many sections stops with
+// the error instead of waiting.
+func TestDiskFullAtAnyPoint(t *testing.T) {
+	secs := []Section{{Global: true, Bytes: []byte("global")}}
+	rng := rand.New(rand.NewPCG(2, 2))
+	for p := 0; p < 300; p++ {
+		b := make([]byte, 3000+rng.IntN(3000))
+		for j := range b {
+			b[j] = byte(rng.Uint32())
+		}
+		secs = append(secs, Section{Partition: int32(p), Bytes: b})
+	}
+	for budget := 10; budget < 1<<20; budget = budget*5/4 + 7 {
+		ffs := &failFS{budget: budget}
+		s := openTest(t, StoreConfig{Dir: t.TempDir(), FS: ffs})
+		done := make(chan error, 1)
+		go func() { _, err := s.Write(manifest(1), secs); done <- err }()
+		select {
+		case err := <-done:
+			if !errors.Is(err, syscall.ENOSPC) {
+				t.Fatalf("disk full after %d bytes: %v, want ENOSPC", budget, err)
+			}
+		case <-time.After(30 * time.Second):
+			t.Fatalf("disk full after %d bytes: the writer hung", budget)
+		}
 	}
 }
