@@ -2,23 +2,38 @@
 // verified store of checkpoints on disk. It knows the engine's state only as
 // opaque, already deterministic section bytes.
 //
-// # File format, version 1
+// # File format
 //
-// All integers are little-endian.
+// All integers are little-endian. This build writes version 2 and reads 1
+// and 2. Version 2 puts the table and manifest after the state, so that a
+// state is written as it is encoded, key by key (Store.WriteState):
 //
 //	offset  size   field
 //	0       8      magic "TMCKPT\r\n" (the CR LF catches text-mode mangling)
+//	8       4      format version, 2
+//	12      ...    the sections' bodies, in state order, each one zstd frame
+//	                 (RFC 8878) of its stored length
+//	T       21·S   section table, one entry per section, in state order:
+//	                 u8 kind (0 global, 1 partition), u32 partition,
+//	                 u64 raw length, u64 stored length
+//	T+21·S  M      manifest: UTF-8 JSON, the Manifest type
+//	L−20    4      section count S (at least 1)
+//	L−16    4      manifest length M
+//	L−12    8      total file length L in bytes
+//	L−4     4      CRC-32C (Castagnoli) of bytes 0..L−5
+//
+// Version 1 has the manifest and table first:
+//
+//	0       8      magic
 //	8       4      format version, 1
 //	12      8      total file length in bytes, trailer included
 //	20      4      manifest length M
-//	24      M      manifest: UTF-8 JSON, the Manifest type
-//	24+M    4      section count S (at least 1)
-//	...     53·S   section table, one entry per section, in state order:
-//	                 u8 kind (0 global, 1 partition), u32 partition,
-//	                 u64 raw length, u64 stored length, 32-byte SHA-256 of the raw bytes
-//	...            the sections' bodies, in table order, each one zstd frame
-//	                 (RFC 8878) of its stored length
-//	L−4     4      CRC-32C (Castagnoli) of bytes 0..L−5
+//	24      M      manifest
+//	24+M    4      section count S
+//	...     53·S   section table: as above, and a 32-byte SHA-256 of each
+//	                 section's raw bytes
+//	...            the sections' bodies, in table order
+//	L−4     4      CRC-32C of bytes 0..L−5
 //
 // The state digest state_sha256 in the manifest is the SHA-256 of the raw
 // section bytes concatenated in table order; it equals the engine's own state
@@ -30,15 +45,17 @@
 // # Verification
 //
 // A file is loaded only if every check passes, in this order: the magic; the
-// declared length equals the file's (a torn write is caught here); the CRC;
-// the format version; the manifest parses; the section table fits the file
-// exactly; the total raw length is within StoreConfig.MaxRawBytes (a guard
-// against decompression bombs, checked before anything is decompressed); each
-// body decompresses to exactly its raw length; each section's SHA-256; and the
-// state digest. A failing file yields an error wrapping ErrCorrupt (and a more
-// precise sentinel where there is one) with the file name and byte offset; it
-// is never loaded and never modified, and Store.Latest offers the newest
-// version that passes.
+// format version; the declared length equals the file's (a torn write is
+// caught here); the CRC, over the whole file before anything is decompressed;
+// the manifest parses; the section table fits the file exactly; the total raw
+// length is within StoreConfig.MaxRawBytes (a guard against decompression
+// bombs); each body decompresses to exactly its raw length; in version 1 each
+// section's SHA-256; and the state digest. Store.Load does all of them;
+// Store.Open all but the state digest, which Checkpoint.Verify checks (so
+// that hashing a large state can overlap with decoding it). A failing file
+// yields an error wrapping ErrCorrupt (and a more precise sentinel where
+// there is one) with the file name and byte offset; it is never loaded and
+// never modified, and Store.Latest offers the newest version that passes.
 //
 // # Store
 //

@@ -378,11 +378,9 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 		if windowed {
 			t.late += lc.Late() - late
 		}
-		if s := &ks.slots[i]; s.held != slotHeld(s) {
-			h := slotHeld(s)
-			t.held += h - s.held
-			s.held = h
-		}
+		held := slotHeld(&ks.slots[i])
+		t.held += held - ks.slots[i].held
+		ks.slots[i].held = held
 	}
 	e.applied++
 	return true, nil
@@ -497,18 +495,6 @@ func (e *Engine) CoverUpTo(ps []Position) {
 			e.hwm[p.Partition] = p.Offset
 		}
 	}
-}
-
-// Clone returns an independent copy of the engine, for publishing to readers.
-func (e *Engine) Clone() *Engine {
-	c, err := NewEngine(e.cfg)
-	if err != nil {
-		panic("learner: clone of a valid engine failed: " + err.Error())
-	}
-	if err := c.DecodeSections(e.Sections()); err != nil {
-		panic("learner: clone of a valid engine failed: " + err.Error())
-	}
-	return c
 }
 
 // addKey registers a new key's state in O(1) amortised: the key order

@@ -34,7 +34,13 @@ func TestExactHandExamples(t *testing.T) {
 	}{
 		{[]float64{1e308, 1, -1e308}, 1},
 		{[]float64{1, 1e100, 1, -1e100}, 2},
-		{[]float64{0.1, 0.2, -0.3}, 2.7755575615628914e-17}, // the doubles' exact values: 0.1+0.2−0.3 rounded once
+		// The doubles nearest 0.1, 0.2 and 0.3 are 0x1.999999999999ap-4,
+		// 0x1.999999999999ap-3 and 0x1.3333333333333p-2; in units of 2⁻⁵⁶
+		// they are 7205759403792794, 14411518807585588 and
+		// 21617278211378380, whose sum with the last negated is 2, so the
+		// exact result is 2⁻⁵⁵ = 2.7755575615628914e-17 (left to right in
+		// doubles it is 5.551115123125783e-17).
+		{[]float64{0.1, 0.2, -0.3}, 0x1p-55},
 		{[]float64{math.SmallestNonzeroFloat64, math.SmallestNonzeroFloat64}, 2 * math.SmallestNonzeroFloat64},
 		{[]float64{math.MaxFloat64, math.MaxFloat64}, math.Inf(1)},
 		{[]float64{math.MaxFloat64, math.MaxFloat64, -math.MaxFloat64}, math.MaxFloat64},
