@@ -594,18 +594,19 @@ func TestMemoryBudget(t *testing.T) {
 	}
 }
 
-// TestPrefetchChangesNothing: reading a key's state ahead (as the replay
-// does for the next event) leaves the state bytes as they were, and
-// allocates nothing.
+// TestPrefetchChangesNothing: reading keys' states ahead (as the replay
+// does, PrefetchAhead events ahead, and given the wrong events too) leaves
+// the state bytes as they were, and allocates nothing.
 func TestPrefetchChangesNothing(t *testing.T) {
 	events := manyKeys(3000, 100, 12)
 	a := mustEngine(t, Config{}, allKinds[:5]...)
 	b := mustEngine(t, Config{}, allKinds[:5]...)
 	for i, ev := range events {
 		a.Apply(Position{Offset: int64(i)}, ev)
-		if i+1 < len(events) {
-			b.Prefetch(events[i+1])
+		if j := i + PrefetchAhead; j < len(events) {
+			b.Prefetch(events[j])
 		}
+		b.Prefetch(events[(i*7)%len(events)])
 		b.Apply(Position{Offset: int64(i)}, ev)
 	}
 	if a.Digest() != b.Digest() {

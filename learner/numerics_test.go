@@ -271,7 +271,7 @@ func TestWindowedSumsDoNotDrift(t *testing.T) {
 			continue
 		}
 		lo := max(0, i+1-w)
-		ks := e.keys[""]
+		ks := e.lookup("")
 		// The mean baseline after training on event i.
 		wantMean, _ := twoPass(targets[lo : i+1])
 		if p, _ := ks.slots[0].learner.Predict(nil); !closeTo(p, wantMean, tol, 1) {

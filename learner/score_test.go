@@ -171,7 +171,7 @@ func TestRunningTotalsAreExactKeySums(t *testing.T) {
 		var scored, recN int64
 		var late int64
 		state := Stable
-		for _, ks := range e.keys {
+		for _, ks := range e.byName {
 			for j, v := range ks.slots[i].score.floats() {
 				sums[j].Add(sums[j], new(big.Float).SetFloat64(v))
 			}

@@ -3,6 +3,7 @@ package learner
 import (
 	"crypto/sha256"
 	"fmt"
+	"hash/maphash"
 	"slices"
 )
 
@@ -313,25 +314,26 @@ func (e *Engine) decodePartition(s Section) error {
 		return fmt.Errorf("%w: partition %d appears twice", ErrCorruptState, part)
 	}
 	e.hwm[part] = r.i64()
-	nk := r.count(e.cfg.MaxKeys-len(e.keys), 8)
+	nk := r.count(e.cfg.MaxKeys-e.keys.len(), 8)
 	if nk > 0 && e.schema == nil {
 		r.fail("keys without a schema")
 	}
-	if len(e.keys) == 0 && nk > 0 && r.err == nil {
+	if e.keys.len() == 0 && nk > 0 && r.err == nil {
 		// Room for the keys at once, not by doubling (nk is bounded by
 		// the bytes left: at least 8 a key).
-		e.keys = make(map[string]*keyState, nk)
+		e.keys = newKeyIndex(nk)
 		e.byName = make([]*keyState, 0, nk)
 	}
 	prev := ""
 	for i := 0; i < nk && r.err == nil; i++ {
 		key := r.str(MaxKeyBytes)
-		if _, dup := e.keys[key]; dup || (i > 0 && key <= prev) {
+		h := maphash.String(e.seed, key)
+		if e.keys.get(key, h) != nil || (i > 0 && key <= prev) {
 			r.fail("keys out of order or repeated")
 			break
 		}
 		prev = key
-		ks := e.newKey(key, part)
+		ks := e.newKey(key, h, part)
 		for j := range ks.slots {
 			l := ks.slots[j].learner
 			if err := l.decode(r); err != nil {

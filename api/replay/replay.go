@@ -272,8 +272,8 @@ func (r *replayer) run(ctx context.Context, h *intake.History) error {
 		for i := range batch {
 			it := &batch[i]
 			// With many keys, the next key's state is read ahead (learner.Engine.Prefetch).
-			if i+1 < len(batch) && batch[i+1].kind == lineEvent {
-				r.eng.Prefetch(&batch[i+1].ev)
+			if j := i + learner.PrefetchAhead; j < len(batch) && batch[j].kind == lineEvent {
+				r.eng.Prefetch(&batch[j].ev)
 			}
 			if err = r.step(it); err != nil {
 				break
