@@ -128,10 +128,11 @@ func (s *Store) writeStream(path string, m *Manifest, emit func(Sink) error) (in
 }
 
 // streamWriter is the Sink of WriteState. The caller's goroutine counts the
-// raw bytes and copies them into chunks; a second goroutine hashes them (the
-// state digest), compresses them, one zstd frame per section, and writes the
-// frames to the file under a running CRC-32C, so that encoding, hashing and
-// compressing overlap. Every syncEvery bytes written it starts a sync in
+// raw bytes, hashes them (the state digest) and copies them into chunks; a
+// second goroutine compresses them, one zstd frame per section, and writes
+// the frames to the file under a running CRC-32C, so that encoding and
+// hashing overlap with compressing (which costs about as much as the other
+// two together). Every syncEvery bytes written it starts a sync in
 // the background, so that the disk works while the state is still being
 // encoded and the final sync finds little left to do.
 type streamWriter struct {
@@ -231,7 +232,6 @@ func (w *streamWriter) compress() {
 			w.enc.Reset(fileSide{w})
 			continue
 		}
-		w.digest.Write(c.b)
 		if _, err = w.enc.Write(c.b); err != nil {
 			w.failed.Store(true)
 		}
@@ -271,6 +271,7 @@ func (w *streamWriter) Write(p []byte) (int, error) {
 			"it was not written, earlier versions are intact", ErrTooLarge, w.max)
 	}
 	w.entries[len(w.entries)-1].raw += uint64(len(p))
+	w.digest.Write(p)
 	n := len(p)
 	for len(p) > 0 {
 		if w.cur == nil {

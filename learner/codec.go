@@ -11,7 +11,10 @@ import (
 // encoder appends a deterministic little-endian encoding: fixed-width
 // integers and IEEE-754 bit patterns, length-prefixed strings and slices. No
 // map is ever iterated while encoding.
-type encoder struct{ b []byte }
+type encoder struct {
+	b    []byte
+	sink float64 // what reads ahead of the encoder read (touchAhead), kept so that they stay
+}
 
 func (w *encoder) u8(v uint8)    { w.b = append(w.b, v) }
 func (w *encoder) u32(v uint32)  { w.b = binary.LittleEndian.AppendUint32(w.b, v) }

@@ -627,18 +627,17 @@ func (e *Engine) numKeys() int {
 // keys among k, nothing when none is new. A published engine sorts a list
 // of its own on every call (it is read by many goroutines and changes nothing).
 func (e *Engine) ordered() []*keyState {
-	byKey := func(a, b *keyState) int { return strings.Compare(a.key, b.key) }
 	if e.frozen {
 		out := make([]*keyState, 0, e.nkeys)
 		e.root.each(func(ks *keyState) { out = append(out, ks) })
-		slices.SortFunc(out, byKey)
+		sortByKey(out)
 		return out
 	}
 	if e.sorted == len(e.byName) {
 		return e.byName
 	}
 	head, tail := e.byName[:e.sorted], slices.Clone(e.byName[e.sorted:])
-	slices.SortFunc(tail, byKey)
+	sortByKey(tail)
 	merged := make([]*keyState, 0, len(e.byName))
 	i, j := 0, 0
 	for i < len(head) && j < len(tail) {

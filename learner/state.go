@@ -89,7 +89,8 @@ func (e *Engine) EncodeSections(sink SectionSink) error {
 		w.u32(uint32(p.Partition))
 		w.i64(p.Offset)
 		w.int(len(keys))
-		for _, ks := range keys {
+		for i, ks := range keys {
+			w.sink += touchAhead(keys, i)
 			w.str(ks.key)
 			for n := range ks.slots {
 				s := &ks.slots[n]
@@ -109,6 +110,31 @@ func (e *Engine) EncodeSections(sink SectionSink) error {
 		}
 	}
 	return nil
+}
+
+// touchAhead reads ahead of an encoder at keys[i], in steps as Prefetch
+// does: the state of the key 6 ahead, the learners of the one 4 ahead, their
+// arrays 2 ahead (keys in key order lie anywhere in memory).
+func touchAhead(keys []*keyState, i int) float64 {
+	v := 0.0
+	if j := i + 6; j < len(keys) {
+		v += float64(len(keys[j].slots))
+	}
+	if j := i + 4; j < len(keys) {
+		for n := range keys[j].slots {
+			v += float64(keys[j].slots[n].learner.Trained())
+		}
+	}
+	if j := i + 2; j < len(keys) {
+		for n := range keys[j].slots {
+			s := &keys[j].slots[n]
+			v += s.learner.touch()
+			if len(s.score.rec) > 0 {
+				v += s.score.rec[0]
+			}
+		}
+	}
+	return v
 }
 
 func (e *Engine) encodeGlobal(w *encoder) {
