@@ -66,6 +66,7 @@ func main() {
 	only := flag.String("only", "", "run only the named extra: keys, flood or restore")
 	writeKeys := flag.String("write-keys-history", "", "write the keys case's history (2 M events, 10⁶ keys) to this file and exit")
 	ckDir := flag.String("checkpoint-dir", "", "with -replay-child: then time a checkpoint of the state written there and loaded back")
+	loadChildDir := flag.String("load-child", "", "internal: load the newest checkpoint in this directory and print the seconds it took (the keys case's child process)")
 	cpuprofile := flag.String("cpuprofile", "", "with -replay-child: write a CPU profile here")
 	flag.Parse()
 	if *writeKeys != "" {
@@ -75,7 +76,7 @@ func main() {
 		}
 		return
 	}
-	if *child != "" {
+	if *child != "" || *loadChildDir != "" {
 		if *cpuprofile != "" {
 			f, err := os.Create(*cpuprofile)
 			if err == nil {
@@ -83,7 +84,11 @@ func main() {
 				defer pprof.StopCPUProfile()
 			}
 		}
-		replayChild(*child, *ckDir)
+		if *loadChildDir != "" {
+			loadChild(*loadChildDir)
+		} else {
+			replayChild(*child, *ckDir)
+		}
 		return
 	}
 	switch *only {
