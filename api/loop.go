@@ -129,12 +129,6 @@ func (l *loop) restoreLatest() error {
 // adoptHint ends the error of a checkpoint taken under another configuration.
 const adoptHint = "start with the same settings, or point --data at another directory"
 
-// decodeInto decodes checkpoint c into eng after checking its configuration
-// (and, for a checkpoint opened without it, its state digest).
-func (l *loop) decodeInto(eng *learner.Engine, c *checkpoint.Checkpoint) error {
-	return persist.Adopt(eng, c, adoptHint)
-}
-
 // setCatchUp records the positions the engine must reach to be ready: what
 // the source holds now.
 func (l *loop) setCatchUp() {
@@ -484,8 +478,9 @@ func (l *loop) restore(v uint64, req RestoreRequest) cmdResult {
 		}
 		return cmdResult{err: cmdErr(ErrConflict, "%s", msg).withCause(err)}
 	}
-	// Opened without its state digest, which is checked while it decodes.
-	c, err := l.store.Open(v)
+	// Read once, as it decodes; its CRC-32C and state digest are known at
+	// the end, before the state is kept.
+	st, err := l.store.Stream(v)
 	if errors.Is(err, checkpoint.ErrNotFound) {
 		return cmdResult{err: cmdErr(ErrNoCheckpoint, "checkpoint %d does not exist; GET /v1/checkpoints lists them", v)}
 	}
@@ -497,9 +492,10 @@ func (l *loop) restore(v uint64, req RestoreRequest) cmdResult {
 	// whole or not at all.
 	eng, err := learner.NewEngine(l.eng.Config())
 	if err != nil {
+		st.Close()
 		return cmdResult{err: err}
 	}
-	if err := l.decodeInto(eng, c); errors.Is(err, checkpoint.ErrCorrupt) {
+	if err := persist.AdoptStream(eng, st, adoptHint); errors.Is(err, checkpoint.ErrCorrupt) {
 		return failsChecks(err)
 	} else if err != nil {
 		return cmdResult{err: err}

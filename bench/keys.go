@@ -130,7 +130,7 @@ func loadChild(dir string) {
 	defer store.Close()
 	t0 := time.Now()
 	eng, err := learner.NewEngine(keysConfig())
-	var c *checkpoint.Checkpoint
+	var c *checkpoint.Stream
 	if err == nil {
 		c, _, err = persist.AdoptNewest(store, eng, "")
 	}

@@ -52,7 +52,13 @@
 // bombs); each body decompresses to exactly its raw length; in version 1 each
 // section's SHA-256; and the state digest. Store.Load does all of them;
 // Store.Open all but the state digest, which Checkpoint.Verify checks (so
-// that hashing a large state can overlap with decoding it). A failing file
+// that hashing a large state can overlap with decoding it). Store.Stream
+// reads a format-2 file once, in order, without holding it or its state in
+// memory whole (how a service loads its state): it checks the magic, version,
+// length, manifest and table when it opens, each body's decompressed length
+// as it reads, and the CRC and the state digest when the last byte is read;
+// Stream.Close reports them, and a caller keeps what it decoded only if Close
+// returns nil. A failing file
 // yields an error wrapping ErrCorrupt (and a more precise sentinel where
 // there is one) with the file name and byte offset; it is never loaded and
 // never modified, and Store.Latest offers the newest version that passes.

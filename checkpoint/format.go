@@ -187,7 +187,7 @@ func parseFile(file string, b []byte, maxRaw int64) (*parsed, error) {
 		raw uint64
 		err error
 	)
-	p.entries, bodyOff, raw, err = parseTable(file, b, off, n, entryLen, bodyOff, len(body), maxRaw)
+	p.entries, bodyOff, raw, err = parseTable(file, b, off, 0, n, entryLen, bodyOff, len(body), maxRaw)
 	if err != nil {
 		return nil, err
 	}
@@ -233,7 +233,7 @@ func parseFile2(file string, b []byte, maxRaw int64) (*parsed, error) {
 		return nil, corrupt(file, manOff, nil, "manifest: %v", err)
 	}
 	tableOff := manOff - n*entryLen2
-	entries, bodyOff, raw, err := parseTable(file, b, tableOff, n, entryLen2, start, tableOff, maxRaw)
+	entries, bodyOff, raw, err := parseTable(file, b, tableOff, 0, n, entryLen2, start, tableOff, maxRaw)
 	if err != nil {
 		return nil, err
 	}
@@ -251,10 +251,10 @@ func parseFile2(file string, b []byte, maxRaw int64) (*parsed, error) {
 }
 
 // parseTable reads n section entries of size size (format 1: with a SHA-256
-// each; format 2: without) from b at off, the sections' bodies starting at
+// each; format 2: without) from b at off (byte base+off of the file), the sections' bodies starting at
 // bodyOff and ending by end. It returns them with each body's offset, where
 // the bodies end, and their raw size in all, checked against maxRaw.
-func parseTable(file string, b []byte, off, n, size, bodyOff, end int, maxRaw int64) ([]entry, int, uint64, error) {
+func parseTable(file string, b []byte, off, base, n, size, bodyOff, end int, maxRaw int64) ([]entry, int, uint64, error) {
 	var raw uint64
 	entries := make([]entry, 0, n)
 	for i := 0; i < n; i++ {
@@ -266,18 +266,18 @@ func parseTable(file string, b []byte, off, n, size, bodyOff, end int, maxRaw in
 			offset:    bodyOff,
 		}
 		if b[off] > kindPartiton || (i == 0) != e.global {
-			return nil, 0, 0, corrupt(file, off, nil, "section %d has kind %d (the global section comes first, once)", i, b[off])
+			return nil, 0, 0, corrupt(file, base+off, nil, "section %d has kind %d (the global section comes first, once)", i, b[off])
 		}
 		if size == entryLen {
 			copy(e.sum[:], b[off+21:off+53])
 			e.hasSum = true
 		}
 		if e.stored > uint64(end-bodyOff) {
-			return nil, 0, 0, corrupt(file, off+13, nil, "section %d stored length %d does not fit", i, e.stored)
+			return nil, 0, 0, corrupt(file, base+off+13, nil, "section %d stored length %d does not fit", i, e.stored)
 		}
 		raw += e.raw
 		if e.raw > uint64(maxRaw) || raw > uint64(maxRaw) {
-			return nil, 0, 0, corrupt(file, off+5, ErrTooLarge, "state of more than %d bytes (limit %d)", raw, maxRaw)
+			return nil, 0, 0, corrupt(file, base+off+5, ErrTooLarge, "state of more than %d bytes (limit %d)", raw, maxRaw)
 		}
 		bodyOff += int(e.stored)
 		entries = append(entries, e)

@@ -13,6 +13,7 @@ type FS interface {
 	MkdirAll(dir string) error            // create with mode 0700
 	ReadDir(dir string) ([]string, error) // names in the directory
 	ReadFile(path string) ([]byte, error) //
+	Open(path string) (OpenFile, error)   // for reading in place (Store.Stream)
 	Stat(path string) (fs.FileInfo, error)
 	Create(path string) (File, error)     // new file, mode 0600, failing if it exists
 	Rename(oldpath, newpath string) error //
@@ -20,6 +21,13 @@ type FS interface {
 	SyncDir(dir string) error             // make renames and removals in dir durable
 	// Lock takes an advisory lock without waiting (see OSFS.Lock).
 	Lock(path string, exclusive bool) (Locker, error)
+}
+
+// OpenFile is a file being read (FS.Open).
+type OpenFile interface {
+	io.ReaderAt
+	io.Seeker
+	io.Closer
 }
 
 // File is a file being written.
@@ -52,6 +60,9 @@ func (OSFS) ReadDir(dir string) ([]string, error) {
 
 // ReadFile implements FS.
 func (OSFS) ReadFile(path string) ([]byte, error) { return os.ReadFile(path) }
+
+// Open implements FS.
+func (OSFS) Open(path string) (OpenFile, error) { return os.Open(path) }
 
 // Stat implements FS.
 func (OSFS) Stat(path string) (fs.FileInfo, error) { return os.Stat(path) }

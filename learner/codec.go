@@ -3,6 +3,7 @@ package learner
 import (
 	"encoding/binary"
 	"fmt"
+	"io"
 	"math"
 
 	"tidemark/window"
@@ -36,33 +37,64 @@ func (w *encoder) f64s(v []float64) {
 	}
 }
 
-// decoder reads what encoder wrote. The first failure sticks: later reads
+// decoder reads what encoder wrote, from one slice of bytes or from a
+// section handed over in pieces (next). The first failure sticks: later reads
 // return zero values and err reports the offset of the first problem, so
 // callers check once at the end.
 type decoder struct {
-	b   []byte
-	off int
-	err error
-	ver uint32 // the state version being read
+	b     []byte // the bytes at hand: all of them, or the current piece
+	off   int    // read so far of b
+	done  int64  // read so far in all
+	total int64  // bytes in all
+	next  func() ([]byte, error)
+	join  []byte // a read that spans pieces, gathered
+	err   error
+	ver   uint32 // the state version being read
 }
+
+func newDecoder(b []byte) *decoder { return &decoder{b: b, total: int64(len(b))} }
 
 func (r *decoder) fail(what string) {
 	if r.err == nil {
-		r.err = fmt.Errorf("%w: %s at byte %d", ErrCorruptState, what, r.off)
+		r.err = fmt.Errorf("%w: %s at byte %d", ErrCorruptState, what, r.done)
 	}
 }
+
+// left returns the bytes not yet read.
+func (r *decoder) left() int64 { return r.total - r.done }
 
 func (r *decoder) take(n int) []byte {
 	if r.err != nil {
 		return nil
 	}
-	if n < 0 || n > len(r.b)-r.off {
+	if n < 0 || int64(n) > r.left() {
 		r.fail("truncated")
 		return nil
 	}
-	p := r.b[r.off : r.off+n]
-	r.off += n
-	return p
+	if n <= len(r.b)-r.off {
+		p := r.b[r.off : r.off+n]
+		r.off += n
+		r.done += int64(n)
+		return p
+	}
+	// The read spans pieces: gather it.
+	r.join = append(r.join[:0], r.b[r.off:]...)
+	for len(r.join) < n {
+		p, err := r.next()
+		if err != nil || len(p) == 0 {
+			if err == nil || err == io.EOF {
+				r.fail("truncated")
+			} else {
+				r.err = err
+			}
+			return nil
+		}
+		k := min(n-len(r.join), len(p))
+		r.join = append(r.join, p[:k]...)
+		r.b, r.off = p, k
+	}
+	r.done += int64(n)
+	return r.join
 }
 
 func (r *decoder) u8() uint8 {
@@ -103,7 +135,7 @@ func (r *decoder) count(hi int, elem int) int {
 	if r.err != nil {
 		return 0
 	}
-	if n < 0 || n > int64(hi) || (elem > 0 && n > int64((len(r.b)-r.off)/elem)) {
+	if n < 0 || n > int64(hi) || (elem > 0 && n > r.left()/int64(elem)) {
 		r.fail(fmt.Sprintf("length %d out of range", n))
 		return 0
 	}

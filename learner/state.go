@@ -2,8 +2,10 @@ package learner
 
 import (
 	"crypto/sha256"
+	"errors"
 	"fmt"
 	"hash/maphash"
+	"io"
 	"slices"
 )
 
@@ -225,7 +227,7 @@ func DigestSections(secs []Section) [32]byte {
 // Decode replaces the state of e by the state Encode wrote into b; see
 // DecodeSections.
 func (e *Engine) Decode(b []byte) error {
-	r := &decoder{b: b}
+	r := newDecoder(b)
 	n := int(r.u32())
 	if r.err == nil && (n < 1 || n > maxSections || n > len(b)/13) {
 		r.fail("bad section count")
@@ -236,7 +238,7 @@ func (e *Engine) Decode(b []byte) error {
 		s.Bytes = r.take(r.count(len(b), 1))
 		secs = append(secs, s)
 	}
-	if r.err == nil && r.off != len(b) {
+	if r.err == nil && r.left() != 0 {
 		r.fail("trailing bytes")
 	}
 	if r.err != nil {
@@ -251,21 +253,71 @@ func (e *Engine) Decode(b []byte) error {
 // wraps ErrCorruptState, or ErrInvalidSpec when the learners in the state
 // differ from e's.
 func (e *Engine) DecodeSections(secs []Section) error {
-	if len(secs) == 0 || !secs[0].Global {
-		return fmt.Errorf("%w: the global section must come first", ErrCorruptState)
-	}
+	return e.DecodeStream(&sectionSlice{secs: secs})
+}
+
+// SectionStream hands a state's sections over in order, each in pieces, as a
+// checkpoint being read does (checkpoint.Stream), so that a large state is
+// decoded without being in memory twice.
+type SectionStream interface {
+	// NextSection begins the next section and returns its kind, partition
+	// and length in bytes; ok is false after the last.
+	NextSection() (global bool, partition int32, size int64, ok bool, err error)
+	// Piece returns the next bytes of the section begun, valid until the
+	// next call; io.EOF after its last.
+	Piece() ([]byte, error)
+}
+
+// DecodeStream is DecodeSections reading from a stream: on error e is
+// unchanged, and an error of the stream is returned as it is.
+func (e *Engine) DecodeStream(src SectionStream) error {
 	fresh, err := NewEngine(e.cfg)
 	if err != nil {
 		return err
 	}
-	if err := fresh.decodeGlobal(secs[0].Bytes); err != nil {
+	global, _, size, ok, err := src.NextSection()
+	if err != nil {
 		return err
 	}
-	for _, s := range secs[1:] {
-		if s.Global {
+	if !ok || !global {
+		return fmt.Errorf("%w: the global section must come first", ErrCorruptState)
+	}
+	var b []byte
+	for {
+		p, err := src.Piece()
+		if err == io.EOF {
+			break
+		}
+		if err != nil {
+			return err
+		}
+		if int64(len(b)+len(p)) > size {
+			return fmt.Errorf("%w: the global section is longer than its %d bytes", ErrCorruptState, size)
+		}
+		b = append(b, p...)
+	}
+	if err := fresh.decodeGlobal(b); err != nil {
+		return err
+	}
+	for {
+		global, part, size, ok, err := src.NextSection()
+		if err != nil {
+			return err
+		}
+		if !ok {
+			break
+		}
+		if global {
 			return fmt.Errorf("%w: two global sections", ErrCorruptState)
 		}
-		if err := fresh.decodePartition(s); err != nil {
+		r := &decoder{total: size, next: src.Piece, ver: fresh.stateVer}
+		if err := fresh.decodePartition(part, r); err != nil {
+			return err
+		}
+		if p, err := src.Piece(); err != io.EOF {
+			if err == nil {
+				err = fmt.Errorf("%w: partition %d: %d bytes past its length", ErrCorruptState, part, len(p))
+			}
 			return err
 		}
 	}
@@ -274,8 +326,33 @@ func (e *Engine) DecodeSections(secs []Section) error {
 	return nil
 }
 
+// sectionSlice is a SectionStream over sections in memory, each one piece.
+type sectionSlice struct {
+	secs []Section
+	i    int  // sections begun
+	read bool // the current one handed over
+}
+
+func (s *sectionSlice) NextSection() (bool, int32, int64, bool, error) {
+	if s.i >= len(s.secs) {
+		return false, 0, 0, false, nil
+	}
+	sec := s.secs[s.i]
+	s.i++
+	s.read = false
+	return sec.Global, sec.Partition, int64(len(sec.Bytes)), true, nil
+}
+
+func (s *sectionSlice) Piece() ([]byte, error) {
+	if s.read || s.i == 0 {
+		return nil, io.EOF
+	}
+	s.read = true
+	return s.secs[s.i-1].Bytes, nil
+}
+
 func (e *Engine) decodeGlobal(b []byte) error {
-	r := &decoder{b: b}
+	r := newDecoder(b)
 	if string(r.take(len(globalMagic))) != globalMagic {
 		return fmt.Errorf("%w: bad magic in the global section", ErrCorruptState)
 	}
@@ -321,20 +398,23 @@ func (e *Engine) decodeGlobal(b []byte) error {
 			t.lastAlarm = &Alarm{Position: Position{int32(r.u32()), r.i64()}, Key: r.str(MaxKeyBytes), Time: r.i64()}
 		}
 	}
-	if r.err == nil && r.off != len(b) {
+	if r.err == nil && r.left() != 0 {
 		r.fail("trailing bytes in the global section")
 	}
 	return r.err
 }
 
-func (e *Engine) decodePartition(s Section) error {
-	r := &decoder{b: s.Bytes, ver: e.stateVer}
+// decodePartition reads the section of partition sp from r.
+func (e *Engine) decodePartition(sp int32, r *decoder) error {
 	if string(r.take(len(partitionMagic))) != partitionMagic {
-		return fmt.Errorf("%w: bad magic in the section of partition %d", ErrCorruptState, s.Partition)
+		if r.err != nil && !errors.Is(r.err, ErrCorruptState) {
+			return r.err // the stream's own
+		}
+		return fmt.Errorf("%w: bad magic in the section of partition %d", ErrCorruptState, sp)
 	}
 	part := int32(r.u32())
-	if r.err == nil && part != s.Partition {
-		return fmt.Errorf("%w: section of partition %d holds partition %d", ErrCorruptState, s.Partition, part)
+	if r.err == nil && part != sp {
+		return fmt.Errorf("%w: section of partition %d holds partition %d", ErrCorruptState, sp, part)
 	}
 	if _, dup := e.hwm[part]; dup {
 		return fmt.Errorf("%w: partition %d appears twice", ErrCorruptState, part)
@@ -370,11 +450,11 @@ func (e *Engine) decodePartition(s Section) error {
 		}
 		e.addKey(ks)
 	}
-	if r.err == nil && r.off != len(s.Bytes) {
+	if r.err == nil && r.left() != 0 {
 		r.fail("trailing bytes")
 	}
 	if r.err != nil {
-		return fmt.Errorf("partition %d: %w", s.Partition, r.err)
+		return fmt.Errorf("partition %d: %w", sp, r.err)
 	}
 	return nil
 }

@@ -79,25 +79,51 @@ func Adopt(eng *learner.Engine, c *checkpoint.Checkpoint, hint string) error {
 	return nil
 }
 
+// AdoptStream decodes the checkpoint st as it is read into eng, after
+// checking that it was taken under eng's configuration (otherwise the error
+// wraps ErrResume and ends with hint), and closes st. The state is built
+// aside and adopted only when every check of the file passed, its CRC-32C and
+// state digest included, which are known once it is read: on any failure the
+// error wraps checkpoint.ErrCorrupt when the file is at fault, and eng is
+// unchanged.
+func AdoptStream(eng *learner.Engine, st *checkpoint.Stream, hint string) error {
+	if !slices.Contains(eng.Config().Digests(), st.Manifest.ConfigSHA256) {
+		st.Close()
+		return fmt.Errorf("%w: checkpoint %d was taken under another configuration of learners or features; %s", ErrResume, st.Manifest.Version, hint)
+	}
+	fresh, err := learner.NewEngine(eng.Config())
+	if err == nil {
+		err = fresh.DecodeStream(st)
+	}
+	if verr := st.Close(); verr != nil {
+		return verr // the file is at fault, whatever decoding said
+	}
+	if err != nil {
+		return fmt.Errorf("checkpoint %d: %w", st.Manifest.Version, err)
+	}
+	*eng = *fresh
+	return nil
+}
+
 // AdoptNewest adopts the newest checkpoint of store that passes every check,
-// trying older ones in turn (see Adopt; each is opened without its digest,
-// which is checked while it decodes). It returns the checkpoint adopted (nil
-// when the store holds none; eng is then unchanged) and the errors of those
-// it passed over. A checkpoint of another configuration stops it with an
-// error wrapping ErrResume.
-func AdoptNewest(store *checkpoint.Store, eng *learner.Engine, hint string) (c *checkpoint.Checkpoint, skipped []error, err error) {
+// trying older ones in turn (see AdoptStream: each is read once, as it
+// decodes). It returns the checkpoint adopted (nil when the store holds none;
+// eng is then unchanged) and the errors of those it passed over. A
+// checkpoint of another configuration stops it with an error wrapping
+// ErrResume.
+func AdoptNewest(store *checkpoint.Store, eng *learner.Engine, hint string) (st *checkpoint.Stream, skipped []error, err error) {
 	vs, err := store.Versions()
 	if err != nil {
 		return nil, nil, err
 	}
 	for i := len(vs) - 1; i >= 0; i-- {
-		c, err := store.Open(vs[i])
+		st, err := store.Stream(vs[i])
 		if err == nil {
-			err = Adopt(eng, c, hint)
+			err = AdoptStream(eng, st, hint)
 		}
 		switch {
 		case err == nil:
-			return c, skipped, nil
+			return st, skipped, nil
 		case errors.Is(err, checkpoint.ErrCorrupt), errors.Is(err, checkpoint.ErrNotFound):
 			skipped = append(skipped, err)
 		default:
