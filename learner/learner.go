@@ -52,7 +52,9 @@ type Coefficients interface {
 	Coefficients(dst []float64) []float64
 }
 
-// New builds the learner of spec s for d-dimensional feature vectors.
+// New builds the learner of spec s for d-dimensional feature vectors. The
+// learner keeps s's settings by reference (the keys of an engine share
+// their spec's): s must not change while the learner is in use.
 func New(s *Spec, d int) Learner { return newShared(s, d, new(*scratch)) }
 
 // newShared is New with working space shared through *sp, made when nil:
@@ -62,11 +64,11 @@ func newShared(s *Spec, d int, sp **scratch) Learner {
 	case KindKNN:
 		return newKNN(s.KNN, d)
 	case KindRLS:
-		return newRLSShared(s.RLS, d, sp)
+		return newRLSShared(&s.RLS, d, sp)
 	case KindSlidingRLS:
 		return newSlidingShared(s.Sliding, d, sp)
 	case KindMean:
-		return newMean(s.Mean)
+		return newMean(&s.Mean)
 	}
 	panic("learner: unknown kind " + s.Kind.String())
 }

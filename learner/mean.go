@@ -16,8 +16,8 @@ import (
 // window is empty and the next event goes unscored. A target older than a
 // time window's bound on arrival is not stored (Late counts it).
 type Mean struct {
-	cfg     MeanConfig
-	w       rows // d = 0: targets and times only; unused for All
+	cfg     *MeanConfig // the spec's, shared by the keys
+	w       rows        // d = 0: targets and times only; unused for All
 	m       window.Moments
 	trained int64
 	late    int64
@@ -38,7 +38,7 @@ func (m *Mean) clone() Learner {
 	return &c
 }
 
-func newMean(cfg MeanConfig) *Mean {
+func newMean(cfg *MeanConfig) *Mean {
 	m := &Mean{cfg: cfg}
 	if !cfg.Window.All {
 		m.w = newRows(0, cfg.Window, cfg.Max)

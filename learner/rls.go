@@ -38,7 +38,7 @@ import (
 // — the basic solution — and are counted by Deficient, so that degraded
 // numerical state is reported rather than hidden in NaNs.
 type RLS struct {
-	cfg     RLSConfig
+	cfg     *RLSConfig // the spec's, shared by the keys
 	ex      expansion
 	qr      sqrtInfo
 	theta   []float64
@@ -50,10 +50,10 @@ type RLS struct {
 
 var _ Learner = (*RLS)(nil)
 
-func newRLS(cfg RLSConfig, d int) *RLS { return newRLSShared(cfg, d, new(*scratch)) }
+func newRLS(cfg RLSConfig, d int) *RLS { return newRLSShared(&cfg, d, new(*scratch)) }
 
 // newRLSShared is newRLS with working space shared through *sp (made when nil).
-func newRLSShared(cfg RLSConfig, d int, sp **scratch) *RLS {
+func newRLSShared(cfg *RLSConfig, d int, sp **scratch) *RLS {
 	ex := expansion{d: d, intercept: !cfg.NoIntercept, degree: cfg.Degree}
 	p := ex.p()
 	qr, theta := newSqrtInfo(p, useScratch(sp, p), p)

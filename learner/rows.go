@@ -34,7 +34,7 @@ type rows struct {
 // Initial storage, in rows: of a count window (small, since a key may see
 // few events; doubling amortises the growth), and of a time or "all" window.
 const (
-	rowsInitialCount = 4
+	rowsInitialCount = 2
 	rowsInitial      = 64
 )
 
