@@ -2,14 +2,15 @@ package learner
 
 import (
 	"math/bits"
-	"slices"
+	"unsafe"
 )
 
 // trieNode is a node of a persistent hash array mapped trie from keys to
 // their state (Bagwell 2001, "Ideal Hash Trees", EPFL technical report
 // 169246): each level takes five bits of the key's 64-bit hash; a node holds
 // only the children that exist, found by the population count of a bitmap.
-// Past the hash's 64 bits, keys of equal hash share a list.
+// Past the hash's 64 bits, keys of equal hash share a list (a node whose
+// bits are zero).
 //
 // It is what a published engine looks keys up in. Nodes are changed in place
 // only by the engine that made them and only in the epoch they were made in;
@@ -17,16 +18,17 @@ import (
 // root to the key (at most 13 nodes, about 4 at a million keys), so a
 // published root never changes and what a publish costs follows the keys
 // that changed, not the number of keys.
+//
+// What a path copy costs is the nodes' size, so a node is kept small: a
+// child is one word, a subtrie or a key's state as a second bitmap says
+// (as in Steindorfer & Vinju 2015, "Optimizing hash-array mapped tries for
+// fast and lean immutable JVM collections", OOPSLA), and the children are
+// in one allocation with the node, with room for a power of two of them.
 type trieNode struct {
 	epoch uint64
-	bits  uint32
-	kids  []trieKid
-}
-
-// trieKid is a child: a subtrie or a key's state.
-type trieKid struct {
-	node *trieNode
-	ks   *keyState
+	bits  uint32           // the children present, by five bits of the hash
+	subs  uint32           // of those, the subtries; the others are keys
+	kids  []unsafe.Pointer // one per bit of bits, in bit order: *trieNode or *keyState
 }
 
 const trieBits = 5
@@ -34,50 +36,109 @@ const trieBits = 5
 // with returns the trie t (nil for empty) with ks set under its key, changing
 // nodes of the given epoch in place and copying older ones.
 func (t *trieNode) with(ks *keyState, shift uint, epoch uint64) *trieNode {
-	n := t
-	switch {
-	case n == nil:
-		n = &trieNode{epoch: epoch}
-	case n.epoch != epoch:
-		n = &trieNode{epoch: epoch, bits: t.bits, kids: slices.Clone(t.kids)}
-	}
 	if shift >= 64 { // the whole hash is equal: a list
-		for i := range n.kids {
-			if n.kids[i].ks.key == ks.key {
-				n.kids[i].ks = ks
+		n := t.owned(epoch, 1)
+		for i, p := range n.kids {
+			if (*keyState)(p).key == ks.key {
+				n.kids[i] = unsafe.Pointer(ks)
 				return n
 			}
 		}
-		n.kids = append(n.kids, trieKid{ks: ks})
-		return n
+		return n.insert(len(n.kids), unsafe.Pointer(ks))
 	}
 	bit := uint32(1) << (ks.hash >> shift & (1<<trieBits - 1))
-	pos := bits.OnesCount32(n.bits & (bit - 1))
-	if n.bits&bit == 0 {
-		n.kids = slices.Insert(n.kids, pos, trieKid{ks: ks})
+	if t == nil || t.bits&bit == 0 {
+		n := t.owned(epoch, 1)
+		n = n.insert(bits.OnesCount32(n.bits&(bit-1)), unsafe.Pointer(ks))
 		n.bits |= bit
 		return n
 	}
-	k := &n.kids[pos]
-	switch {
-	case k.node != nil:
-		k.node = k.node.with(ks, shift+trieBits, epoch)
-	case k.ks.key == ks.key:
-		k.ks = ks
+	n := t.owned(epoch, 0)
+	pos := bits.OnesCount32(n.bits & (bit - 1))
+	switch p := n.kids[pos]; {
+	case n.subs&bit != 0:
+		n.kids[pos] = unsafe.Pointer((*trieNode)(p).with(ks, shift+trieBits, epoch))
+	case (*keyState)(p).key == ks.key:
+		n.kids[pos] = unsafe.Pointer(ks)
 	default: // two keys in one place: push the one there down a level
-		sub := (*trieNode)(nil).with(k.ks, shift+trieBits, epoch)
-		*k = trieKid{node: sub.with(ks, shift+trieBits, epoch)}
+		sub := (*trieNode)(nil).with((*keyState)(p), shift+trieBits, epoch)
+		n.kids[pos] = unsafe.Pointer(sub.with(ks, shift+trieBits, epoch))
+		n.subs |= bit
 	}
 	return n
+}
+
+// owned returns t if it was made in epoch, else a copy made in it (nil: an
+// empty node) with room for more children.
+func (t *trieNode) owned(epoch uint64, more int) *trieNode {
+	if t != nil && t.epoch == epoch {
+		return t
+	}
+	if t == nil {
+		return newTrieNode(more, epoch)
+	}
+	n := newTrieNode(len(t.kids)+more, epoch)
+	n.bits, n.subs = t.bits, t.subs
+	n.kids = append(n.kids, t.kids...)
+	return n
+}
+
+// insert puts p at pos among n's children, n made in the current epoch; when
+// n is full it moves to a node with room, which it returns.
+func (n *trieNode) insert(pos int, p unsafe.Pointer) *trieNode {
+	if len(n.kids) == cap(n.kids) {
+		m := newTrieNode(len(n.kids)+1, n.epoch)
+		m.bits, m.subs = n.bits, n.subs
+		m.kids = append(m.kids, n.kids...)
+		n = m
+	}
+	n.kids = n.kids[:len(n.kids)+1]
+	copy(n.kids[pos+1:], n.kids[pos:])
+	n.kids[pos] = p
+	return n
+}
+
+// newTrieNode returns an empty node with room for at least c children, in
+// one allocation with it up to 32 (a full level).
+func newTrieNode(c int, epoch uint64) *trieNode {
+	var n *trieNode
+	switch {
+	case c <= 1:
+		n = nodeWith(func(a *[1]unsafe.Pointer) []unsafe.Pointer { return a[:0] })
+	case c <= 2:
+		n = nodeWith(func(a *[2]unsafe.Pointer) []unsafe.Pointer { return a[:0] })
+	case c <= 4:
+		n = nodeWith(func(a *[4]unsafe.Pointer) []unsafe.Pointer { return a[:0] })
+	case c <= 8:
+		n = nodeWith(func(a *[8]unsafe.Pointer) []unsafe.Pointer { return a[:0] })
+	case c <= 16:
+		n = nodeWith(func(a *[16]unsafe.Pointer) []unsafe.Pointer { return a[:0] })
+	case c <= 32:
+		n = nodeWith(func(a *[32]unsafe.Pointer) []unsafe.Pointer { return a[:0] })
+	default: // a list of keys of one hash past 32
+		n = &trieNode{kids: make([]unsafe.Pointer, 0, c)}
+	}
+	n.epoch = epoch
+	return n
+}
+
+// nodeWith allocates a node followed by the array A of its children.
+func nodeWith[A any](kids func(*A) []unsafe.Pointer) *trieNode {
+	b := new(struct {
+		n trieNode
+		a A
+	})
+	b.n.kids = kids(&b.a)
+	return &b.n
 }
 
 // get returns the state of key, whose hash is h, or nil.
 func (t *trieNode) get(key string, h uint64) *keyState {
 	for shift := uint(0); t != nil; shift += trieBits {
 		if shift >= 64 {
-			for _, k := range t.kids {
-				if k.ks.key == key {
-					return k.ks
+			for _, p := range t.kids {
+				if ks := (*keyState)(p); ks.key == key {
+					return ks
 				}
 			}
 			return nil
@@ -86,14 +147,14 @@ func (t *trieNode) get(key string, h uint64) *keyState {
 		if t.bits&bit == 0 {
 			return nil
 		}
-		k := t.kids[bits.OnesCount32(t.bits&(bit-1))]
-		if k.node == nil {
-			if k.ks.key == key {
-				return k.ks
+		p := t.kids[bits.OnesCount32(t.bits&(bit-1))]
+		if t.subs&bit == 0 {
+			if ks := (*keyState)(p); ks.key == key {
+				return ks
 			}
 			return nil
 		}
-		t = k.node
+		t = (*trieNode)(p)
 	}
 	return nil
 }
@@ -103,11 +164,14 @@ func (t *trieNode) each(f func(*keyState)) {
 	if t == nil {
 		return
 	}
-	for _, k := range t.kids {
-		if k.node != nil {
-			k.node.each(f)
+	subs := t.subs
+	for b, i := t.bits, 0; i < len(t.kids); i++ {
+		low := b & -b // the child's bit (a list has none: keys only)
+		b &^= low
+		if subs&low != 0 {
+			(*trieNode)(t.kids[i]).each(f)
 		} else {
-			f(k.ks)
+			f((*keyState)(t.kids[i]))
 		}
 	}
 }
