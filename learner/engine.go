@@ -6,7 +6,6 @@ import (
 	"errors"
 	"fmt"
 	"hash/maphash"
-	"maps"
 	"math"
 	"slices"
 	"strings"
@@ -118,7 +117,7 @@ type Engine struct {
 	ahead   [PrefetchAhead - 1]*keyState // the entries Prefetch found at its last calls, newest first
 	keyBase int64                        // estimated bytes of the keys themselves (keyBase), summed; the learners' are in totals
 	totals  []total
-	hwm     map[int32]int64
+	parts   map[int32]*part // per stream partition: high-water mark and counters
 
 	applied, rejected, duplicates, ignored int64
 	alarms, skipped                        int64
@@ -205,7 +204,7 @@ func NewEngine(cfg Config) (*Engine, error) {
 	}
 	cfg.Score = cfg.Score.withDefaults()
 	cfg.Drift = cfg.Drift.withDefaults()
-	e := &Engine{cfg: cfg, baseline: -1, keys: newKeyIndex(0), hwm: map[int32]int64{}, seed: maphash.MakeSeed()}
+	e := &Engine{cfg: cfg, baseline: -1, keys: newKeyIndex(0), parts: map[int32]*part{}, seed: maphash.MakeSeed()}
 	e.drift = &e.cfg.Drift
 	e.schema, _, _ = NewSchema(cfg.Features)
 	for i := range cfg.Learners {
@@ -258,15 +257,26 @@ func (e *Engine) Alarms() int64 { return e.alarms }
 
 // Covers reports whether the state already covers pos.
 func (e *Engine) Covers(pos Position) bool {
-	hw, ok := e.hwm[pos.Partition]
-	return ok && pos.Offset <= hw
+	p := e.parts[pos.Partition]
+	return p != nil && pos.Offset <= p.hwm
+}
+
+// at returns the part of pos's partition, made when new, with pos covered.
+func (e *Engine) at(pos Position) *part {
+	p := e.parts[pos.Partition]
+	if p == nil {
+		p = newPart(len(e.cfg.Learners))
+		e.parts[pos.Partition] = p
+	}
+	p.hwm = pos.Offset
+	return p
 }
 
 // Positions returns the high-water mark of every partition seen, sorted by partition.
 func (e *Engine) Positions() []Position {
-	out := make([]Position, 0, len(e.hwm))
-	for p, o := range e.hwm {
-		out = append(out, Position{p, o})
+	out := make([]Position, 0, len(e.parts))
+	for n, p := range e.parts {
+		out = append(out, Position{n, p.hwm})
 	}
 	slices.SortFunc(out, func(a, b Position) int { return int(a.Partition) - int(b.Partition) })
 	return out
@@ -279,7 +289,7 @@ func (e *Engine) Skip(pos Position) {
 	if e.Covers(pos) {
 		return
 	}
-	e.hwm[pos.Partition] = pos.Offset
+	e.at(pos).rejected++
 	e.rejected++
 }
 
@@ -296,11 +306,16 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 	if e.frozen {
 		panic("learner: Apply on a published engine")
 	}
-	if e.Covers(pos) {
+	p := e.parts[pos.Partition]
+	if p != nil && pos.Offset <= p.hwm {
 		e.duplicates++
+		p.duplicates++
 		return false, nil
 	}
-	e.hwm[pos.Partition] = pos.Offset
+	if p == nil {
+		p = e.at(pos)
+	}
+	p.hwm = pos.Offset
 	schema := e.schema
 	if schema == nil {
 		schema = SchemaOf(ev, e.cfg.Features)
@@ -311,10 +326,12 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 	ignored, err := schema.Vector(e.x, ev)
 	if err != nil {
 		e.rejected++
+		p.rejected++
 		return false, err
 	}
 	if e.needTime != "" && !ev.HasTime {
 		e.rejected++
+		p.rejected++
 		return false, reject(RejectTime, "time is missing and %s needs it", e.needTime)
 	}
 	h := maphash.String(e.seed, ev.Key)
@@ -322,10 +339,12 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 	if ks == nil {
 		if e.keys.len() >= e.cfg.MaxKeys {
 			e.rejected++
+			p.rejected++
 			return false, reject(RejectKeyCap, "key %q would be key number %d, past the cap of %d", truncate(ev.Key), e.keys.len()+1, e.cfg.MaxKeys)
 		}
 		if err := e.overBudget(ev.Key); err != nil {
 			e.rejected++
+			p.rejected++
 			return false, err
 		}
 		e.schema = schema
@@ -336,6 +355,7 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 	}
 	e.schema = schema
 	e.ignored += int64(ignored)
+	p.ignored += int64(ignored)
 	y := ev.Target
 	for i := range ks.slots {
 		l := ks.slots[i].learner
@@ -364,13 +384,11 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 			if alarm {
 				e.alarms++
 				t.alarms++
+				p.alarms++
+				p.learnerAlarms[i]++
 				a := Alarm{Position: pos, Key: ks.key, Time: ev.Time}
-				if t.lastAlarm == nil {
-					t.lastAlarm = &Alarm{}
-					*t.lastAlarm = a
-				} else if a.later(*t.lastAlarm) {
-					*t.lastAlarm = a
-				}
+				t.lastAlarm = laterAlarm(t.lastAlarm, a)
+				p.last[i] = laterAlarm(p.last[i], a)
 			}
 		} else {
 			ks.slots[i].score.Unscore()
@@ -385,7 +403,20 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 		ks.slots[i].held = held
 	}
 	e.applied++
+	p.applied++
 	return true, nil
+}
+
+// laterAlarm returns the later of *last (nil: none) and a, in last's storage
+// when it has some.
+func laterAlarm(last *Alarm, a Alarm) *Alarm {
+	switch {
+	case last == nil:
+		return &a
+	case a.later(*last):
+		*last = a
+	}
+	return last
 }
 
 func (e *Engine) newKey(key string, h uint64, partition int32) *keyState {
@@ -484,7 +515,7 @@ func (e *Engine) Pass(pos Position) {
 	if e.Covers(pos) {
 		return
 	}
-	e.hwm[pos.Partition] = pos.Offset
+	e.at(pos).skipped++
 	e.skipped++
 }
 
@@ -494,7 +525,7 @@ func (e *Engine) Pass(pos Position) {
 func (e *Engine) CoverUpTo(ps []Position) {
 	for _, p := range ps {
 		if !e.Covers(p) {
-			e.hwm[p.Partition] = p.Offset
+			e.at(p)
 		}
 	}
 }
@@ -679,7 +710,7 @@ func (e *Engine) Publish() *Engine {
 	}
 	v := &Engine{cfg: e.cfg, schema: e.schema, needTime: e.needTime, baseline: e.baseline,
 		applied: e.applied, rejected: e.rejected, duplicates: e.duplicates, ignored: e.ignored, alarms: e.alarms, skipped: e.skipped,
-		totals: slices.Clone(e.totals), hwm: maps.Clone(e.hwm), lastPred: slices.Clone(e.lastPred), lastOK: slices.Clone(e.lastOK),
+		totals: slices.Clone(e.totals), parts: cloneParts(e.parts), lastPred: slices.Clone(e.lastPred), lastOK: slices.Clone(e.lastOK),
 		scratch: make([]*scratch, len(e.scratch)), drift: e.drift,
 		seed: e.seed, root: e.root, frozen: true, nkeys: e.keys.len(), keyBase: e.keyBase}
 	for i := range v.totals {

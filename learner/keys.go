@@ -41,5 +41,22 @@ func (x *keyIndex) set(ks *keyState) {
 	}
 }
 
+// remove takes ks's key out.
+func (x *keyIndex) remove(ks *keyState) {
+	if old := x.byHash[ks.hash]; old != nil && old.key == ks.key {
+		delete(x.byHash, ks.hash)
+		// A key of the same hash waiting in more takes the place.
+		for k, o := range x.more {
+			if o.hash == ks.hash {
+				x.byHash[ks.hash] = o
+				delete(x.more, k)
+				break
+			}
+		}
+		return
+	}
+	delete(x.more, ks.key)
+}
+
 // len returns the number of keys.
 func (x *keyIndex) len() int { return len(x.byHash) + len(x.more) }

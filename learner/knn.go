@@ -57,6 +57,9 @@ type neighbor struct {
 
 var _ Learner = (*KNN)(nil)
 
+// rebind implements Learner (k-NN's working space is its own).
+func (m *KNN) rebind(**scratch) {}
+
 // held implements Learner.
 func (m *KNN) held() int64 {
 	return int64(unsafe.Sizeof(*m)) + int64(len(m.moms))*int64(unsafe.Sizeof(window.Moments{})+8) +

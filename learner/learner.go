@@ -31,6 +31,9 @@ type Learner interface {
 	// with the original: the engine copies a key it published before
 	// changing it, on the same goroutine).
 	clone() Learner
+	// rebind makes the learner use the working space *sp (made when nil)
+	// instead of its engine's: it moves to another engine (Engine.Merge).
+	rebind(sp **scratch)
 	// held estimates the bytes the learner holds, from what it holds (rows,
 	// coefficients), not from its allocations: the same for a learner and
 	// its decoded copy, so that a memory budget refuses the same keys after

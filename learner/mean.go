@@ -25,6 +25,9 @@ type Mean struct {
 
 var _ Learner = (*Mean)(nil)
 
+// rebind implements Learner (a mean uses no shared working space).
+func (m *Mean) rebind(**scratch) {}
+
 // held implements Learner.
 func (m *Mean) held() int64 { return int64(unsafe.Sizeof(*m)) + m.w.held() }
 

@@ -63,6 +63,9 @@ func newRLSShared(cfg *RLSConfig, d int, sp **scratch) *RLS {
 	return m
 }
 
+// rebind implements Learner.
+func (m *RLS) rebind(sp **scratch) { m.qr.s = useScratch(sp, m.qr.p) }
+
 // held implements Learner.
 func (m *RLS) held() int64 {
 	return int64(unsafe.Sizeof(*m)) + 8*int64(len(m.qr.r)+len(m.qr.z)+len(m.theta))

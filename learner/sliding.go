@@ -51,6 +51,9 @@ func newSlidingShared(cfg SlidingConfig, d int, sp **scratch) *SlidingRLS {
 	return &SlidingRLS{cfg: cfg, ex: ex, w: newRows(p, cfg.Window, cfg.Max), qr: qr, theta: theta, rankDef: p}
 }
 
+// rebind implements Learner.
+func (m *SlidingRLS) rebind(sp **scratch) { m.qr.s = useScratch(sp, m.qr.p) }
+
 // held implements Learner.
 func (m *SlidingRLS) held() int64 {
 	return int64(unsafe.Sizeof(*m)) + 8*int64(len(m.qr.r)+len(m.qr.z)+len(m.theta)) + m.w.held()

@@ -18,12 +18,16 @@ import (
 // be read without decoding the others:
 //
 //	global section: magic "TMSG", u32 state version; learner count and each
-//	  learner's canonical spec (checked on decode); schema (or absent);
-//	  counters applied, rejected, duplicates, ignored features, alarms,
-//	  skipped; per learner: alarm count, last alarm (or absent)
+//	  learner's canonical spec (checked on decode); schema (or absent)
+//	  (before version 6 then the counters applied, rejected, duplicates,
+//	  ignored features, alarms, skipped, and per learner its alarm count and
+//	  last alarm (or absent), over all partitions)
 //	partition section, one per partition seen, ascending: magic "TMSP",
-//	  partition, high-water offset; key count, then per key (sorted): name,
-//	  and per learner its model state, scorer and drift detector
+//	  partition, high-water offset; its counters (applied, rejected,
+//	  duplicates, ignored features, alarms, skipped) and per learner its
+//	  alarm count and last alarm (or absent); key count, then per key
+//	  (sorted): name, and per learner its model state, scorer and drift
+//	  detector
 //
 // The state digest is the SHA-256 of the sections' bytes concatenated in
 // that order (global first). Encode wraps the sections in a container
@@ -37,8 +41,10 @@ const (
 	// 4 added interval coverage to the per-key scorers. 5 keeps windowed
 	// sums compensated (window.Sum, window.Moments) with their rounding
 	// bounds, and counts late events per windowed learner; older moments are
-	// rebuilt from their windows on decode.
-	stateVersion = 5
+	// rebuilt from their windows on decode. 6 keeps the counters and drift
+	// alarms per partition too, so that a partition's state can move whole
+	// (Split, Merge); before 6 they are given to the lowest partition.
+	stateVersion = 6
 	maxNames     = MaxFeatures
 	maxSections  = 1 << 20
 )
@@ -90,6 +96,7 @@ func (e *Engine) EncodeSections(sink SectionSink) error {
 		w.b = append(w.b[:0], partitionMagic...)
 		w.u32(uint32(p.Partition))
 		w.i64(p.Offset)
+		e.parts[p.Partition].encode(w)
 		w.int(len(keys))
 		for i, ks := range keys {
 			w.sink += touchAhead(keys, i)
@@ -153,23 +160,7 @@ func (e *Engine) encodeGlobal(w *encoder) {
 		w.int(e.schema.Buckets)
 		w.bool(e.schema.Time)
 	}
-	w.i64(e.applied)
-	w.i64(e.rejected)
-	w.i64(e.duplicates)
-	w.i64(e.ignored)
-	w.i64(e.alarms)
-	w.i64(e.skipped)
-	for i := range e.totals {
-		t := &e.totals[i]
-		w.i64(t.alarms)
-		w.bool(t.lastAlarm != nil)
-		if t.lastAlarm != nil {
-			w.u32(uint32(t.lastAlarm.Position.Partition))
-			w.i64(t.lastAlarm.Position.Offset)
-			w.str(t.lastAlarm.Key)
-			w.i64(t.lastAlarm.Time)
-		}
-	}
+	// Counters and alarms are in the partition sections (version 6).
 }
 
 // sectionList is a SectionSink that keeps the sections in memory.
@@ -321,6 +312,9 @@ func (e *Engine) DecodeStream(src SectionStream) error {
 			return err
 		}
 	}
+	if err := fresh.settleParts(); err != nil {
+		return err
+	}
 	*e = *fresh
 	e.ordered() // a decoded engine (a published copy) is read concurrently: order it now
 	return nil
@@ -381,6 +375,12 @@ func (e *Engine) decodeGlobal(b []byte) error {
 		}
 		e.schema = s
 	}
+	if v >= 6 {
+		if r.err == nil && r.left() != 0 {
+			r.fail("trailing bytes in the global section")
+		}
+		return r.err
+	}
 	e.applied, e.rejected, e.duplicates, e.ignored, e.alarms = r.i64(), r.i64(), r.i64(), r.i64(), r.i64()
 	if v >= 2 {
 		e.skipped = r.i64()
@@ -394,9 +394,7 @@ func (e *Engine) decodeGlobal(b []byte) error {
 			old.decode(r, v)
 		}
 		t.alarms = r.i64()
-		if r.bool() {
-			t.lastAlarm = &Alarm{Position: Position{int32(r.u32()), r.i64()}, Key: r.str(MaxKeyBytes), Time: r.i64()}
-		}
+		t.lastAlarm = decodeAlarm(r)
 	}
 	if r.err == nil && r.left() != 0 {
 		r.fail("trailing bytes in the global section")
@@ -416,10 +414,15 @@ func (e *Engine) decodePartition(sp int32, r *decoder) error {
 	if r.err == nil && part != sp {
 		return fmt.Errorf("%w: section of partition %d holds partition %d", ErrCorruptState, sp, part)
 	}
-	if _, dup := e.hwm[part]; dup {
+	if _, dup := e.parts[part]; dup {
 		return fmt.Errorf("%w: partition %d appears twice", ErrCorruptState, part)
 	}
-	e.hwm[part] = r.i64()
+	pt := newPart(len(e.cfg.Learners))
+	e.parts[part] = pt
+	pt.hwm = r.i64()
+	if r.ver >= 6 {
+		pt.decode(r)
+	}
 	nk := r.count(e.cfg.MaxKeys-e.keys.len(), 8)
 	if nk > 0 && e.schema == nil {
 		r.fail("keys without a schema")
@@ -477,4 +480,87 @@ func decodeNames(r *decoder) []string {
 
 func sameSchema(a, b *Schema) bool {
 	return slices.Equal(a.Numeric, b.Numeric) && slices.Equal(a.Categorical, b.Categorical) && a.Buckets == b.Buckets && a.Time == b.Time
+}
+
+func (p *part) encode(w *encoder) {
+	for _, v := range [...]int64{p.applied, p.rejected, p.duplicates, p.ignored, p.alarms, p.skipped} {
+		w.i64(v)
+	}
+	for i := range p.last {
+		w.i64(p.learnerAlarms[i])
+		encodeAlarm(w, p.last[i])
+	}
+}
+
+func (p *part) decode(r *decoder) {
+	p.applied, p.rejected, p.duplicates, p.ignored, p.alarms, p.skipped = r.i64(), r.i64(), r.i64(), r.i64(), r.i64(), r.i64()
+	for i := range p.last {
+		p.learnerAlarms[i] = r.i64()
+		p.last[i] = decodeAlarm(r)
+	}
+}
+
+func encodeAlarm(w *encoder, a *Alarm) {
+	w.bool(a != nil)
+	if a != nil {
+		w.u32(uint32(a.Position.Partition))
+		w.i64(a.Position.Offset)
+		w.str(a.Key)
+		w.i64(a.Time)
+	}
+}
+
+func decodeAlarm(r *decoder) *Alarm {
+	if !r.bool() {
+		return nil
+	}
+	return &Alarm{Position: Position{int32(r.u32()), r.i64()}, Key: r.str(MaxKeyBytes), Time: r.i64()}
+}
+
+// settleParts sets a decoded state's counters and alarms to the sums over
+// the partitions decoded (state version 6, whose global section has none:
+// decoding some partitions gives their figures), or, for an older state that
+// kept totals only, gives those to its lowest partition (and each learner's
+// last alarm to the partition it was in).
+func (e *Engine) settleParts() error {
+	var sum counts
+	alarms := make([]int64, len(e.totals))
+	for _, p := range e.parts {
+		sum.add(p.counts, 1)
+		for i, n := range p.learnerAlarms {
+			alarms[i] += n
+		}
+	}
+	total := counts{e.applied, e.rejected, e.duplicates, e.ignored, e.alarms, e.skipped}
+	if e.stateVer >= 6 {
+		e.applied, e.rejected, e.duplicates, e.ignored, e.alarms, e.skipped = sum.applied, sum.rejected, sum.duplicates, sum.ignored, sum.alarms, sum.skipped
+		for i := range e.totals {
+			e.totals[i].alarms = alarms[i]
+			e.totals[i].lastAlarm = nil
+			for _, p := range e.parts {
+				if a := p.last[i]; a != nil {
+					e.totals[i].lastAlarm = laterAlarm(e.totals[i].lastAlarm, *a)
+				}
+			}
+		}
+		return nil
+	}
+	ps := e.Positions()
+	if len(ps) == 0 {
+		return nil
+	}
+	low := e.parts[ps[0].Partition]
+	low.counts = total
+	for i := range e.totals {
+		low.learnerAlarms[i] = e.totals[i].alarms
+		if a := e.totals[i].lastAlarm; a != nil {
+			p := e.parts[a.Position.Partition]
+			if p == nil {
+				p = low
+			}
+			c := *a
+			p.last[i] = &c
+		}
+	}
+	return nil
 }

@@ -175,3 +175,55 @@ func (t *trieNode) each(f func(*keyState)) {
 		}
 	}
 }
+
+// without returns the trie t with key (of hash h) taken out, changing nodes
+// of the given epoch in place and copying older ones; a node left empty is
+// dropped (nil). A key that is not there changes nothing.
+func (t *trieNode) without(key string, h uint64, shift uint, epoch uint64) *trieNode {
+	if t == nil {
+		return nil
+	}
+	if shift >= 64 {
+		for i, p := range t.kids {
+			if (*keyState)(p).key == key {
+				n := t.owned(epoch, 0)
+				copy(n.kids[i:], n.kids[i+1:])
+				n.kids[len(n.kids)-1] = nil
+				n.kids = n.kids[:len(n.kids)-1]
+				if len(n.kids) == 0 {
+					return nil
+				}
+				return n
+			}
+		}
+		return t
+	}
+	bit := uint32(1) << (h >> shift & (1<<trieBits - 1))
+	if t.bits&bit == 0 {
+		return t
+	}
+	pos := bits.OnesCount32(t.bits & (bit - 1))
+	var sub *trieNode
+	if t.subs&bit != 0 {
+		old := (*trieNode)(t.kids[pos])
+		if sub = old.without(key, h, shift+trieBits, epoch); sub == old {
+			return t
+		}
+	} else if (*keyState)(t.kids[pos]).key != key {
+		return t
+	}
+	n := t.owned(epoch, 0)
+	if sub != nil {
+		n.kids[pos] = unsafe.Pointer(sub)
+		return n
+	}
+	copy(n.kids[pos:], n.kids[pos+1:])
+	n.kids[len(n.kids)-1] = nil
+	n.kids = n.kids[:len(n.kids)-1]
+	n.bits &^= bit
+	n.subs &^= bit
+	if len(n.kids) == 0 {
+		return nil
+	}
+	return n
+}

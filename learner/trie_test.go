@@ -9,7 +9,7 @@ import (
 
 // TestTrieKeepsEveryPublishedVersion checks the persistent trie against a
 // map (the reference) copied at each epoch's end: over eight epochs of new
-// keys and new versions of old ones, every root ever returned still finds
+// keys, new versions of old ones and keys taken out, every root ever returned still finds
 // exactly the states of its epoch, and lists exactly them. Hashes are made
 // to collide: keys sharing their low 5, 10, …, 60 bits, and 40 keys of one
 // whole hash (a list longer than a full node).
@@ -55,6 +55,13 @@ func TestTrieKeepsEveryPublishedVersion(t *testing.T) {
 				}
 			}
 		}
+		for key, ks := range want { // some keys leave (Split)
+			if rng.IntN(9) == 0 {
+				root = root.without(key, ks.hash, 0, epoch)
+				delete(want, key)
+			}
+		}
+		root = root.without("absent", same, 0, epoch)
 		pubs = append(pubs, published{root, maps.Clone(want)})
 	}
 	for e, p := range pubs {
