@@ -66,7 +66,17 @@
 // # Store
 //
 // Files are named ckpt-<version, 20 digits>.tdmk so that names sort by
-// version. Versions increase by one from the newest file present. A write goes
+// version. Versions increase by one from the newest file present, except in
+// a Kafka consumer group: there a partition's store is written by whichever
+// instance owns the partition, and a checkpoint carries the group generation
+// of its writer (Manifest.Generation). Generation g writes versions
+// g·2³² + 1, + 2, …, so the newest version is always the newest owner's. A
+// write of an older generation than the newest version's is refused
+// (ErrFenced) before anything is written, and one that a newer owner's write
+// overtakes while it is in flight removes its own file and is refused too:
+// an instance that lost a partition can never make its state the
+// partition's newest, and every file in the store is a whole, consistent
+// state of the partition at some position. A write goes
 // to a temporary file (".tmp-" in its name), is synced, renamed into place, and
 // the directory is synced: a crash leaves either the old set or the new file,
 // never a partial one under a checkpoint name. Temporary files left by a crash

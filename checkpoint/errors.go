@@ -21,6 +21,10 @@ var (
 	ErrNoStore = errors.New("checkpoint: no store")
 	// ErrReadOnly: a change was asked of a store opened read-only.
 	ErrReadOnly = errors.New("checkpoint: store opened read-only")
+	// ErrFenced: a write of a consumer-group generation older than the
+	// newest checkpoint's (the writer lost the partition; see
+	// Manifest.Generation). Nothing of it is left in the store.
+	ErrFenced = errors.New("checkpoint: fenced by a newer generation")
 	// ErrLocked: a lock is held by another process.
 	ErrLocked = errors.New("checkpoint: locked by another process")
 )

@@ -98,7 +98,18 @@ type Manifest struct {
 	RawBytes     int64           `json:"raw_bytes"`
 	Metrics      []Metric        `json:"metrics,omitempty"`
 	Source       json.RawMessage `json:"source,omitempty"` // the intake's own record, e.g. a history prefix digest
+	// Generation is the Kafka consumer-group generation in which the writer
+	// owned the state's partitions (0 outside a group), and Owner names the
+	// writer. A generation's checkpoints take versions of their own band,
+	// Generation·2³² + 1, + 2, …, so the newest version is always the newest
+	// owner's: an instance that lost a partition cannot make its state the
+	// newest again (Store.WriteState refuses, ErrFenced).
+	Generation int64  `json:"generation,omitempty"`
+	Owner      string `json:"owner,omitempty"`
 }
+
+// generationBand is the first version of generation g's band.
+func generationBand(g int64) uint64 { return uint64(g) << 32 }
 
 // Section is one part of the engine's state, as the engine encoded it.
 type Section struct {

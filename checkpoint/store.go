@@ -83,6 +83,8 @@ type Info struct {
 	RawBytes    int64      `json:"raw_bytes"`
 	Reason      Reason     `json:"reason"`
 	Pinned      bool       `json:"pinned"`
+	Generation  int64      `json:"generation,omitempty"` // see Manifest.Generation
+	Owner       string     `json:"owner,omitempty"`
 	File        string     `json:"file"`
 	Error       string     `json:"error,omitempty"` // set, and nothing else trusted, when the file fails a check
 }
@@ -323,7 +325,8 @@ func (s *Store) retain(vs []uint64, pins map[uint64]bool) {
 
 func info(m *Manifest, name string, size int64, pinned bool) Info {
 	return Info{Version: m.Version, Parent: m.Parent, Created: m.Created, Position: m.Positions, Events: m.Events,
-		StateSHA256: m.StateSHA256, Bytes: size, RawBytes: m.RawBytes, Reason: m.Reason, Pinned: pinned, File: name}
+		StateSHA256: m.StateSHA256, Bytes: size, RawBytes: m.RawBytes, Reason: m.Reason, Pinned: pinned,
+		Generation: m.Generation, Owner: m.Owner, File: name}
 }
 
 // Load reads and verifies version v completely. A file that fails any check

@@ -166,3 +166,81 @@ func TestStreamCloseEarlyGivesTheVerdict(t *testing.T) {
 		t.Errorf("a damaged file closed early: %v, want ErrCorrupt", err)
 	}
 }
+
+// TestGenerationsFenceStaleWriters: in a consumer group a partition's
+// checkpoints carry the generation of the instance that owned it. A
+// generation's versions are a band of their own (g·2³² + 1, + 2, …), so the
+// newest version is the newest owner's; a writer of an older generation is
+// refused before it writes (ErrFenced), and one that a newer owner overtakes
+// while it writes removes what it wrote and is refused too. The newer
+// owner's state stays the newest throughout.
+func TestGenerationsFenceStaleWriters(t *testing.T) {
+	hook := &hookFS{}
+	s := openTest(t, StoreConfig{FS: hook})
+	write := func(g int64, owner string) (Info, error) {
+		m := manifest(int64(g))
+		m.Generation, m.Owner = g, owner
+		return s.Write(m, testSections(1))
+	}
+	a1, err := write(3, "a")
+	if err != nil || a1.Version != 3<<32+1 || a1.Generation != 3 || a1.Owner != "a" {
+		t.Fatalf("first write of generation 3: %+v, %v", a1, err)
+	}
+	if a2, _ := write(3, "a"); a2.Version != 3<<32+2 {
+		t.Fatalf("second write of generation 3: version %d", a2.Version)
+	}
+	b, err := write(4, "b")
+	if err != nil || b.Version != 4<<32+1 {
+		t.Fatalf("the new owner's write: %+v, %v", b, err)
+	}
+	if _, err := write(3, "a"); !errors.Is(err, ErrFenced) {
+		t.Fatalf("the old owner's write after the new one: %v, want ErrFenced", err)
+	}
+	// In a store of generation 3 only, the old owner passes the check; the
+	// new owner writes while the old one's file is being written.
+	hook2 := &hookFS{}
+	s2 := openTest(t, StoreConfig{FS: hook2})
+	write2 := func(g int64, owner string) (Info, error) {
+		m := manifest(int64(g))
+		m.Generation, m.Owner = g, owner
+		return s2.Write(m, testSections(1))
+	}
+	if _, err := write2(3, "a"); err != nil {
+		t.Fatal(err)
+	}
+	var newer Info
+	hook2.onCreate = func() {
+		hook2.onCreate = nil
+		other := openTest(t, StoreConfig{Dir: s2.Dir()})
+		m := manifest(4)
+		m.Generation, m.Owner = 4, "b"
+		var err error
+		if newer, err = other.Write(m, testSections(1)); err != nil {
+			t.Errorf("the new owner's write during the old one's: %v", err)
+		}
+	}
+	if _, err := write2(3, "a"); !errors.Is(err, ErrFenced) {
+		t.Fatalf("the overtaken write: %v, want ErrFenced", err)
+	}
+	c, _, err := s2.Latest()
+	if err != nil || c.Manifest.Owner != "b" || c.Manifest.Version != newer.Version {
+		t.Fatalf("newest: %+v, %v; want the new owner's", c.Info, err)
+	}
+	vs, _ := s2.Versions()
+	if len(vs) != 2 || vs[0] != 3<<32+1 || vs[1] != 4<<32+1 {
+		t.Errorf("versions %v, want the old owner's first and the new owner's", vs)
+	}
+}
+
+// hookFS calls onCreate when a file is created.
+type hookFS struct {
+	OSFS
+	onCreate func()
+}
+
+func (h *hookFS) Create(path string) (File, error) {
+	if f := h.onCreate; f != nil {
+		f()
+	}
+	return h.OSFS.Create(path)
+}

@@ -70,6 +70,16 @@ func (s *Store) WriteState(m Manifest, emit func(Sink) error) (Info, error) {
 	if len(vs) > 0 {
 		m.Version = vs[len(vs)-1] + 1
 	}
+	if m.Generation < 0 || m.Generation > 1<<31-1 {
+		return Info{}, fmt.Errorf("checkpoint: generation %d out of range", m.Generation)
+	}
+	if g := m.Generation; g > 0 {
+		band, next := generationBand(g), generationBand(g+1)
+		if len(vs) > 0 && vs[len(vs)-1] >= next {
+			return Info{}, fenced(s.cfg.Dir, g, vs[len(vs)-1])
+		}
+		m.Version = max(m.Version, band+1)
+	}
 	if m.Created.IsZero() {
 		m.Created = s.cfg.Now().UTC()
 	}
@@ -95,11 +105,28 @@ func (s *Store) WriteState(m Manifest, emit func(Sink) error) (Info, error) {
 	if err := s.cfg.FS.SyncDir(s.cfg.Dir); err != nil {
 		return Info{}, fmt.Errorf("checkpoint: write version %d: sync directory: %w", m.Version, err)
 	}
+	if g := m.Generation; g > 0 {
+		// A newer owner may have written while this one did: then this
+		// version is not the newest and must not stay to be mistaken for a
+		// state of the partition's owner.
+		if now, _, err := s.scan(); err == nil && len(now) > 0 && now[len(now)-1] >= generationBand(g+1) {
+			s.cfg.FS.Remove(final)
+			s.cfg.FS.SyncDir(s.cfg.Dir)
+			return Info{}, fenced(s.cfg.Dir, g, now[len(now)-1])
+		}
+	}
 	vs = append(vs, m.Version)
 	s.retain(vs, pins)
 	in := info(&m, name, size, pins[m.Version])
 	s.remember(in)
 	return in, nil
+}
+
+// fenced is the error of a write of generation g in dir, where version
+// newest, of a later generation, is.
+func fenced(dir string, g int64, newest uint64) error {
+	return fmt.Errorf("%w: %s holds version %d, of generation %d; the writer, of generation %d, lost the partition to it and wrote nothing",
+		ErrFenced, dir, newest, newest>>32, g)
 }
 
 // writeStream writes a format-2 file at path (see FormatVersion), syncs and

@@ -166,3 +166,13 @@ func (e *Engine) countPart(pt *part, sign int64) {
 		}
 	}
 }
+
+// PartitionCounts returns partition p's events applied and rejected, and
+// whether the engine holds p.
+func (e *Engine) PartitionCounts(p int32) (applied, rejected int64, ok bool) {
+	pt := e.parts[p]
+	if pt == nil {
+		return 0, 0, false
+	}
+	return pt.applied, pt.rejected, true
+}

@@ -74,6 +74,13 @@ const sinkFlush = 256 << 10
 // Sections. It stops at the sink's first error. The engine may be a
 // published copy, encoded on another goroutine while its owner goes on.
 func (e *Engine) EncodeSections(sink SectionSink) error {
+	return e.EncodePartitions(sink, nil)
+}
+
+// EncodePartitions is EncodeSections for the partitions ps only (all when
+// ps is nil): the global section and theirs, what one partition's
+// checkpoint holds in a consumer group.
+func (e *Engine) EncodePartitions(sink SectionSink, ps []int32) error {
 	w := &encoder{}
 	e.encodeGlobal(w)
 	if err := sink.Begin(true, 0); err != nil {
@@ -89,6 +96,9 @@ func (e *Engine) EncodeSections(sink SectionSink) error {
 		byPart[ks.partition] = append(byPart[ks.partition], ks)
 	}
 	for _, p := range e.Positions() {
+		if ps != nil && !slices.Contains(ps, p.Partition) {
+			continue
+		}
 		if err := sink.Begin(false, p.Partition); err != nil {
 			return err
 		}

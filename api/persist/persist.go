@@ -12,6 +12,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"path/filepath"
 	"slices"
 
 	"tidemark/checkpoint"
@@ -160,4 +161,49 @@ func FromCheckpoint(secs []checkpoint.Section) []learner.Section {
 		out[i] = learner.Section{Global: s.Global, Partition: s.Partition, Bytes: s.Bytes}
 	}
 	return out
+}
+
+// PartitionDir is where partition p's checkpoints are kept in a checkpoint
+// directory that the instances of a consumer group share: each partition has
+// a store of its own, written by whichever instance owns the partition.
+func PartitionDir(dir string, p int32) string {
+	return filepath.Join(dir, fmt.Sprintf("partition-%05d", p))
+}
+
+// SavePartition writes partition p of eng (its keys, high-water mark and
+// counters, with the global section) to store, the partition's own, stamped
+// with the consumer-group generation in which owner holds it. A writer whose
+// generation is older than the store's newest checkpoint is refused
+// (checkpoint.ErrFenced): it lost the partition.
+func SavePartition(store *checkpoint.Store, eng *learner.Engine, p int32, reason checkpoint.Reason, generation int64, owner string) (checkpoint.Info, error) {
+	applied, _, ok := eng.PartitionCounts(p)
+	if !ok {
+		return checkpoint.Info{}, fmt.Errorf("persist: the engine holds no partition %d", p)
+	}
+	m := checkpoint.Manifest{Reason: reason, Events: applied, ConfigSHA256: eng.Config().Digest(), Generation: generation, Owner: owner}
+	for _, pos := range eng.Positions() {
+		if pos.Partition == p {
+			m.Positions = []checkpoint.Position{{Partition: p, Offset: pos.Offset}}
+		}
+	}
+	return store.WriteState(m, func(sink checkpoint.Sink) error { return eng.EncodePartitions(sink, []int32{p}) })
+}
+
+// AdoptPartition reads the newest good checkpoint of a partition's store
+// (older ones when newer fail their checks, as AdoptNewest) and merges its
+// state into eng, which must not hold that partition. It returns the
+// checkpoint read, nil when the store holds none (eng unchanged).
+func AdoptPartition(store *checkpoint.Store, eng *learner.Engine, hint string) (*checkpoint.Stream, error) {
+	part, err := learner.NewEngine(eng.Config())
+	if err != nil {
+		return nil, err
+	}
+	st, _, err := AdoptNewest(store, part, hint)
+	if err != nil || st == nil {
+		return nil, err
+	}
+	if err := eng.Merge(part); err != nil {
+		return nil, fmt.Errorf("persist: checkpoint %d of %s: %w", st.Manifest.Version, store.Dir(), err)
+	}
+	return st, nil
 }
