@@ -1,7 +1,9 @@
 package checkpoint
 
 import (
+	"bytes"
 	"errors"
+	"io"
 	"os"
 	"path/filepath"
 	"testing"
@@ -42,6 +44,19 @@ func FuzzDecode(f *testing.F) {
 		if err != nil && !errors.Is(err, ErrCorrupt) {
 			t.Fatalf("error %v does not wrap ErrCorrupt", err)
 		}
+		// Read as a stream (how a service loads), the same bytes get the
+		// same verdict and, when good, the same sections.
+		secs, serr := streamBytes(s, b)
+		switch {
+		case err == nil && serr != nil:
+			t.Fatalf("whole, the file is good; as a stream: %v", serr)
+		case err != nil && serr == nil:
+			t.Fatalf("whole, the file is refused (%v); as a stream it passed", err)
+		case serr != nil && !errors.Is(serr, ErrCorrupt):
+			t.Fatalf("stream error %v does not wrap ErrCorrupt", serr)
+		case err == nil && stateDigest(secs) != stateDigest(c.Sections):
+			t.Fatal("as a stream, other sections")
+		}
 	})
 }
 
@@ -56,5 +71,42 @@ func TestHostileCopiesRefused(t *testing.T) {
 		if _, err := s.decode(filepath.Base(p), b, nil); !errors.Is(err, ErrCorrupt) {
 			t.Errorf("%s: %v, want ErrCorrupt", p, err)
 		}
+	}
+}
+
+// memFile is a file held in memory, for Store.stream.
+type memFile struct{ *bytes.Reader }
+
+func (memFile) Close() error { return nil }
+
+// streamBytes reads the checkpoint file b through the stream reader and
+// returns its sections and the verdict.
+func streamBytes(s *Store, b []byte) ([]Section, error) {
+	st, err := s.stream("fuzz", memFile{bytes.NewReader(b)})
+	if err != nil {
+		return nil, err
+	}
+	var secs []Section
+	for {
+		g, p, _, ok, err := st.NextSection()
+		if err != nil || !ok {
+			if cerr := st.Close(); err == nil {
+				err = cerr
+			}
+			return secs, err
+		}
+		sec := Section{Global: g, Partition: p, Bytes: []byte{}}
+		for {
+			piece, err := st.Piece()
+			if err == io.EOF {
+				break
+			}
+			if err != nil {
+				st.Close()
+				return secs, err
+			}
+			sec.Bytes = append(sec.Bytes, piece...)
+		}
+		secs = append(secs, sec)
 	}
 }

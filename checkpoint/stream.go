@@ -101,8 +101,9 @@ func (s *Store) stream(name string, f OpenFile) (*Stream, error) {
 	}
 	if binary.LittleEndian.Uint32(head[8:]) != 2 {
 		// Format 1 keeps its table up front and its file is read whole.
+		b := make([]byte, size)
+		_, err := f.ReadAt(b, 0)
 		f.Close()
-		b, err := s.cfg.FS.ReadFile(filepath.Join(s.cfg.Dir, name))
 		if err != nil {
 			return nil, fmt.Errorf("checkpoint: %w", err)
 		}
