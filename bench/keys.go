@@ -72,6 +72,12 @@ func writeKeysHistory(path string, n, k int) error {
 	if err := w.Flush(); err != nil {
 		return err
 	}
+	// On disk before anything is timed: the kernel writing 400 MB back in
+	// the background would otherwise share the disk with the checkpoint's
+	// sync (a write measured at 5.2 s once, against 2.5–3 s).
+	if err := f.Sync(); err != nil {
+		return err
+	}
 	return f.Close()
 }
 
