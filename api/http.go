@@ -237,7 +237,8 @@ func (s *Service) handlePredict(c echo.Context) error {
 	if name == "" {
 		name = s.cfg.DefaultLearner
 	}
-	snap := s.snap.Load()
+	snap := s.holdState()
+	defer snap.state.eng.Release()
 	resp := PredictResponse{Learner: name, Checkpoint: snap.state.ckVersion, Events: snap.state.applied, Caution: caution}
 	var ev learner.Event
 	for i, row := range rows {
@@ -322,7 +323,9 @@ func (s *Service) handleEvents(c echo.Context) error {
 	var resp EventsResponse
 	var ok [][]byte
 	var ev learner.Event
-	v := s.snap.Load().state.eng.NewValidator()
+	held := s.holdState()
+	defer held.state.eng.Release()
+	v := held.state.eng.NewValidator()
 	for i, l := range lines {
 		err := learner.DecodeEvent(l.data, &ev)
 		if err == nil {
@@ -395,7 +398,9 @@ func (s *Service) handleLearners(c echo.Context) error {
 	if c.QueryParam("keys") != "false" {
 		// Per-key figures visit every key of the published copy: work this
 		// request asks for, not something every publish pays.
+		snap = s.holdState()
 		r = snap.state.eng.Report(true)
+		snap.state.eng.Release()
 	}
 	return c.JSON(http.StatusOK, r)
 }

@@ -454,6 +454,11 @@ func (l *loop) publish() {
 		snap.checkpoints = cur.checkpoints
 	}
 	l.snap.Store(snap)
+	if cur != nil && cur.state != state {
+		// Readers now find the new copy; those still reading the old one
+		// hold it until they are done.
+		cur.state.eng.Release()
+	}
 }
 
 // do runs f on the loop and waits for its result.

@@ -37,7 +37,12 @@ type stateView struct {
 	positions string
 }
 
+// newStateView publishes eng. The copy is held once, by the loop, until a
+// newer one replaces it in the snapshot (loop.publish releases it); readers
+// of its keys hold it while they read (Service.holdState), so that the
+// engine may reuse the storage of versions no held copy shows.
 func newStateView(eng *learner.Engine, ck checkpoint.Info) *stateView {
+	eng.RecycleReleased()
 	pub := eng.Publish()
 	return &stateView{eng: pub, report: pub.Report(false), ck: ck, ckVersion: ck.Version, applied: eng.Applied(),
 		positions: positionsKey(eng)}
@@ -68,4 +73,16 @@ func (s *snapshot) lagTotal() int64 {
 		n += l.Offset
 	}
 	return n
+}
+
+// holdState returns the current snapshot with its copy of the engine held
+// for reading keys; the caller releases it (snap.state.eng.Release). A copy
+// the loop has just replaced cannot be held any more: then the newer one is.
+func (s *Service) holdState() *snapshot {
+	for {
+		snap := s.snap.Load()
+		if snap.state.eng.Acquire() {
+			return snap
+		}
+	}
 }

@@ -9,6 +9,7 @@ import (
 	"math"
 	"slices"
 	"strings"
+	"sync/atomic"
 	"unsafe"
 )
 
@@ -112,6 +113,16 @@ type Engine struct {
 	publishing bool
 	frozen     bool
 	nkeys      int // keys of a frozen engine
+
+	// Recycling (recycle.go): the registry of published copies still held;
+	// a copy's holds and epoch; the live engine's replaced versions by
+	// epoch, and those no held copy shows.
+	views     *views
+	holds     *atomic.Int32 // of a published copy
+	viewEpoch uint64
+	recycling bool
+	retired   []retiredList
+	spares    []*keyState
 
 	sink    float64                      // what Prefetch read, kept so that its reads stay
 	ahead   [PrefetchAhead - 1]*keyState // the entries Prefetch found at its last calls, newest first
@@ -719,6 +730,13 @@ func (e *Engine) Publish() *Engine {
 			v.totals[i].lastAlarm = &c
 		}
 	}
+	if e.views == nil {
+		e.views = newViews()
+	}
+	v.views, v.viewEpoch = e.views, e.epoch
+	v.holds = new(atomic.Int32)
+	v.holds.Store(1) // the publisher's
+	e.views.add(e.epoch)
 	e.epoch++ // what v holds is now frozen
 	return v
 }
@@ -726,12 +744,26 @@ func (e *Engine) Publish() *Engine {
 // own returns a copy of ks that the engine may change: ks was published in
 // an earlier epoch and is read by whoever holds that publish.
 func (e *Engine) own(ks *keyState) *keyState {
-	c := allocKey(len(ks.slots))
-	c.key, c.partition, c.hash, c.epoch, c.idx = ks.key, ks.partition, ks.hash, e.epoch, ks.idx
-	for i := range ks.slots {
-		s := &ks.slots[i]
-		c.slots[i] = slot{learner: s.learner.clone(), score: s.score.clone(), drift: s.drift, held: s.held}
+	var c *keyState
+	if e.recycling {
+		e.retire(ks)
+		c = e.spare()
 	}
+	if c != nil && len(c.slots) == len(ks.slots) {
+		for i := range ks.slots {
+			s, d := &ks.slots[i], &c.slots[i]
+			d.learner = s.learner.cloneInto(d.learner)
+			s.score.cloneInto(&d.score)
+			d.drift, d.held = s.drift, s.held
+		}
+	} else {
+		c = allocKey(len(ks.slots))
+		for i := range ks.slots {
+			s := &ks.slots[i]
+			c.slots[i] = slot{learner: s.learner.clone(), score: s.score.clone(), drift: s.drift, held: s.held}
+		}
+	}
+	c.key, c.partition, c.hash, c.epoch, c.idx = ks.key, ks.partition, ks.hash, e.epoch, ks.idx
 	e.keys.set(c)
 	e.byName[c.idx] = c
 	e.root = e.root.with(c, 0, e.epoch)

@@ -57,6 +57,20 @@ type neighbor struct {
 
 var _ Learner = (*KNN)(nil)
 
+// cloneInto implements Learner.
+func (m *KNN) cloneInto(dst Learner) Learner {
+	d, ok := dst.(*KNN)
+	if !ok || len(d.moms) != len(m.moms) || len(d.inv) != len(m.inv) || cap(d.best) != cap(m.best) {
+		return m.clone()
+	}
+	w, moms, inv, best := d.w, d.moms, d.inv, d.best
+	*d = *m
+	d.w = m.w.cloneInto(w)
+	copy(moms, m.moms)
+	d.moms, d.inv, d.best = moms, inv, best[:len(m.best)]
+	return d
+}
+
 // rebind implements Learner (k-NN's working space is its own).
 func (m *KNN) rebind(**scratch) {}
 

@@ -31,6 +31,10 @@ type Learner interface {
 	// with the original: the engine copies a key it published before
 	// changing it, on the same goroutine).
 	clone() Learner
+	// cloneInto is clone into dst's storage, a learner of the same engine
+	// that nobody reads any more (Engine.own recycles them), when it has the
+	// same kind and shape; otherwise it is clone.
+	cloneInto(dst Learner) Learner
 	// rebind makes the learner use the working space *sp (made when nil)
 	// instead of its engine's: it moves to another engine (Engine.Merge).
 	rebind(sp **scratch)

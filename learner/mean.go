@@ -25,6 +25,18 @@ type Mean struct {
 
 var _ Learner = (*Mean)(nil)
 
+// cloneInto implements Learner.
+func (m *Mean) cloneInto(dst Learner) Learner {
+	d, ok := dst.(*Mean)
+	if !ok {
+		return m.clone()
+	}
+	w := d.w
+	*d = *m
+	d.w = m.w.cloneInto(w)
+	return d
+}
+
 // rebind implements Learner (a mean uses no shared working space).
 func (m *Mean) rebind(**scratch) {}
 

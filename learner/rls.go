@@ -63,6 +63,21 @@ func newRLSShared(cfg *RLSConfig, d int, sp **scratch) *RLS {
 	return m
 }
 
+// cloneInto implements Learner.
+func (m *RLS) cloneInto(dst Learner) Learner {
+	d, ok := dst.(*RLS)
+	if !ok || len(d.qr.r) != len(m.qr.r) || len(d.qr.z) != len(m.qr.z) || len(d.theta) != len(m.theta) {
+		return m.clone()
+	}
+	r, z, th := d.qr.r, d.qr.z, d.theta
+	*d = *m
+	copy(r, m.qr.r)
+	copy(z, m.qr.z)
+	copy(th, m.theta)
+	d.qr.r, d.qr.z, d.theta = r, z, th
+	return d
+}
+
 // rebind implements Learner.
 func (m *RLS) rebind(sp **scratch) { m.qr.s = useScratch(sp, m.qr.p) }
 

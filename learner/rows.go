@@ -71,6 +71,20 @@ func (r *rows) touch() float64 {
 	return v
 }
 
+// cloneInto returns a copy of r in into's storage when it has r's shape,
+// else an independent copy (clone).
+func (r *rows) cloneInto(into rows) rows {
+	if len(into.x) != len(r.x) || len(into.y) != len(r.y) || len(into.t) != len(r.t) {
+		return r.clone()
+	}
+	c := *r
+	copy(into.x, r.x)
+	copy(into.y, r.y)
+	copy(into.t, r.t)
+	c.x, c.y, c.t = into.x, into.y, into.t
+	return c
+}
+
 // clone returns an independent copy.
 func (r *rows) clone() rows {
 	c := *r

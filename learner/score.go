@@ -93,6 +93,19 @@ func newScorer(recent int, alpha float64) Scorer {
 	return Scorer{rec: make([]float64, n), idx: window.NewIndex(n), recMax: recent, alpha: alpha}
 }
 
+// cloneInto sets *dst, a scorer nobody reads any more, to a copy of s,
+// reusing its storage when it has s's shape.
+func (s *Scorer) cloneInto(dst *Scorer) {
+	rec := dst.rec
+	*dst = *s
+	if len(rec) == len(s.rec) {
+		copy(rec, s.rec)
+		dst.rec = rec
+	} else {
+		dst.rec = slices.Clone(s.rec)
+	}
+}
+
 // clone returns an independent copy.
 func (s *Scorer) clone() Scorer {
 	c := *s

@@ -51,6 +51,22 @@ func newSlidingShared(cfg SlidingConfig, d int, sp **scratch) *SlidingRLS {
 	return &SlidingRLS{cfg: cfg, ex: ex, w: newRows(p, cfg.Window, cfg.Max), qr: qr, theta: theta, rankDef: p}
 }
 
+// cloneInto implements Learner.
+func (m *SlidingRLS) cloneInto(dst Learner) Learner {
+	d, ok := dst.(*SlidingRLS)
+	if !ok || len(d.qr.r) != len(m.qr.r) || len(d.qr.z) != len(m.qr.z) || len(d.theta) != len(m.theta) {
+		return m.clone()
+	}
+	r, z, th, w := d.qr.r, d.qr.z, d.theta, d.w
+	*d = *m
+	copy(r, m.qr.r)
+	copy(z, m.qr.z)
+	copy(th, m.theta)
+	d.qr.r, d.qr.z, d.theta = r, z, th
+	d.w = m.w.cloneInto(w)
+	return d
+}
+
 // rebind implements Learner.
 func (m *SlidingRLS) rebind(sp **scratch) { m.qr.s = useScratch(sp, m.qr.p) }
 
