@@ -123,6 +123,7 @@ type Engine struct {
 	recycling bool
 	retired   []retiredList
 	spares    []*keyState
+	nodes     *nodePool // the trie's, when recycling
 
 	sink    float64                      // what Prefetch read, kept so that its reads stay
 	ahead   [PrefetchAhead - 1]*keyState // the entries Prefetch found at its last calls, newest first
@@ -549,7 +550,7 @@ func (e *Engine) addKey(ks *keyState) {
 	ks.idx = len(e.byName)
 	e.byName = append(e.byName, ks)
 	if e.publishing {
-		e.root = e.root.with(ks, 0, e.epoch)
+		e.root = e.root.with(ks, 0, e.epoch, e.nodes)
 	}
 	for i := range e.totals {
 		e.totals[i].count(ks, i, 1)
@@ -716,7 +717,7 @@ func (e *Engine) Publish() *Engine {
 		e.publishing = true
 		for _, ks := range e.byName {
 			ks.epoch = e.epoch
-			e.root = e.root.with(ks, 0, e.epoch)
+			e.root = e.root.with(ks, 0, e.epoch, e.nodes)
 		}
 	}
 	v := &Engine{cfg: e.cfg, schema: e.schema, needTime: e.needTime, baseline: e.baseline,
@@ -732,6 +733,9 @@ func (e *Engine) Publish() *Engine {
 	}
 	if e.views == nil {
 		e.views = newViews()
+	}
+	if e.recycling && e.nodes == nil {
+		e.nodes = &nodePool{views: e.views}
 	}
 	v.views, v.viewEpoch = e.views, e.epoch
 	v.holds = new(atomic.Int32)
@@ -766,7 +770,7 @@ func (e *Engine) own(ks *keyState) *keyState {
 	c.key, c.partition, c.hash, c.epoch, c.idx = ks.key, ks.partition, ks.hash, e.epoch, ks.idx
 	e.keys.set(c)
 	e.byName[c.idx] = c
-	e.root = e.root.with(c, 0, e.epoch)
+	e.root = e.root.with(c, 0, e.epoch, e.nodes)
 	return c
 }
 

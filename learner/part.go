@@ -127,7 +127,7 @@ func (e *Engine) moveFrom(o *Engine, take func(int32) bool) {
 		}
 		o.keys.remove(ks)
 		if o.publishing {
-			o.root = o.root.without(ks.key, ks.hash, 0, o.epoch)
+			o.root = o.root.without(ks.key, ks.hash, 0, o.epoch, o.nodes)
 		}
 		o.keyBase -= keyBase(ks)
 		for i := range o.totals {

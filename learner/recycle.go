@@ -138,3 +138,81 @@ func (e *Engine) spare() *keyState {
 	e.spares = e.spares[:n-1]
 	return ks
 }
+
+// nodePool recycles trie nodes as the engine recycles key versions: a node
+// a copy replaced in epoch R (trieNode.owned) is reused once no published
+// copy of an epoch before R is held. Nodes are kept by their room for
+// children (1, 2, 4, … 32); lists of keys of one hash are left to the
+// collector. A nil pool recycles nothing.
+type nodePool struct {
+	views   *views
+	retired []retiredNodes
+	spares  [6][]*trieNode
+}
+
+type retiredNodes struct {
+	epoch uint64
+	nodes []*trieNode
+}
+
+// roomClass returns the spares list of a node with room for c children, or
+// −1 for a list.
+func roomClass(c int) int {
+	for i, room := range [...]int{1, 2, 4, 8, 16, 32} {
+		if c == room {
+			return i
+		}
+	}
+	return -1
+}
+
+func (p *nodePool) retire(n *trieNode, epoch uint64) {
+	if p == nil || roomClass(cap(n.kids)) < 0 {
+		return
+	}
+	if k := len(p.retired); k == 0 || p.retired[k-1].epoch != epoch {
+		p.retired = append(p.retired, retiredNodes{epoch: epoch})
+	}
+	l := &p.retired[len(p.retired)-1]
+	l.nodes = append(l.nodes, n)
+}
+
+// take returns an empty node made in epoch with room for at least c
+// children: a spare when there is one, else a new one.
+func (p *nodePool) take(c int, epoch uint64) *trieNode {
+	if p == nil {
+		return newTrieNode(c, epoch)
+	}
+	if len(p.retired) > 0 {
+		oldest := p.views.oldest.Load()
+		k := 0
+		for k < len(p.retired) && p.retired[k].epoch <= oldest {
+			for _, n := range p.retired[k].nodes {
+				if cl := roomClass(cap(n.kids)); len(p.spares[cl]) < maxSpares {
+					p.spares[cl] = append(p.spares[cl], n)
+				}
+			}
+			k++
+		}
+		if k > 0 {
+			clear(p.retired[:k])
+			p.retired = append(p.retired[:0], p.retired[k:]...)
+		}
+	}
+	for cl, room := range [...]int{1, 2, 4, 8, 16, 32} {
+		if room < c {
+			continue
+		}
+		if k := len(p.spares[cl]); k > 0 {
+			n := p.spares[cl][k-1]
+			p.spares[cl][k-1] = nil
+			p.spares[cl] = p.spares[cl][:k-1]
+			clear(n.kids[:cap(n.kids)])
+			n.kids = n.kids[:0]
+			n.epoch, n.bits, n.subs = epoch, 0, 0
+			return n
+		}
+		break // a spare with more room than needed stays for its own size
+	}
+	return newTrieNode(c, epoch)
+}

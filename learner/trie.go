@@ -35,9 +35,9 @@ const trieBits = 5
 
 // with returns the trie t (nil for empty) with ks set under its key, changing
 // nodes of the given epoch in place and copying older ones.
-func (t *trieNode) with(ks *keyState, shift uint, epoch uint64) *trieNode {
+func (t *trieNode) with(ks *keyState, shift uint, epoch uint64, pool *nodePool) *trieNode {
 	if shift >= 64 { // the whole hash is equal: a list
-		n := t.owned(epoch, 1)
+		n := t.owned(epoch, 1, pool)
 		for i, p := range n.kids {
 			if (*keyState)(p).key == ks.key {
 				n.kids[i] = unsafe.Pointer(ks)
@@ -48,36 +48,38 @@ func (t *trieNode) with(ks *keyState, shift uint, epoch uint64) *trieNode {
 	}
 	bit := uint32(1) << (ks.hash >> shift & (1<<trieBits - 1))
 	if t == nil || t.bits&bit == 0 {
-		n := t.owned(epoch, 1)
+		n := t.owned(epoch, 1, pool)
 		n = n.insert(bits.OnesCount32(n.bits&(bit-1)), unsafe.Pointer(ks))
 		n.bits |= bit
 		return n
 	}
-	n := t.owned(epoch, 0)
+	n := t.owned(epoch, 0, pool)
 	pos := bits.OnesCount32(n.bits & (bit - 1))
 	switch p := n.kids[pos]; {
 	case n.subs&bit != 0:
-		n.kids[pos] = unsafe.Pointer((*trieNode)(p).with(ks, shift+trieBits, epoch))
+		n.kids[pos] = unsafe.Pointer((*trieNode)(p).with(ks, shift+trieBits, epoch, pool))
 	case (*keyState)(p).key == ks.key:
 		n.kids[pos] = unsafe.Pointer(ks)
 	default: // two keys in one place: push the one there down a level
-		sub := (*trieNode)(nil).with((*keyState)(p), shift+trieBits, epoch)
-		n.kids[pos] = unsafe.Pointer(sub.with(ks, shift+trieBits, epoch))
+		sub := (*trieNode)(nil).with((*keyState)(p), shift+trieBits, epoch, pool)
+		n.kids[pos] = unsafe.Pointer(sub.with(ks, shift+trieBits, epoch, pool))
 		n.subs |= bit
 	}
 	return n
 }
 
 // owned returns t if it was made in epoch, else a copy made in it (nil: an
-// empty node) with room for more children.
-func (t *trieNode) owned(epoch uint64, more int) *trieNode {
+// empty node) with room for more children; the copy replaces t, which pool
+// (nil: none) may reuse once no published copy shows it.
+func (t *trieNode) owned(epoch uint64, more int, pool *nodePool) *trieNode {
 	if t != nil && t.epoch == epoch {
 		return t
 	}
 	if t == nil {
-		return newTrieNode(more, epoch)
+		return pool.take(more, epoch)
 	}
-	n := newTrieNode(len(t.kids)+more, epoch)
+	pool.retire(t, epoch)
+	n := pool.take(len(t.kids)+more, epoch)
 	n.bits, n.subs = t.bits, t.subs
 	n.kids = append(n.kids, t.kids...)
 	return n
@@ -179,14 +181,14 @@ func (t *trieNode) each(f func(*keyState)) {
 // without returns the trie t with key (of hash h) taken out, changing nodes
 // of the given epoch in place and copying older ones; a node left empty is
 // dropped (nil). A key that is not there changes nothing.
-func (t *trieNode) without(key string, h uint64, shift uint, epoch uint64) *trieNode {
+func (t *trieNode) without(key string, h uint64, shift uint, epoch uint64, pool *nodePool) *trieNode {
 	if t == nil {
 		return nil
 	}
 	if shift >= 64 {
 		for i, p := range t.kids {
 			if (*keyState)(p).key == key {
-				n := t.owned(epoch, 0)
+				n := t.owned(epoch, 0, pool)
 				copy(n.kids[i:], n.kids[i+1:])
 				n.kids[len(n.kids)-1] = nil
 				n.kids = n.kids[:len(n.kids)-1]
@@ -206,13 +208,13 @@ func (t *trieNode) without(key string, h uint64, shift uint, epoch uint64) *trie
 	var sub *trieNode
 	if t.subs&bit != 0 {
 		old := (*trieNode)(t.kids[pos])
-		if sub = old.without(key, h, shift+trieBits, epoch); sub == old {
+		if sub = old.without(key, h, shift+trieBits, epoch, pool); sub == old {
 			return t
 		}
 	} else if (*keyState)(t.kids[pos]).key != key {
 		return t
 	}
-	n := t.owned(epoch, 0)
+	n := t.owned(epoch, 0, pool)
 	if sub != nil {
 		n.kids[pos] = unsafe.Pointer(sub)
 		return n

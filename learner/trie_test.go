@@ -43,25 +43,25 @@ func TestTrieKeepsEveryPublishedVersion(t *testing.T) {
 		for n := 0; n < len(hashes)/8 && next < len(hashes); n++ { // new keys
 			ks := &keyState{key: fmt.Sprintf("k%d", next), hash: hashes[next]}
 			next++
-			root = root.with(ks, 0, epoch)
+			root = root.with(ks, 0, epoch, nil)
 			want[ks.key] = ks
 		}
 		for key, old := range want { // new versions of some keys, some twice
 			if rng.IntN(3) == 0 {
 				for v := 0; v <= rng.IntN(2); v++ {
 					ks := &keyState{key: key, hash: old.hash}
-					root = root.with(ks, 0, epoch)
+					root = root.with(ks, 0, epoch, nil)
 					want[key] = ks
 				}
 			}
 		}
 		for key, ks := range want { // some keys leave (Split)
 			if rng.IntN(9) == 0 {
-				root = root.without(key, ks.hash, 0, epoch)
+				root = root.without(key, ks.hash, 0, epoch, nil)
 				delete(want, key)
 			}
 		}
-		root = root.without("absent", same, 0, epoch)
+		root = root.without("absent", same, 0, epoch, nil)
 		pubs = append(pubs, published{root, maps.Clone(want)})
 	}
 	for e, p := range pubs {
