@@ -2,8 +2,12 @@ package api
 
 import (
 	"bytes"
+	"fmt"
+	"io"
+	"math/rand/v2"
 	"net/http"
 	"slices"
+	"strings"
 	"sync/atomic"
 	"testing"
 	"time"
@@ -123,3 +127,100 @@ func BenchmarkKafkaIntake(b *testing.B) {
 
 // brokerB is broker for benchmarks.
 func brokerB(b *testing.B) string { return broker(b) }
+
+// BenchmarkPredictWhileLearningKeys: issue 13's service case — POST
+// /v1/predict latency (p50, p99) from one client while a writer feeds events
+// over 100 or 100 000 keys (rls d = 8 + mean:window=100) as fast as the
+// journal takes them, the service publishing every 200 ms as it does by
+// default. Every key has two events before the clock starts (the one asked
+// about, 22).
+func BenchmarkPredictWhileLearningKeys(b *testing.B) {
+	for _, nk := range []int{100, 100_000} {
+		b.Run(fmt.Sprintf("keys=%d", nk), func(b *testing.B) {
+			cfg := testConfig(b, b.TempDir())
+			cfg.Engine = engineConfig(b, "rls:forget=0.99", "mean:window=100")
+			cfg.PublishEvery, cfg.CheckpointEvery = DefaultPublishEvery, 1<<40
+			r := start(b, cfg)
+			rng := rand.New(rand.NewPCG(13, uint64(nk)))
+			line := func(i int, key int) []byte {
+				var feats strings.Builder
+				y := 0.0
+				for j := 0; j < 8; j++ {
+					v := rng.NormFloat64()
+					y += float64(j+1) * v
+					fmt.Fprintf(&feats, `%s"x%d":%.4f`, map[bool]string{true: "", false: ","}[j == 0], j, v)
+				}
+				return []byte(fmt.Sprintf(`{"time":"%s","key":"meter-%d","features":{%s},"target":%.4f}`,
+					time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC).Add(time.Duration(i)*time.Second).Format(time.RFC3339), key, feats.String(), y))
+			}
+			post := func(ls [][]byte) {
+				resp, err := http.Post(r.base+"/v1/events", "application/x-ndjson", bytes.NewReader(bytes.Join(ls, []byte("\n"))))
+				if err == nil {
+					resp.Body.Close()
+				}
+			}
+			// Two events for every key first, so that every key answers.
+			i := 0
+			var batch [][]byte
+			for rep := 0; rep < 2; rep++ {
+				for k := 0; k < nk; k++ {
+					batch = append(batch, line(i, k))
+					i++
+					if len(batch) == 1000 {
+						post(batch)
+						batch = batch[:0]
+					}
+				}
+			}
+			for k := 0; k < 20; k++ { // enough for rls to answer on the key asked
+				batch = append(batch, line(i, 7))
+				i++
+			}
+			post(batch)
+			for r.report(b).Events < int64(2*nk+20) {
+				time.Sleep(20 * time.Millisecond)
+			}
+			var pool [][]byte // the writer's events: keys drawn at random
+			for len(pool) < 20_000 {
+				pool = append(pool, line(i, rng.IntN(nk)))
+				i++
+			}
+			stop := make(chan struct{})
+			done := make(chan struct{})
+			go func() {
+				defer close(done)
+				for j := 0; ; j = (j + 500) % len(pool) {
+					select {
+					case <-stop:
+						return
+					default:
+					}
+					post(pool[j : j+500])
+				}
+			}()
+			row := []byte(`{"learner":"rls:forget=0.99","key":"meter-7","time":"2026-03-05T12:00:00Z","features":{"x0":0.1,"x1":0.2,"x2":0.3,"x3":0.4,"x4":0.5,"x5":0.6,"x6":0.7,"x7":0.8}}`)
+			lat := make([]time.Duration, 0, b.N)
+			client := &http.Client{}
+			b.ResetTimer()
+			for n := 0; n < b.N; n++ {
+				t0 := time.Now()
+				resp, err := client.Post(r.base+"/v1/predict", "application/json", bytes.NewReader(row))
+				if err != nil {
+					b.Fatal(err)
+				}
+				io.Copy(io.Discard, resp.Body)
+				resp.Body.Close()
+				if resp.StatusCode != 200 {
+					b.Fatalf("predict: %s", resp.Status)
+				}
+				lat = append(lat, time.Since(t0))
+			}
+			b.StopTimer()
+			close(stop)
+			<-done
+			slices.Sort(lat)
+			b.ReportMetric(float64(lat[len(lat)/2].Microseconds()), "p50_µs")
+			b.ReportMetric(float64(lat[len(lat)*99/100].Microseconds()), "p99_µs")
+		})
+	}
+}
