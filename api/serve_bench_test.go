@@ -73,34 +73,11 @@ func BenchmarkPredictWhileLearning(b *testing.B) {
 		}
 	}()
 	row := []byte(`{"learner":"knn:k=10,window=2000","key":"room-b","time":"2026-03-05T12:00:00Z","features":{"outdoor_c":14.2,"door_min":2,"shift":"day"}}`)
-	lat := make([]time.Duration, 0, b.N)
-	client := &http.Client{}
 	b.ReportAllocs()
-	b.ResetTimer()
-	for i := 0; i < b.N; i++ {
-		t0 := time.Now()
-		resp, err := client.Post(r.base+"/v1/predict", "application/json", bytes.NewReader(row))
-		if err != nil {
-			b.Fatal(err)
-		}
-		if resp.StatusCode != 200 {
-			b.Fatalf("predict: %s", resp.Status)
-		}
-		var buf [4096]byte
-		for {
-			if _, err := resp.Body.Read(buf[:]); err != nil {
-				break
-			}
-		}
-		resp.Body.Close()
-		lat = append(lat, time.Since(t0))
-	}
-	b.StopTimer()
+	lat := timePredicts(b, r.base, row)
 	close(stop)
 	<-done
-	slices.Sort(lat)
-	b.ReportMetric(float64(lat[len(lat)/2].Microseconds()), "p50_µs")
-	b.ReportMetric(float64(lat[len(lat)*99/100].Microseconds()), "p99_µs")
+	reportLatency(b, lat)
 	rep := r.report(b)
 	b.ReportMetric(float64(rep.Events), "events_applied")
 }
@@ -199,28 +176,40 @@ func BenchmarkPredictWhileLearningKeys(b *testing.B) {
 				}
 			}()
 			row := []byte(`{"learner":"rls:forget=0.99","key":"meter-7","time":"2026-03-05T12:00:00Z","features":{"x0":0.1,"x1":0.2,"x2":0.3,"x3":0.4,"x4":0.5,"x5":0.6,"x6":0.7,"x7":0.8}}`)
-			lat := make([]time.Duration, 0, b.N)
-			client := &http.Client{}
-			b.ResetTimer()
-			for n := 0; n < b.N; n++ {
-				t0 := time.Now()
-				resp, err := client.Post(r.base+"/v1/predict", "application/json", bytes.NewReader(row))
-				if err != nil {
-					b.Fatal(err)
-				}
-				io.Copy(io.Discard, resp.Body)
-				resp.Body.Close()
-				if resp.StatusCode != 200 {
-					b.Fatalf("predict: %s", resp.Status)
-				}
-				lat = append(lat, time.Since(t0))
-			}
-			b.StopTimer()
+			lat := timePredicts(b, r.base, row)
 			close(stop)
 			<-done
-			slices.Sort(lat)
-			b.ReportMetric(float64(lat[len(lat)/2].Microseconds()), "p50_µs")
-			b.ReportMetric(float64(lat[len(lat)*99/100].Microseconds()), "p99_µs")
+			reportLatency(b, lat)
 		})
 	}
+}
+
+// timePredicts posts row to /v1/predict b.N times, on the benchmark's clock,
+// and returns each answer's latency.
+func timePredicts(b *testing.B, base string, row []byte) []time.Duration {
+	lat := make([]time.Duration, 0, b.N)
+	client := &http.Client{}
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		t0 := time.Now()
+		resp, err := client.Post(base+"/v1/predict", "application/json", bytes.NewReader(row))
+		if err != nil {
+			b.Fatal(err)
+		}
+		if resp.StatusCode != 200 {
+			b.Fatalf("predict: %s", resp.Status)
+		}
+		io.Copy(io.Discard, resp.Body)
+		resp.Body.Close()
+		lat = append(lat, time.Since(t0))
+	}
+	b.StopTimer()
+	return lat
+}
+
+// reportLatency reports the median and 99th percentile of lat.
+func reportLatency(b *testing.B, lat []time.Duration) {
+	slices.Sort(lat)
+	b.ReportMetric(float64(lat[len(lat)/2].Microseconds()), "p50_µs")
+	b.ReportMetric(float64(lat[len(lat)*99/100].Microseconds()), "p99_µs")
 }

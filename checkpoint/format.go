@@ -216,47 +216,75 @@ func parseFile(file string, b []byte, maxRaw int64) (*parsed, error) {
 
 // parseFile2 is parseFile for format version 2 (see FormatVersion).
 func parseFile2(file string, b []byte, maxRaw int64) (*parsed, error) {
-	const start = 12 // magic and version
-	if len(b) < start+footerLen {
+	if len(b) < start2+footerLen {
 		return nil, corrupt(file, len(b), ErrTruncated, "file of %d bytes is shorter than a header and footer", len(b))
 	}
-	foot := len(b) - footerLen
-	if n := binary.LittleEndian.Uint64(b[foot+8:]); n != uint64(len(b)) {
+	foot := b[len(b)-footerLen:]
+	if n := binary.LittleEndian.Uint64(foot[8:]); n != uint64(len(b)) {
 		return nil, corrupt(file, len(b), ErrTruncated, "file is %d bytes but declares %d", len(b), n)
 	}
 	body := b[:len(b)-trailerLen]
 	if got, want := crc32.Checksum(body, castagnoli), binary.LittleEndian.Uint32(b[len(b)-trailerLen:]); got != want {
 		return nil, corrupt(file, len(b)-trailerLen, ErrChecksum, "CRC-32C %08x, file says %08x", got, want)
 	}
-	n := int(binary.LittleEndian.Uint32(b[foot:]))
-	ml := int(binary.LittleEndian.Uint32(b[foot+4:]))
-	if ml > maxManifest || ml > foot-start {
-		return nil, corrupt(file, foot+4, nil, "manifest length %d does not fit", ml)
+	l, err := layout2(file, foot, len(b))
+	if err != nil {
+		return nil, err
 	}
-	manOff := foot - ml
-	if n < 1 || n > maxSections || n > (manOff-start)/entryLen2 {
-		return nil, corrupt(file, foot, nil, "section count %d does not fit", n)
+	return parseTail2(file, b[l.tableOff:l.footAt], l, maxRaw)
+}
+
+// start2 is where a format-2 file's first section begins: after the magic
+// and the format version.
+const start2 = 12
+
+// tail2 is where a format-2 file's section table and manifest lie.
+type tail2 struct {
+	n                        int // sections
+	tableOff, manOff, footAt int
+}
+
+// layout2 reads from a format-2 file's footer (its last footerLen bytes; the
+// file is size bytes) where its table and manifest lie, and checks that
+// they fit. Both readers use it: the whole-file one after the CRC, the
+// stream before reading the rest.
+func layout2(file string, foot []byte, size int) (tail2, error) {
+	l := tail2{n: int(binary.LittleEndian.Uint32(foot[0:])), footAt: size - footerLen}
+	ml := int(binary.LittleEndian.Uint32(foot[4:]))
+	if ml > maxManifest || ml > l.footAt-start2 {
+		return l, corrupt(file, l.footAt+4, nil, "manifest length %d does not fit", ml)
 	}
+	l.manOff = l.footAt - ml
+	if l.n < 1 || l.n > maxSections || l.n > (l.manOff-start2)/entryLen2 {
+		return l, corrupt(file, l.footAt, nil, "section count %d does not fit", l.n)
+	}
+	l.tableOff = l.manOff - l.n*entryLen2
+	return l, nil
+}
+
+// parseTail2 parses a format-2 file's section table and manifest — tail is
+// the file's bytes from the table to the footer, laid out as l — and checks
+// them against each other and against maxRaw.
+func parseTail2(file string, tail []byte, l tail2, maxRaw int64) (*parsed, error) {
 	p := &parsed{}
-	dec := json.NewDecoder(bytes.NewReader(b[manOff:foot]))
+	dec := json.NewDecoder(bytes.NewReader(tail[l.manOff-l.tableOff:]))
 	dec.DisallowUnknownFields()
 	if err := dec.Decode(&p.manifest); err != nil {
-		return nil, corrupt(file, manOff, nil, "manifest: %v", err)
+		return nil, corrupt(file, l.manOff, nil, "manifest: %v", err)
 	}
-	tableOff := manOff - n*entryLen2
-	entries, bodyOff, raw, err := parseTable(file, b, tableOff, 0, n, entryLen2, start, tableOff, maxRaw)
+	entries, bodyOff, raw, err := parseTable(file, tail, 0, l.tableOff, l.n, entryLen2, start2, l.tableOff, maxRaw)
 	if err != nil {
 		return nil, err
 	}
 	p.entries = entries
-	if bodyOff != tableOff {
-		return nil, corrupt(file, bodyOff, nil, "%d bytes between the last section and the table", tableOff-bodyOff)
+	if bodyOff != l.tableOff {
+		return nil, corrupt(file, bodyOff, nil, "%d bytes between the last section and the table", l.tableOff-bodyOff)
 	}
 	if int64(raw) != p.manifest.RawBytes {
-		return nil, corrupt(file, manOff, nil, "manifest says %d raw bytes, sections hold %d", p.manifest.RawBytes, raw)
+		return nil, corrupt(file, l.manOff, nil, "manifest says %d raw bytes, sections hold %d", p.manifest.RawBytes, raw)
 	}
 	if d, err := hex.DecodeString(p.manifest.StateSHA256); err != nil || len(d) != sha256.Size {
-		return nil, corrupt(file, manOff, nil, "manifest state_sha256 %q is not a SHA-256", p.manifest.StateSHA256)
+		return nil, corrupt(file, l.manOff, nil, "manifest state_sha256 %q is not a SHA-256", p.manifest.StateSHA256)
 	}
 	return p, nil
 }

@@ -3,7 +3,6 @@ package checkpoint
 import (
 	"bytes"
 	"errors"
-	"io"
 	"os"
 	"path/filepath"
 	"testing"
@@ -86,27 +85,6 @@ func streamBytes(s *Store, b []byte) ([]Section, error) {
 	if err != nil {
 		return nil, err
 	}
-	var secs []Section
-	for {
-		g, p, _, ok, err := st.NextSection()
-		if err != nil || !ok {
-			if cerr := st.Close(); err == nil {
-				err = cerr
-			}
-			return secs, err
-		}
-		sec := Section{Global: g, Partition: p, Bytes: []byte{}}
-		for {
-			piece, err := st.Piece()
-			if err == io.EOF {
-				break
-			}
-			if err != nil {
-				st.Close()
-				return secs, err
-			}
-			sec.Bytes = append(sec.Bytes, piece...)
-		}
-		secs = append(secs, sec)
-	}
+	secs, _, err := readAll(st)
+	return secs, err
 }

@@ -6,7 +6,6 @@ import (
 	"crypto/sha256"
 	"encoding/binary"
 	"encoding/hex"
-	"encoding/json"
 	"errors"
 	"fmt"
 	"hash"
@@ -117,52 +116,31 @@ func (s *Store) stream(name string, f OpenFile) (*Stream, error) {
 		return &Stream{Manifest: c.Manifest, Info: Info{Bytes: int64(len(b))}, file: name, mem: c.Sections}, nil
 	}
 	// Format 2: the table and manifest are at the end, before the footer.
-	const start = 12
-	if size < start+footerLen {
+	if size < start2+footerLen {
 		return nil, corrupt(name, int(size), ErrTruncated, "file of %d bytes is shorter than a header and footer", size)
 	}
-	var foot [footerLen]byte
-	if _, err := f.ReadAt(foot[:], size-footerLen); err != nil {
+	foot := make([]byte, footerLen)
+	if _, err := f.ReadAt(foot, size-footerLen); err != nil {
 		return nil, fmt.Errorf("checkpoint: %w", err)
 	}
 	if n := binary.LittleEndian.Uint64(foot[8:]); n != uint64(size) {
 		return nil, corrupt(name, int(size), ErrTruncated, "file is %d bytes but declares %d", size, n)
 	}
-	n := int(binary.LittleEndian.Uint32(foot[0:]))
-	ml := int(binary.LittleEndian.Uint32(foot[4:]))
-	footAt := int(size) - footerLen
-	if ml > maxManifest || ml > footAt-start {
-		return nil, corrupt(name, footAt+4, nil, "manifest length %d does not fit", ml)
-	}
-	manOff := footAt - ml
-	if n < 1 || n > maxSections || n > (manOff-start)/entryLen2 {
-		return nil, corrupt(name, footAt, nil, "section count %d does not fit", n)
-	}
-	tableOff := manOff - n*entryLen2
-	tail := make([]byte, footAt-tableOff)
-	if _, err := f.ReadAt(tail, int64(tableOff)); err != nil {
-		return nil, fmt.Errorf("checkpoint: %w", err)
-	}
-	st := &Stream{file: name, Info: Info{Bytes: size}}
-	dec := json.NewDecoder(bytes.NewReader(tail[n*entryLen2:]))
-	dec.DisallowUnknownFields()
-	if err := dec.Decode(&st.Manifest); err != nil {
-		return nil, corrupt(name, manOff, nil, "manifest: %v", err)
-	}
-	entries, bodyEnd, raw, err := parseTable(name, tail, 0, tableOff, n, entryLen2, start, tableOff, s.cfg.MaxRawBytes)
+	l, err := layout2(name, foot, int(size))
 	if err != nil {
 		return nil, err
 	}
-	if bodyEnd != tableOff {
-		return nil, corrupt(name, bodyEnd, nil, "%d bytes between the last section and the table", tableOff-bodyEnd)
+	tail := make([]byte, l.footAt-l.tableOff)
+	if _, err := f.ReadAt(tail, int64(l.tableOff)); err != nil {
+		return nil, fmt.Errorf("checkpoint: %w", err)
 	}
-	if int64(raw) != st.Manifest.RawBytes {
-		return nil, corrupt(name, manOff, nil, "manifest says %d raw bytes, sections hold %d", st.Manifest.RawBytes, raw)
+	p, err := parseTail2(name, tail, l, s.cfg.MaxRawBytes)
+	if err != nil {
+		return nil, err
 	}
-	want, err := hex.DecodeString(st.Manifest.StateSHA256)
-	if err != nil || len(want) != sha256.Size {
-		return nil, corrupt(name, manOff, nil, "manifest state_sha256 %q is not a SHA-256", st.Manifest.StateSHA256)
-	}
+	want, _ := hex.DecodeString(p.manifest.StateSHA256) // checked by parseTail2
+	st := &Stream{Manifest: p.manifest, file: name, Info: Info{Bytes: size}}
+	entries := p.entries
 	zr, err := zstd.NewReader(nil, zstd.WithDecoderConcurrency(1), zstd.WithDecoderMaxMemory(uint64(s.cfg.MaxRawBytes)))
 	if err != nil {
 		return nil, fmt.Errorf("checkpoint: %w", err)

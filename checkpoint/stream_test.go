@@ -13,21 +13,32 @@ import (
 )
 
 // readStream reads every section of version v through Stream and returns
-// them with Close's verdict (or the first error).
+// them with Close's verdict (or the first error), checking that each section
+// is as long as the stream said.
 func readStream(s *Store, v uint64) ([]Section, error) {
 	st, err := s.Stream(v)
 	if err != nil {
 		return nil, err
 	}
-	var secs []Section
+	secs, sizes, err := readAll(st)
+	for i := range secs {
+		if err == nil && int64(len(secs[i].Bytes)) != sizes[i] {
+			err = fmt.Errorf("section of %d bytes, said %d", len(secs[i].Bytes), sizes[i])
+		}
+	}
+	return secs, err
+}
+
+// readAll reads every section of st and closes it; it returns the sections,
+// the length st said of each, and the first error or else Close's verdict.
+func readAll(st *Stream) (secs []Section, sizes []int64, err error) {
 	for {
 		g, p, size, ok, err := st.NextSection()
-		if err != nil {
-			st.Close()
-			return secs, err
-		}
-		if !ok {
-			break
+		if err != nil || !ok {
+			if cerr := st.Close(); err == nil {
+				err = cerr
+			}
+			return secs, sizes, err
 		}
 		sec := Section{Global: g, Partition: p, Bytes: []byte{}}
 		for {
@@ -37,17 +48,32 @@ func readStream(s *Store, v uint64) ([]Section, error) {
 			}
 			if err != nil {
 				st.Close()
-				return secs, err
+				return secs, sizes, err
 			}
 			sec.Bytes = append(sec.Bytes, b...)
 		}
-		if int64(len(sec.Bytes)) != size {
-			st.Close()
-			return secs, fmt.Errorf("section of %d bytes, said %d", len(sec.Bytes), size)
-		}
-		secs = append(secs, sec)
+		secs, sizes = append(secs, sec), append(sizes, size)
 	}
-	return secs, st.Close()
+}
+
+// eachDamage calls f with every damaged copy of good: each byte flipped three
+// ways, each truncation, a byte appended; it returns how many.
+func eachDamage(good []byte, f func(what string, b []byte)) int {
+	n := 0
+	for i := range good {
+		for _, x := range []byte{0x01, 0x80, 0xff} {
+			b := bytes.Clone(good)
+			b[i] ^= x
+			f(fmt.Sprintf("byte %d ^ %#x", i, x), b)
+			n++
+		}
+	}
+	for k := 0; k < len(good); k++ {
+		f(fmt.Sprintf("truncated to %d", k), good[:k])
+		n++
+	}
+	f("one byte appended", append(bytes.Clone(good), 0))
+	return n + 1
 }
 
 // largeSections are sections of which one spans several of the stream's
@@ -110,26 +136,13 @@ func TestStreamCorruptionMatrix(t *testing.T) {
 	}
 	path := filepath.Join(s.Dir(), FileName(1))
 	good, _ := os.ReadFile(path)
-	tried := 0
-	check := func(what string, b []byte) {
+	tried := eachDamage(good, func(what string, b []byte) {
 		t.Helper()
 		os.WriteFile(path, b, 0o600)
 		if _, err := readStream(s, 1); !errors.Is(err, ErrCorrupt) {
 			t.Fatalf("%s: error %v, want ErrCorrupt", what, err)
 		}
-		tried++
-	}
-	for i := range good {
-		for _, x := range []byte{0x01, 0x80, 0xff} {
-			b := bytes.Clone(good)
-			b[i] ^= x
-			check(fmt.Sprintf("byte %d ^ %#x", i, x), b)
-		}
-	}
-	for n := 0; n < len(good); n++ {
-		check(fmt.Sprintf("truncated to %d", n), good[:n])
-	}
-	check("one byte appended", append(bytes.Clone(good), 0))
+	})
 	t.Logf("%d corrupted copies of a %d-byte checkpoint, all refused", tried, len(good))
 	os.WriteFile(path, good, 0o600)
 	if _, err := readStream(s, 1); err != nil {

@@ -3,7 +3,8 @@ package learner
 import "testing"
 
 // TestKeyIndexKeepsKeysOfOneHashApart: two names with the same 64-bit hash
-// (made so here; with maphash about one pair in 10¹³ at a million keys) are
+// (made so here; with a 64-bit hash a pair among a million keys has a
+// chance of about n²/2⁶⁵ ≈ 3·10⁻⁸, the birthday bound) are
 // two keys, each found by its name and replaced on its own.
 func TestKeyIndexKeepsKeysOfOneHashApart(t *testing.T) {
 	x := newKeyIndex(0)

@@ -52,8 +52,10 @@ var partKinds = []string{"knn:k=5,window=200", "rls:forget=0.99", "sliding-rls:w
 // of its two of six partitions, merged, hold the state of one engine that
 // applied every event — the same state bytes (digest) and the same report,
 // per key, counters, drift alarms and last alarm included, bit for bit (the
-// pooled figures are exact sums; hand-checked property: a merge adds the
-// partitions' running totals).
+// pooled figures are exact sums). The reference is the engine itself fed
+// every event: a check that splitting the work changes nothing (common
+// practice for partitioned computations); the learners' numbers themselves
+// are checked against outside references elsewhere (NIST StRD, gonum).
 func TestMergedEnginesAreOneEngine(t *testing.T) {
 	evs, pos := partitioned(6000)
 	one := mustEngine(t, Config{}, partKinds...)
