@@ -5,7 +5,9 @@ import (
 	"fmt"
 	"log/slog"
 	"net"
+	"net/url"
 	"os"
+	"path/filepath"
 	"strings"
 	"time"
 
@@ -27,6 +29,7 @@ const (
 	DefaultCurveEvery         = 100
 	DefaultMaxDriftPins       = 10
 	DefaultDeadLetterBytes    = 64 << 20
+	DefaultForwardTimeout     = 2 * time.Second
 )
 
 // Config configures the service. Zero fields take the defaults.
@@ -82,8 +85,30 @@ type Config struct {
 	// DefaultCurveEvery, DefaultCurvePoints.
 	CurveEvery  int64
 	CurvePoints int
-	// Kafka, when set, is the event source instead of the local journal.
+	// Kafka, when set, is the event source instead of the local journal,
+	// and the service is an instance of the consumer group Kafka.Group
+	// (group.go): the instances split the topic's partitions, and the state
+	// of each partition is checkpointed to a store of its own under
+	// CheckpointDir, which every instance must reach.
 	Kafka *intake.KafkaConfig
+	// CheckpointDir is where checkpoints are kept. Default: DataDir/checkpoints.
+	// With Kafka, a directory every instance of the group reaches (a shared
+	// file system), one subdirectory per partition.
+	CheckpointDir string
+	// Instance names this instance in its consumer group, in /v1/cluster and
+	// in the checkpoints it writes. Default: Advertise.
+	Instance string
+	// Advertise is the address other instances of the group reach this one
+	// at, scheme included (http://10.0.0.7:8080). Default: the listen
+	// address (this host's name when it listens on every interface).
+	Advertise string
+	// Partitioner names the function from a key to its partition, which
+	// must be the producers' (intake.Partitioners). Default: murmur2.
+	Partitioner string
+	// ForwardTimeout bounds a request forwarded to another instance of the
+	// group (a predict for a key it owns, its part of a group-wide view).
+	// Default: DefaultForwardTimeout.
+	ForwardTimeout time.Duration
 	// History, when set, is a history file (NDJSON, plain, .gz or
 	// .zst) to learn from instead of the local journal: each line's position
 	// is its line number. Default: none (the journal).
@@ -166,6 +191,17 @@ func (c *Config) Validate() error {
 			errs = append(errs, errors.New("sources: give Kafka or a history file, not both"))
 		}
 	}
+	if _, ok := intake.Partitioners[c.Partitioner]; c.Partitioner != "" && !ok {
+		errs = append(errs, fmt.Errorf("partitioner %q: want murmur2 (the Java client's default), fnv1a or crc32, whichever the producers use", c.Partitioner))
+	}
+	if c.Advertise != "" {
+		if u, err := url.Parse(c.Advertise); err != nil || (u.Scheme != "http" && u.Scheme != "https") || u.Host == "" {
+			errs = append(errs, fmt.Errorf("advertised address %q: want http://host:port or https://host:port", c.Advertise))
+		}
+	}
+	if c.ForwardTimeout < 0 {
+		errs = append(errs, fmt.Errorf("forward timeout %v: want a positive duration", c.ForwardTimeout))
+	}
 	return errors.Join(errs...)
 }
 
@@ -215,6 +251,15 @@ func (c *Config) setDefaults() {
 	}
 	if c.CurvePoints == 0 {
 		c.CurvePoints = DefaultCurvePoints
+	}
+	if c.CheckpointDir == "" {
+		c.CheckpointDir = filepath.Join(c.DataDir, "checkpoints")
+	}
+	if c.Partitioner == "" {
+		c.Partitioner = intake.DefaultPartitioner
+	}
+	if c.ForwardTimeout == 0 {
+		c.ForwardTimeout = DefaultForwardTimeout
 	}
 	if c.Log == nil {
 		c.Log = slog.New(slog.DiscardHandler)

@@ -57,6 +57,8 @@ func (s *Service) newHTTP() *http.Server {
 	e.POST("/v1/checkpoints", s.handleTakeCheckpoint, changing(jsonTypes...)...)
 	e.POST("/v1/checkpoints/:version/restore", s.handleRestore, changing(jsonTypes...)...)
 	e.POST("/v1/intake/skip-damaged", s.handleSkipDamaged, changing(jsonTypes...)...)
+	e.GET("/v1/cluster", s.handleCluster, read)
+	e.GET("/v1/cluster/totals", s.handleTotals, read)
 	e.GET("/healthz", s.handleHealth)
 	e.GET("/readyz", s.handleReady)
 	e.GET("/metrics", echo.WrapHandler(s.metrics.handler()), read)
@@ -239,6 +241,18 @@ func (s *Service) handlePredict(c echo.Context) error {
 	}
 	snap := s.holdState()
 	defer snap.state.eng.Release()
+	if routed, err := s.routePredict(c, snap, body, name, rows, single); routed {
+		return err
+	}
+	resp, err := s.predictRows(snap, name, rows, single)
+	if err != nil {
+		return err
+	}
+	return c.JSON(http.StatusOK, resp)
+}
+
+// predictRows answers rows from the published state.
+func (s *Service) predictRows(snap *snapshot, name string, rows []json.RawMessage, single bool) (PredictResponse, error) {
 	resp := PredictResponse{Learner: name, Checkpoint: snap.state.ckVersion, Events: snap.state.applied, Caution: caution}
 	var ev learner.Event
 	for i, row := range rows {
@@ -247,23 +261,28 @@ func (s *Service) handlePredict(c echo.Context) error {
 			where = fmt.Sprintf("row %d: ", i)
 		}
 		if err := learner.DecodeRow(row, &ev); err != nil {
-			return httpErr(http.StatusBadRequest, "%s%v", where, err)
+			return resp, httpErr(http.StatusBadRequest, "%s%v", where, err)
+		}
+		if s.kafka != nil {
+			if p, ok := s.partitionOf(ev.Key); ok && !snap.owns(p) {
+				return resp, httpErr(http.StatusServiceUnavailable, "%skey %q is in partition %d, which instance %s does not own (it moved); retry", where, ev.Key, p, snap.group.Instance)
+			}
 		}
 		p, err := snap.state.predict(ev.Key, name, &ev)
 		switch {
 		case errors.Is(err, learner.ErrUnknownLearner):
-			return httpErr(http.StatusNotFound, "%s%v", where, err)
+			return resp, httpErr(http.StatusNotFound, "%s%v", where, err)
 		case errors.Is(err, learner.ErrUnknownKey):
-			return httpErr(http.StatusNotFound, "%s%v; a key gets learners with its first event", where, err)
+			return resp, httpErr(http.StatusNotFound, "%s%v; a key gets learners with its first event", where, err)
 		case errors.Is(err, learner.ErrRejected):
-			return httpErr(http.StatusBadRequest, "%s%v", where, err)
+			return resp, httpErr(http.StatusBadRequest, "%s%v", where, err)
 		case errors.Is(err, learner.ErrNotReady):
-			return httpErr(http.StatusConflict, "%s%v; it needs more events before it predicts", where, err)
+			return resp, httpErr(http.StatusConflict, "%s%v; it needs more events before it predicts", where, err)
 		case err != nil:
-			return err
+			return resp, err
 		}
 		if s.cfg.MinScored > 0 && p.Scored < s.cfg.MinScored {
-			return httpErr(http.StatusConflict, "%slearner %q has been scored on %d events of key %q; it answers after %d, so that its recent error can be checked first",
+			return resp, httpErr(http.StatusConflict, "%slearner %q has been scored on %d events of key %q; it answers after %d, so that its recent error can be checked first",
 				where, name, p.Scored, ev.Key, s.cfg.MinScored)
 		}
 		a := PredictAnswer{Key: ev.Key, Prediction: p.Value, RecentRMSE: p.RecentRMSE, Trained: p.Trained, Scored: p.Scored}
@@ -276,7 +295,7 @@ func (s *Service) handlePredict(c echo.Context) error {
 			resp.Predictions = append(resp.Predictions, a)
 		}
 	}
-	return c.JSON(http.StatusOK, resp)
+	return resp, nil
 }
 
 // EventsResponse answers POST /v1/events.
@@ -393,6 +412,16 @@ func splitEvents(body []byte) ([]eventLine, error) {
 }
 
 func (s *Service) handleLearners(c echo.Context) error {
+	switch scope := c.QueryParam("scope"); scope {
+	case "", "instance":
+	case "group":
+		if s.kafka == nil {
+			return httpErr(http.StatusBadRequest, "scope=group: this service does not read Kafka, so it belongs to no consumer group; leave scope out")
+		}
+		return s.groupReport(c, c.QueryParam("keys") != "false")
+	default:
+		return httpErr(http.StatusBadRequest, "scope %q: want instance (the default: this instance's partitions) or group (every instance's)", scope)
+	}
 	snap := s.snap.Load()
 	r := snap.state.report
 	if c.QueryParam("keys") != "false" {
@@ -422,6 +451,27 @@ func (s *Service) handleCheckpoints(c echo.Context) error {
 }
 
 func (s *Service) handleTakeCheckpoint(c echo.Context) error {
+	if s.kafka != nil {
+		var infos []checkpoint.Info
+		res := s.loop.do(func(l *loop) cmdResult {
+			var err error
+			if infos, err = l.checkpointParts(checkpoint.Manual, true); err != nil {
+				return cmdResult{err: cmdErr(ErrNotStored, "a partition's checkpoint could not be written; earlier ones are intact").withCause(err)}
+			}
+			l.publish()
+			return cmdResult{}
+		})
+		if res.err != nil {
+			return answer(res.err)
+		}
+		if infos == nil {
+			infos = []checkpoint.Info{}
+		}
+		for i := range infos {
+			infos[i].Partition = &infos[i].Position[0].Partition
+		}
+		return c.JSON(http.StatusCreated, infos)
+	}
 	res := s.loop.do(func(l *loop) cmdResult {
 		if err := l.checkpoint(checkpoint.Manual, 0); err != nil {
 			return cmdResult{err: cmdErr(ErrNotStored, "the checkpoint could not be written; earlier ones are intact").withCause(err)}

@@ -52,6 +52,7 @@ type loop struct {
 	sourceMu    sync.Mutex
 	ckPositions map[uint64][]learner.Position // positions each known checkpoint covers
 	handled     atomic.Int64                  // events handled (applied, rejected or passed) since start
+	group       *group                        // the partitions owned in a consumer group (group.go); nil but with Kafka intake
 }
 
 // item is one event handed from a source to the loop, decoded by the
@@ -62,6 +63,7 @@ type item struct {
 	data   []byte         // as received, for the dead-letter file
 	ev     *learner.Event // from eventPool; nil when decoding failed
 	decErr error
+	ctl    func(*loop) // when set, not an event: work for the engine's owner, in order with the events (loop.control)
 }
 
 // eventPool recycles decoded events between the sources and the loop.
@@ -99,8 +101,14 @@ func decodeItem(it *item) {
 	it.ev = ev
 }
 
-// restoreLatest loads the newest good checkpoint at start.
+// restoreLatest loads the newest good checkpoint at start. In a consumer
+// group the state comes partition by partition, as they are assigned.
 func (l *loop) restoreLatest() error {
+	if l.group != nil {
+		l.lastCkTime = time.Now()
+		l.setCatchUp()
+		return nil
+	}
 	c, skipped, err := persist.AdoptNewest(l.store, l.eng, adoptHint)
 	for _, e := range skipped {
 		l.cfg.Log.Warn("skipping a checkpoint that fails its checks", "error", e)
@@ -154,7 +162,13 @@ func (l *loop) checkReady() {
 	if l.ready.Load() {
 		return
 	}
+	if l.group != nil && !l.group.joined {
+		return // owns nothing yet
+	}
 	for _, p := range l.caughtUp {
+		if l.group != nil && !l.group.owns(p.Partition) {
+			continue // another instance's
+		}
 		if !l.eng.Covers(p) {
 			return
 		}
@@ -209,7 +223,20 @@ func (l *loop) stopSource() {
 	l.sourceMu.Unlock()
 	if stop != nil {
 		stop()
-		<-done
+		// Until it stops, the source may still hand over its partitions
+		// (group mode): that work is done here, and events are dropped.
+		for {
+			select {
+			case <-done:
+				return
+			case it := <-l.items:
+				if it.ctl != nil {
+					it.ctl(l)
+				} else if it.ev != nil {
+					eventPool.Put(it.ev)
+				}
+			}
+		}
 	}
 }
 
@@ -224,8 +251,17 @@ func (l *loop) run(ctx context.Context) error {
 		case <-ctx.Done():
 			return ctx.Err()
 		case it := <-l.items:
-			if it.gen != l.generation {
-				continue // read before a restore moved the position
+			if it.ctl != nil {
+				it.ctl(l)
+				continue
+			}
+			if it.gen != l.generation || (l.group != nil && !l.group.owns(it.pos.Partition)) {
+				// read before a restore moved the position, or after the
+				// partition was given up
+				if it.ev != nil {
+					eventPool.Put(it.ev)
+				}
+				continue
 			}
 			l.apply(it)
 			if it.ev != nil {
@@ -288,7 +324,7 @@ func (l *loop) apply(it item) {
 		l.dead.add(it.pos, err, it.data)
 	} else if a := l.eng.Alarms(); a != l.lastAlarms {
 		l.lastAlarms = a
-		l.pinBeforeAlarm()
+		l.pinBeforeAlarm(it.pos.Partition)
 	}
 	l.afterEvent()
 }
@@ -310,19 +346,28 @@ func (l *loop) afterEvent() {
 }
 
 // pinBeforeAlarm pins the newest checkpoint, taken before the alarm, so that
-// retention keeps a state from before the drift.
-func (l *loop) pinBeforeAlarm() {
-	if l.lastCk.Version == 0 {
+// retention keeps a state from before the drift: in a consumer group, the
+// newest of the partition the alarm came from.
+func (l *loop) pinBeforeAlarm(partition int32) {
+	store, last := l.store, l.lastCk
+	if l.group != nil {
+		ps := l.group.owned[partition]
+		if ps == nil {
+			return
+		}
+		store, last = ps.store, ps.last
+	}
+	if last.Version == 0 {
 		return
 	}
-	if err := l.store.PinFor(l.lastCk.Version, "drift"); err != nil {
-		l.cfg.Log.Error("could not pin the checkpoint before a drift alarm", "version", l.lastCk.Version, "error", err)
+	if err := store.PinFor(last.Version, "drift"); err != nil {
+		l.cfg.Log.Error("could not pin the checkpoint before a drift alarm", "version", last.Version, "error", err)
 		return
 	}
-	l.cfg.Log.Warn("drift alarm: pinned the checkpoint taken before it", "version", l.lastCk.Version)
+	l.cfg.Log.Warn("drift alarm: pinned the checkpoint taken before it", "version", last.Version, "dir", store.Dir())
 	// Keep the newest MaxDriftPins automatic pins: a stream that alarms
 	// often would otherwise pin without end. An operator's pins stay.
-	pins, err := l.store.Pins()
+	pins, err := store.Pins()
 	if err != nil {
 		return
 	}
@@ -334,13 +379,18 @@ func (l *loop) pinBeforeAlarm() {
 	}
 	slices.Sort(drift)
 	for len(drift) > l.cfg.MaxDriftPins {
-		l.store.Unpin(drift[0])
+		store.Unpin(drift[0])
 		drift = drift[1:]
 	}
 }
 
 // checkpoint writes the engine's state; parent 0 means the last checkpoint.
+// In a consumer group it writes each owned partition that changed.
 func (l *loop) checkpoint(reason checkpoint.Reason, parent uint64) error {
+	if l.group != nil {
+		_, err := l.checkpointParts(reason, false)
+		return err
+	}
 	if parent == 0 {
 		parent = l.lastCk.Version
 	}
@@ -445,10 +495,16 @@ func (l *loop) publish() {
 		applied[p.Partition] = p.Offset
 	}
 	last, _ := l.src.Available()
-	for _, l := range last {
-		snap.lag = append(snap.lag, learner.Position{Partition: l.Partition, Offset: max(0, l.Offset-applied[l.Partition])})
+	for _, a := range last {
+		if l.group != nil && !l.group.owns(a.Partition) {
+			continue
+		}
+		snap.lag = append(snap.lag, learner.Position{Partition: a.Partition, Offset: max(0, a.Offset-applied[a.Partition])})
 	}
-	if list, err := l.store.List(); err == nil {
+	if l.group != nil {
+		snap.group = l.groupView(state, last)
+		snap.checkpoints = l.groupCheckpoints()
+	} else if list, err := l.store.List(); err == nil {
 		snap.checkpoints = list
 	} else if cur != nil {
 		snap.checkpoints = cur.checkpoints
@@ -471,6 +527,9 @@ func (l *loop) do(f func(l *loop) cmdResult) cmdResult {
 // restore sets the engine back to version v and resumes as asked. It runs
 // on the loop.
 func (l *loop) restore(v uint64, req RestoreRequest) cmdResult {
+	if l.group != nil {
+		return l.restorePartition(v, req)
+	}
 	live := l.eng.Positions()
 	mode, rule, err := req.rule(live)
 	if err != nil {

@@ -39,6 +39,12 @@ type Service struct {
 	addr      string
 	dataDir   string // absolute, to keep it out of error answers
 	listening chan struct{}
+
+	// in a consumer group (route.go)
+	kafka       *intake.Kafka
+	partitioner intake.Partitioner
+	forward     *http.Client
+	advertise   string // this instance's address, as the others reach it
 }
 
 // Handled returns how many events the loop has handled since start, read
@@ -72,13 +78,16 @@ func New(cfg Config) (*Service, error) {
 	l := &loop{cfg: cfg, eng: eng, metrics: s.metrics, curves: s.curves, snap: &s.snap, fault: &s.fault,
 		cmds: make(chan command), ckPositions: map[uint64][]learner.Position{}}
 	s.loop = l
-	l.store, err = checkpoint.OpenStore(checkpoint.StoreConfig{Dir: filepath.Join(cfg.DataDir, "checkpoints"), Retain: cfg.Retain, FS: cfg.CheckpointFS})
-	if err != nil {
+	if cfg.Kafka != nil {
+		l.group = newGroup(cfg.CheckpointDir, cfg.Instance)
+		s.partitioner = intake.Partitioners[cfg.Partitioner]
+		s.forward = &http.Client{Timeout: cfg.ForwardTimeout}
+	} else if l.store, err = checkpoint.OpenStore(checkpoint.StoreConfig{Dir: cfg.CheckpointDir, Retain: cfg.Retain, FS: cfg.CheckpointFS}); err != nil {
 		return nil, err
 	}
 	l.dead, err = openDeadLetters(filepath.Join(cfg.DataDir, "deadletters.ndjson"), cfg.DeadLetterBytes)
 	if err != nil {
-		l.store.Close()
+		s.close()
 		return nil, err
 	}
 	if l.src, err = openSource(cfg); err != nil {
@@ -86,6 +95,7 @@ func New(cfg Config) (*Service, error) {
 		return nil, err
 	}
 	s.journal, _ = l.src.(intake.Appender)
+	s.kafka, _ = l.src.(*intake.Kafka)
 	if err := l.restoreLatest(); err != nil {
 		s.close()
 		return nil, err
@@ -151,6 +161,9 @@ func privateDir(dir string, log *slog.Logger) error {
 
 func (s *Service) close() {
 	l := s.loop
+	for _, ps := range l.group.all() {
+		ps.store.Close()
+	}
 	if l.src != nil {
 		l.src.Close()
 	}
@@ -173,6 +186,9 @@ func (s *Service) Run(ctx context.Context) error {
 	}
 	s.addr = ln.Addr().String()
 	close(s.listening)
+	if s.kafka != nil {
+		s.joinGroup()
+	}
 	if b := s.cfg.Engine.MemoryBudget; b > 0 {
 		s.cfg.Log.Info("memory budget: events of new keys are refused once the state holds this much", "bytes", b, "max_keys", s.cfg.Engine.MaxKeys)
 	}

@@ -22,6 +22,7 @@ type snapshot struct {
 	lag         []learner.Position // per partition, events the state has not applied (Offset holds the count)
 	dead        int64              // dead letters written since start
 	checkpoints []checkpoint.Info  // the store's listing, oldest first
+	group       *InstanceView      // in a consumer group: this instance and its partitions; else nil
 	at          time.Time
 }
 

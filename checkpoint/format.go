@@ -58,15 +58,18 @@ const (
 	Shutdown Reason = "shutdown"
 	PreDrift Reason = "pre-drift"
 	Final    Reason = "final"
+	// Handover: a partition's state, written by the instance of a consumer
+	// group that gives the partition up, for its next owner.
+	Handover Reason = "handover"
 )
 
 // ParseReason parses a reason name.
 func ParseReason(s string) (Reason, error) {
 	switch r := Reason(s); r {
-	case Periodic, Manual, Shutdown, PreDrift, Final:
+	case Periodic, Manual, Shutdown, PreDrift, Final, Handover:
 		return r, nil
 	}
-	return "", fmt.Errorf("checkpoint: unknown reason %q (want periodic, manual, shutdown, pre-drift or final)", s)
+	return "", fmt.Errorf("checkpoint: unknown reason %q (want periodic, manual, shutdown, pre-drift, final or handover)", s)
 }
 
 // Position is a stream position the state covers: the high-water offset of

@@ -85,8 +85,12 @@ type Info struct {
 	Pinned      bool       `json:"pinned"`
 	Generation  int64      `json:"generation,omitempty"` // see Manifest.Generation
 	Owner       string     `json:"owner,omitempty"`
-	File        string     `json:"file"`
-	Error       string     `json:"error,omitempty"` // set, and nothing else trusted, when the file fails a check
+	// Partition is the stream partition a checkpoint of a partition's own
+	// store holds (a consumer group's; see Manifest.Generation). The store
+	// does not know it; the service sets it when it lists such checkpoints.
+	Partition *int32 `json:"partition,omitempty"`
+	File      string `json:"file"`
+	Error     string `json:"error,omitempty"` // set, and nothing else trusted, when the file fails a check
 }
 
 // Checkpoint is a loaded checkpoint: fully verified when it comes from Load,

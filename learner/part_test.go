@@ -156,3 +156,50 @@ func lastOf(pos []Position, p int32) int {
 	}
 	return last
 }
+
+// TestTotalsAddUpToOneEngine: the totals of three engines, each holding two
+// of six partitions, sent through JSON (as instances of a consumer group
+// send them to one another) and added, report what one engine that applied
+// every event reports, bit for bit — counters, pooled errors, drift counts
+// and the last alarm. The reference is the engine itself, as in
+// TestMergedEnginesAreOneEngine.
+func TestTotalsAddUpToOneEngine(t *testing.T) {
+	evs, pos := partitioned(6000)
+	one := mustEngine(t, Config{}, partKinds...)
+	var parts [3]*Engine
+	for i := range parts {
+		parts[i] = mustEngine(t, Config{}, partKinds...)
+	}
+	for i, ev := range evs {
+		one.Apply(pos[i], ev)
+		parts[pos[i].Partition%3].Apply(pos[i], ev)
+	}
+	var sum Totals
+	for i, e := range []*Engine{parts[2], parts[0], parts[1]} { // any order
+		b, err := json.Marshal(e.Totals())
+		if err != nil {
+			t.Fatal(err)
+		}
+		var got Totals
+		if err := json.Unmarshal(b, &got); err != nil {
+			t.Fatal(err)
+		}
+		if i == 0 {
+			sum = got
+		} else if err := sum.Add(got); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := sum.Add(parts[0].Totals()); err == nil {
+		t.Error("adding a partition twice was not refused")
+	}
+	r, err := one.Config().ReportOf(sum)
+	if err != nil {
+		t.Fatal(err)
+	}
+	got, _ := json.Marshal(r)
+	want, _ := json.Marshal(one.Report(false))
+	if string(got) != string(want) {
+		t.Errorf("added totals report\n%s\nwant\n%s", got, want)
+	}
+}

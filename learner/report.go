@@ -66,9 +66,11 @@ type AlarmReport struct {
 
 // Report builds the report from the running totals, in time independent of
 // the number of keys; withKeys adds per-key metrics (a visit of every key).
-func (e *Engine) Report(withKeys bool) Report {
+func (e *Engine) Report(withKeys bool) Report { return e.report(withKeys, e.numKeys(), e.Positions()) }
+
+func (e *Engine) report(withKeys bool, numKeys int, positions []Position) Report {
 	r := Report{Events: e.applied, Rejected: e.rejected, Duplicates: e.duplicates, Skipped: e.skipped, IgnoredFeatures: e.ignored,
-		Keys: e.numKeys(), StateBytes: e.StateBytes(), RecentWindow: e.cfg.Score.Recent, Positions: e.Positions()}
+		Keys: numKeys, StateBytes: e.StateBytes(), RecentWindow: e.cfg.Score.Recent, Positions: positions}
 	var keys []*keyState
 	if withKeys {
 		// Keys by name alone, not by partition.

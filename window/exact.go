@@ -1,6 +1,8 @@
 package window
 
 import (
+	"encoding/json"
+	"fmt"
 	"math"
 	"math/big"
 )
@@ -160,3 +162,41 @@ func (s *Exact) Value() float64 {
 }
 
 const bitsPerWord = 32 << (^uint(0) >> 63)
+
+// exactJSON is Exact's JSON form: its carried chunks (trailing zeros left
+// out) and special counts, so that a sum crosses a process boundary exactly.
+type exactJSON struct {
+	Chunks []int64 `json:"c,omitempty"`
+	PosInf int32   `json:"pinf,omitempty"`
+	NegInf int32   `json:"ninf,omitempty"`
+	NaN    int32   `json:"nan,omitempty"`
+}
+
+// MarshalJSON writes the sum exactly.
+func (s Exact) MarshalJSON() ([]byte, error) {
+	s.carry()
+	n := exactChunks
+	for n > 0 && s.chunk[n-1] == 0 {
+		n--
+	}
+	return json.Marshal(exactJSON{Chunks: s.chunk[:n], PosInf: s.posInf, NegInf: s.negInf, NaN: s.nan})
+}
+
+// UnmarshalJSON reads a sum MarshalJSON wrote.
+func (s *Exact) UnmarshalJSON(b []byte) error {
+	var j exactJSON
+	if err := json.Unmarshal(b, &j); err != nil {
+		return err
+	}
+	if len(j.Chunks) > exactChunks {
+		return fmt.Errorf("window: an exact sum of %d chunks, more than %d", len(j.Chunks), exactChunks)
+	}
+	*s = Exact{posInf: j.PosInf, negInf: j.NegInf, nan: j.NaN}
+	for i, c := range j.Chunks {
+		if (i < exactChunks-1 && (c < 0 || c >= 1<<32)) || c >= 1<<62 || c <= -1<<62 {
+			return fmt.Errorf("window: an exact sum's chunk %d is out of range", i)
+		}
+		s.chunk[i] = c
+	}
+	return nil
+}

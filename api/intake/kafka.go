@@ -41,7 +41,13 @@ type KafkaConfig struct {
 	Group   string   // consumer group. Default: "tidemark".
 	// MaxWait bounds how long a fetch waits for new messages. Default: 250ms.
 	MaxWait time.Duration
-	Log     *slog.Logger // Nil discards.
+	// RebalanceTimeout is how long, in group mode, the group waits for a
+	// member to checkpoint the partitions it gives up before going on
+	// without it (its checkpoint is then fenced, and the next owner
+	// resumes from the one before). It is also how long a rebalance may
+	// wait for a member that was killed. Default: 10s.
+	RebalanceTimeout time.Duration
+	Log              *slog.Logger // Nil discards.
 }
 
 // Validate reports every problem with c. It changes nothing.
@@ -73,6 +79,13 @@ type Kafka struct {
 	connected bool
 	outage    time.Time
 	refreshed atomic.Bool // the high watermarks were read at least once
+	numParts  int         // the topic's partitions, as last read
+
+	// group mode (SetOwner; group.go)
+	owner     Owner
+	self      []byte // this member's user data
+	members   []Member
+	membersAt time.Time
 }
 
 // String names the topic, for messages.
@@ -88,6 +101,9 @@ func NewKafka(cfg KafkaConfig) (*Kafka, error) {
 	}
 	if cfg.MaxWait == 0 {
 		cfg.MaxWait = 250 * time.Millisecond
+	}
+	if cfg.RebalanceTimeout == 0 {
+		cfg.RebalanceTimeout = 10 * time.Second
 	}
 	if cfg.Log == nil {
 		cfg.Log = slog.New(slog.DiscardHandler)
@@ -111,7 +127,9 @@ func (k *Kafka) setConnected(ok bool, err error) {
 		return
 	}
 	k.connected = ok
-	if ok {
+	if ok && k.outage.IsZero() {
+		k.cfg.Log.Info("kafka: connected", "brokers", k.cfg.Brokers)
+	} else if ok {
 		k.cfg.Log.Info("kafka: connected", "brokers", k.cfg.Brokers, "down_for", time.Since(k.outage).Round(time.Millisecond).String())
 	} else {
 		k.outage = time.Now()
@@ -148,6 +166,9 @@ func (k *Kafka) Refresh(ctx context.Context) error {
 		}
 		return fmt.Errorf("kafka: topic %q not found", k.cfg.Topic)
 	}
+	k.mu.Lock()
+	k.numParts = len(md.Topics[0].Partitions)
+	k.mu.Unlock()
 	var reqs []kafka.OffsetRequest
 	for _, p := range md.Topics[0].Partitions {
 		reqs = append(reqs, kafka.LastOffsetOf(p.ID))
@@ -182,9 +203,18 @@ func (k *Kafka) Run(ctx context.Context, covered []learner.Position, deliver fun
 	go k.watchHighWater(ctx)
 	backoff := 100 * time.Millisecond
 	for ctx.Err() == nil {
-		group, err := kafka.NewConsumerGroup(kafka.ConsumerGroupConfig{ID: k.cfg.Group, Brokers: k.cfg.Brokers,
+		gc := kafka.ConsumerGroupConfig{ID: k.cfg.Group, Brokers: k.cfg.Brokers,
 			Topics: []string{k.cfg.Topic}, Timeout: 5 * time.Second, HeartbeatInterval: time.Second,
-			SessionTimeout: 10 * time.Second, RebalanceTimeout: 10 * time.Second, JoinGroupBackoff: time.Second})
+			SessionTimeout: 10 * time.Second, RebalanceTimeout: 10 * time.Second, JoinGroupBackoff: time.Second}
+		k.mu.Lock()
+		if k.owner != nil {
+			gc.GroupBalancers = []kafka.GroupBalancer{memberBalancer{data: k.self}}
+			// A member checkpoints its partitions before it rejoins: the
+			// others wait for it this long before they go on without it.
+			gc.RebalanceTimeout = k.cfg.RebalanceTimeout
+		}
+		k.mu.Unlock()
+		group, err := kafka.NewConsumerGroup(gc)
 		if err != nil {
 			return fmt.Errorf("kafka: %w", err)
 		}
@@ -220,12 +250,60 @@ func (k *Kafka) runGroup(ctx context.Context, group *kafka.ConsumerGroup, delive
 		k.setConnected(true, nil)
 		k.mu.Lock()
 		k.gen = gen
+		owner := k.owner
 		k.mu.Unlock()
+		var parts []int32
 		for _, a := range gen.Assignments[k.cfg.Topic] {
-			part := int32(a.ID)
+			parts = append(parts, int32(a.ID))
+		}
+		slices.Sort(parts)
+		if owner != nil {
+			if err := k.startOwned(ctx, gen, owner, parts, deliver); err != nil {
+				k.cfg.Log.Error("kafka: cannot take the assigned partitions; rejoining", "partitions", parts, "error", err)
+			}
+			continue
+		}
+		for _, part := range parts {
 			gen.Start(func(gctx context.Context) { k.readPartition(ctx, gctx, part, deliver) })
 		}
 	}
+}
+
+// startOwned runs a generation in group mode: the owner takes the assigned
+// partitions (loading their state) and says where to read from; when the
+// generation ends, it is given them back once their readers stopped.
+func (k *Kafka) startOwned(ctx context.Context, gen *kafka.Generation, owner Owner, parts []int32, deliver func(learner.Position, []byte) bool) error {
+	g := Generation{ID: gen.ID, MemberID: gen.MemberID}
+	k.refreshMembers(ctx) // best effort; the watcher reads them again
+	covered, err := owner.Assigned(g, parts)
+	if err != nil {
+		owner.Revoked(g, parts)
+		gen.Start(func(context.Context) {}) // ends the generation: the group is rejoined
+		return err
+	}
+	k.mu.Lock()
+	for _, p := range parts {
+		if off, ok := covered[p]; ok {
+			k.next[p] = off + 1
+		} else {
+			delete(k.next, p)
+		}
+	}
+	k.mu.Unlock()
+	var readers sync.WaitGroup
+	readers.Add(len(parts))
+	for _, part := range parts {
+		gen.Start(func(gctx context.Context) {
+			defer readers.Done()
+			k.readPartition(ctx, gctx, part, deliver)
+		})
+	}
+	gen.Start(func(gctx context.Context) {
+		<-gctx.Done()
+		readers.Wait()
+		owner.Revoked(g, parts)
+	})
+	return nil
 }
 
 func (k *Kafka) readPartition(ctx, gctx context.Context, part int32, deliver func(learner.Position, []byte) bool) {
@@ -283,6 +361,14 @@ func (k *Kafka) watchHighWater(ctx context.Context) {
 			k.setConnected(false, err)
 		} else if err == nil {
 			k.setConnected(true, nil)
+			k.mu.Lock()
+			group := k.owner != nil
+			k.mu.Unlock()
+			if group {
+				if err := k.refreshMembers(ctx); err != nil && ctx.Err() == nil {
+					k.cfg.Log.Warn("kafka: cannot read the group's members", "error", err)
+				}
+			}
 		}
 		select {
 		case <-ctx.Done():

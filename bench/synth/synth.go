@@ -40,6 +40,10 @@ var Start = time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC)
 type Config struct {
 	Days int    // Default: 14.
 	Seed uint64 // Default: 1.
+	// Rooms is the number of rooms (keys). Default: 3. Rooms past the first
+	// three, named room-4, room-5, …, repeat the three profiles in turn
+	// (room-4 is a freezer like room-a); only room-b drifts.
+	Rooms int
 }
 
 type room struct {
@@ -75,6 +79,15 @@ func Write(w io.Writer, cfg Config) (int, error) {
 		cfg.Seed = 1
 	}
 	rng := rand.New(rand.NewPCG(cfg.Seed, 0x7d3a))
+	rooms := rooms
+	if cfg.Rooms > 0 && cfg.Rooms < len(rooms) {
+		rooms = rooms[:cfg.Rooms]
+	}
+	for i := len(rooms); i < cfg.Rooms; i++ {
+		r := rooms[i%3]
+		r.name = "room-" + strconv.Itoa(i+1)
+		rooms = append(rooms, r)
+	}
 	bw := bufio.NewWriter(w)
 	steps := cfg.Days * 24 * 12
 	driftAt := steps / 2

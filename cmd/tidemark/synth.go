@@ -10,12 +10,13 @@ import (
 )
 
 func runSynth(args []string, stdout, stderr io.Writer) error {
-	fs := newFlagSet("synth", "synth --out FILE [--days N] [--seed S]", stderr)
+	fs := newFlagSet("synth", "synth --out FILE [--days N] [--seed S] [--rooms N]", stderr)
 	out := fs.String("out", "", "write the history to `FILE` (- for standard output)")
 	days := fs.Int("days", 14, "days of readings, every five minutes per room")
 	seed := fs.Uint64("seed", 1, "random seed; the same seed gives the same bytes")
+	rooms := fs.Int("rooms", 3, "rooms (keys); past three they repeat the first three's profiles")
 	fs.Usage = func() {
-		fmt.Fprintln(stderr, "Usage: tidemark synth --out FILE [--days N] [--seed S]")
+		fmt.Fprintln(stderr, "Usage: tidemark synth --out FILE [--days N] [--seed S] [--rooms N]")
 		fmt.Fprintln(stderr, "\nWrites the demo scenario, invented data of a fictional cold-storage warehouse:")
 		fmt.Fprint(stderr, synthHelp+"\n")
 		fmt.Fprintln(stderr, "Flags:")
@@ -27,6 +28,9 @@ func runSynth(args []string, stdout, stderr io.Writer) error {
 	}
 	if len(pos) > 0 || *out == "" {
 		return usagef("want --out FILE and no other arguments")
+	}
+	if *rooms < 1 || *rooms > 100_000 {
+		return usagef("--rooms %d: want 1 to 100000", *rooms)
 	}
 	if *days < 1 || *days > 3660 {
 		return usagef("--days %d: want 1 to 3660", *days)
@@ -40,7 +44,7 @@ func runSynth(args []string, stdout, stderr io.Writer) error {
 		w = f
 	}
 	bw := bufio.NewWriter(w)
-	n, err := synth.Write(bw, synth.Config{Days: *days, Seed: *seed})
+	n, err := synth.Write(bw, synth.Config{Days: *days, Seed: *seed, Rooms: *rooms})
 	if err == nil {
 		err = bw.Flush()
 	}

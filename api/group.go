@@ -1,0 +1,310 @@
+package api
+
+import (
+	"errors"
+	"fmt"
+	"slices"
+	"time"
+
+	"tidemark/api/intake"
+	"tidemark/api/persist"
+	"tidemark/checkpoint"
+	"tidemark/learner"
+)
+
+// Group mode (Kafka intake): the instances of one consumer group split the
+// topic's partitions, and the state of a partition follows it. Each
+// partition has a checkpoint store of its own in a directory every instance
+// reaches (Config.CheckpointDir); the instance that owns a partition loads
+// its newest good state when the partition is assigned, checkpoints it on
+// the usual cadence, and checkpoints it once more when the partition is
+// revoked, before the group goes on. The engine holds the partitions this
+// instance owns and nothing else; events of other partitions are never
+// applied here.
+//
+// Fencing: every partition checkpoint carries the consumer-group generation
+// in which its writer owned the partition, and its version lies in that
+// generation's band (checkpoint.Manifest.Generation), so the newest version
+// of a store is always the newest owner's. A writer whose generation is older
+// than the store's newest checkpoint is refused (checkpoint.ErrFenced) and
+// gives the partition up: an instance that lost its partitions while it was
+// slow or cut off cannot overwrite the state of their new owner.
+
+// group is the loop's record of the partitions it owns. The loop alone uses
+// it.
+type group struct {
+	dir      string // the shared checkpoint directory
+	instance string // this instance's name, recorded as each checkpoint's owner
+	gen      intake.Generation
+	joined   bool               // assigned partitions at least once
+	owned    map[int32]*partSt  // the partitions this instance owns
+	parked   map[int32]*partSt  // revoked, still in the engine until the next assignment says whether they come back
+	fenced   map[int32]struct{} // given up after a write was fenced, until the next assignment
+}
+
+// partSt is one owned partition's checkpoint store and what was last written.
+type partSt struct {
+	store *checkpoint.Store
+	last  checkpoint.Info // the newest checkpoint written or adopted here (zero: none)
+	saved int64           // the partition's high-water offset at the last checkpoint (-1: none)
+}
+
+func newGroup(dir, instance string) *group {
+	return &group{dir: dir, instance: instance, owned: map[int32]*partSt{}, parked: map[int32]*partSt{}}
+}
+
+func (g *group) owns(p int32) bool { return g.owned[p] != nil }
+
+// ownedParts lists the owned partitions in order.
+func (g *group) ownedParts() []int32 {
+	out := make([]int32, 0, len(g.owned))
+	for p := range g.owned {
+		out = append(out, p)
+	}
+	slices.Sort(out)
+	return out
+}
+
+// loopOwner hands the Kafka intake's calls to the loop, through the items
+// channel: an assignment or revocation is handled in order with the events
+// delivered before it.
+type loopOwner struct{ l *loop }
+
+func (o loopOwner) Assigned(gen intake.Generation, parts []int32) (map[int32]int64, error) {
+	var covered map[int32]int64
+	var err error
+	o.l.control(func(l *loop) { covered, err = l.assign(gen, parts) })
+	return covered, err
+}
+
+func (o loopOwner) Revoked(gen intake.Generation, parts []int32) {
+	o.l.control(func(l *loop) { l.revoke(gen, parts) })
+}
+
+// control runs f on whoever owns the engine — the loop, or stopSource while
+// it waits for the source to stop — and waits for it.
+func (l *loop) control(f func(*loop)) {
+	done := make(chan struct{})
+	l.items <- item{ctl: func(l *loop) { f(l); close(done) }}
+	<-done
+}
+
+// assign takes the partitions of a new generation: those still held from
+// the last one are kept when no one wrote their state since; the others are
+// loaded from their stores. It returns the offsets the state covers.
+func (l *loop) assign(gen intake.Generation, parts []int32) (map[int32]int64, error) {
+	g := l.group
+	g.gen, g.joined, g.fenced = gen, true, nil
+	for p, ps := range g.parked {
+		delete(g.parked, p)
+		if slices.Contains(parts, p) && ps.stillNewest() {
+			g.owned[p] = ps
+			continue
+		}
+		l.dropPartition(p, ps)
+	}
+	var errs []error
+	for _, p := range parts {
+		if g.owned[p] != nil {
+			continue
+		}
+		ps, err := l.loadPartition(p)
+		if err != nil {
+			errs = append(errs, fmt.Errorf("partition %d: %w", p, err))
+			continue
+		}
+		g.owned[p] = ps
+	}
+	covered := map[int32]int64{}
+	for _, pos := range l.eng.Positions() {
+		if g.owns(pos.Partition) {
+			covered[pos.Partition] = pos.Offset
+		}
+	}
+	l.cfg.Log.Info("consumer group: partitions assigned", "generation", gen.ID, "partitions", parts, "covered", covered)
+	l.setCatchUp()
+	l.publish()
+	return covered, errors.Join(errs...)
+}
+
+// revoke checkpoints the partitions of an ending generation for their next
+// owner and parks them: they stay in the engine, unused, until the next
+// assignment says whether they come back.
+func (l *loop) revoke(gen intake.Generation, parts []int32) {
+	g := l.group
+	for _, p := range parts {
+		ps := g.owned[p]
+		if ps == nil {
+			continue
+		}
+		if !l.changedSince(p, ps) {
+			// nothing new since its last checkpoint
+		} else if _, err := l.savePartition(p, ps, checkpoint.Handover); err != nil && !errors.Is(err, checkpoint.ErrFenced) {
+			l.cfg.Log.Error("consumer group: could not checkpoint a revoked partition; its next owner resumes from its last checkpoint",
+				"partition", p, "error", err)
+		}
+		if g.owned[p] != nil { // not fenced
+			delete(g.owned, p)
+			g.parked[p] = ps
+		}
+	}
+	l.cfg.Log.Info("consumer group: partitions revoked", "generation", gen.ID, "partitions", parts)
+	l.ready.Store(false)
+	l.publish()
+}
+
+// loadPartition opens partition p's store and merges its newest good state
+// into the engine.
+func (l *loop) loadPartition(p int32) (*partSt, error) {
+	store, err := checkpoint.OpenStore(checkpoint.StoreConfig{Dir: persist.PartitionDir(l.group.dir, p), Retain: l.cfg.Retain, FS: l.cfg.CheckpointFS})
+	if err != nil {
+		return nil, err
+	}
+	ps := &partSt{store: store, saved: -1}
+	start := time.Now()
+	st, err := persist.AdoptPartition(store, l.eng, adoptHint)
+	if err != nil {
+		store.Close()
+		return nil, err
+	}
+	if st != nil {
+		ps.last = st.Info
+		ps.saved = st.Manifest.Positions[0].Offset
+		l.lastAlarms = l.eng.Alarms()
+		l.cfg.Log.Info("consumer group: partition state loaded", "partition", p, "version", st.Manifest.Version,
+			"owner_before", st.Manifest.Owner, "events", st.Manifest.Events, "took", time.Since(start).Round(time.Millisecond).String())
+	}
+	return ps, nil
+}
+
+// dropPartition takes p's state out of the engine and closes its store.
+func (l *loop) dropPartition(p int32, ps *partSt) {
+	l.eng.Split([]int32{p}) // the split-off engine is garbage
+	l.lastAlarms = l.eng.Alarms()
+	ps.store.Close()
+}
+
+// stillNewest reports whether the store's newest checkpoint is still the
+// one this instance last wrote or loaded: no one owned the partition and
+// wrote since, so the state held here may go on.
+func (ps *partSt) stillNewest() bool {
+	vs, err := ps.store.Versions()
+	if err != nil {
+		return false
+	}
+	if len(vs) == 0 {
+		return ps.last.Version == 0
+	}
+	return vs[len(vs)-1] == ps.last.Version
+}
+
+// savePartition checkpoints owned partition p. A write fenced by a newer
+// owner gives the partition up at once.
+func (l *loop) savePartition(p int32, ps *partSt, reason checkpoint.Reason) (checkpoint.Info, error) {
+	g := l.group
+	info, err := persist.SavePartition(ps.store, l.eng, p, reason, int64(g.gen.ID), g.instance)
+	if errors.Is(err, checkpoint.ErrFenced) {
+		l.cfg.Log.Warn("consumer group: another instance owns the partition now; giving it up", "partition", p, "error", err)
+		delete(g.owned, p)
+		l.dropPartition(p, ps)
+		if g.fenced == nil {
+			g.fenced = map[int32]struct{}{}
+		}
+		g.fenced[p] = struct{}{}
+		return info, err
+	}
+	if err != nil {
+		l.metrics.checkpointFailures.Inc()
+		return info, err
+	}
+	ps.last = info
+	if len(info.Position) > 0 {
+		ps.saved = info.Position[0].Offset
+	}
+	l.lastCk = info
+	l.cfg.Log.Info("checkpoint", "partition", p, "version", info.Version, "reason", reason, "events", info.Events, "bytes", info.Bytes)
+	return info, nil
+}
+
+// changedSince reports whether owned partition p has events the engine
+// applied (or passed) since its last checkpoint.
+func (l *loop) changedSince(p int32, ps *partSt) bool {
+	for _, pos := range l.eng.Positions() {
+		if pos.Partition == p {
+			return pos.Offset != ps.saved
+		}
+	}
+	return false // no event of it yet
+}
+
+// checkpointParts checkpoints every owned partition that changed since its
+// last checkpoint (every one when all is set) and commits their offsets.
+func (l *loop) checkpointParts(reason checkpoint.Reason, all bool) ([]checkpoint.Info, error) {
+	var infos []checkpoint.Info
+	var errs []error
+	var covered []learner.Position
+	hwm := map[int32]int64{}
+	for _, pos := range l.eng.Positions() {
+		hwm[pos.Partition] = pos.Offset
+	}
+	for _, p := range l.group.ownedParts() {
+		ps := l.group.owned[p]
+		at, ok := hwm[p]
+		if !ok || (!all && !l.changedSince(p, ps)) {
+			continue
+		}
+		info, err := l.savePartition(p, ps, reason)
+		if err != nil {
+			errs = append(errs, fmt.Errorf("partition %d: %w", p, err))
+			continue
+		}
+		infos = append(infos, info)
+		covered = append(covered, learner.Position{Partition: p, Offset: at})
+	}
+	l.sinceCk, l.lastCkTime = 0, time.Now()
+	if err := l.dead.flush(); err != nil {
+		l.cfg.Log.Error("dead letters: flush failed", "error", err)
+	}
+	if len(covered) > 0 {
+		l.src.Checkpointed(covered, nil)
+	}
+	return infos, errors.Join(errs...)
+}
+
+// groupCheckpoints lists the owned partitions' checkpoints, oldest first
+// within each partition, partitions in order.
+func (l *loop) groupCheckpoints() []checkpoint.Info {
+	var out []checkpoint.Info
+	for _, p := range l.group.ownedParts() {
+		list, err := l.group.owned[p].store.List()
+		if err != nil {
+			continue
+		}
+		for i := range list {
+			list[i].Partition = &p
+		}
+		out = append(out, list...)
+	}
+	return out
+}
+
+// all returns the stores of every partition held, owned or parked (none
+// when g is nil).
+func (g *group) all() []*partSt {
+	if g == nil {
+		return nil
+	}
+	var out []*partSt
+	for _, ps := range g.owned {
+		out = append(out, ps)
+	}
+	for _, ps := range g.parked {
+		out = append(out, ps)
+	}
+	return out
+}
+
+// restorePartition restores a partition of a consumer group. Not yet built.
+func (l *loop) restorePartition(v uint64, req RestoreRequest) cmdResult {
+	return cmdResult{err: cmdErr(ErrConflict, "restore in a consumer group is not built yet")}
+}

@@ -1,0 +1,331 @@
+package api
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"fmt"
+	"slices"
+	"testing"
+	"time"
+
+	"github.com/segmentio/kafka-go"
+	"github.com/twmb/franz-go/pkg/kfake"
+
+	"tidemark/api/persist"
+	"tidemark/bench/synth"
+	"tidemark/checkpoint"
+	"tidemark/learner"
+)
+
+// The instances of one consumer group, in process, on an in-process broker
+// (kfake) with a six-partition topic. The reference throughout is one
+// engine that applies every message of the topic at its position, read back
+// with a plain kafka-go reader: what one instance reading the whole topic
+// holds (the state does not depend on how partitions interleave; see
+// learner's TestMergedEnginesAreOneEngine).
+
+const groupParts = 6
+
+// groupBroker starts a broker with a six-partition topic.
+func groupBroker(t testing.TB) string {
+	t.Helper()
+	c, err := kfake.NewCluster(kfake.NumBrokers(1), kfake.SeedTopics(groupParts, topic))
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(c.Close)
+	return c.ListenAddrs()[0]
+}
+
+// roomsScenario is the demo scenario over twelve rooms, so that every one
+// of six partitions carries keys.
+func roomsScenario(t testing.TB, days int) [][]byte {
+	t.Helper()
+	var buf bytes.Buffer
+	synth.Write(&buf, synth.Config{Days: days, Seed: 9, Rooms: 12})
+	return bytes.Split(bytes.TrimSpace(buf.Bytes()), []byte("\n"))
+}
+
+// produceKeyed writes events keyed by their key with the Java client's
+// partitioner (murmur2, kafka-go's implementation), the service's default.
+func produceKeyed(t testing.TB, addr string, lines [][]byte) {
+	t.Helper()
+	w := &kafka.Writer{Addr: kafka.TCP(addr), Topic: topic, Balancer: kafka.Murmur2Balancer{Consistent: true}, RequiredAcks: kafka.RequireAll,
+		BatchSize: 500, BatchTimeout: 5 * time.Millisecond}
+	defer w.Close()
+	var msgs []kafka.Message
+	for _, l := range lines {
+		var ev learner.Event
+		learner.DecodeEvent(l, &ev) // a malformed line keeps the empty key
+		msgs = append(msgs, kafka.Message{Key: []byte(ev.Key), Value: l})
+	}
+	ctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
+	defer cancel()
+	if err := w.WriteMessages(ctx, msgs...); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// topicEngine applies every message of the topic, partition by partition,
+// to one engine.
+func topicEngine(t testing.TB, addr string, cfg learner.Config) *learner.Engine {
+	t.Helper()
+	eng, err := learner.NewEngine(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, hw := range lastOffsets(t, addr) {
+		r := kafka.NewReader(kafka.ReaderConfig{Brokers: []string{addr}, Topic: topic, Partition: int(hw.Partition), MaxWait: 50 * time.Millisecond})
+		ctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
+		for {
+			m, err := r.ReadMessage(ctx)
+			if err != nil {
+				t.Fatal(err)
+			}
+			pos := learner.Position{Partition: hw.Partition, Offset: m.Offset}
+			var ev learner.Event
+			if err := learner.DecodeEvent(m.Value, &ev); err != nil {
+				eng.Skip(pos)
+			} else {
+				eng.Apply(pos, &ev)
+			}
+			if m.Offset >= hw.Offset {
+				break
+			}
+		}
+		cancel()
+		r.Close()
+	}
+	return eng
+}
+
+func groupConfig(t testing.TB, addr, ckDir string) Config {
+	cfg := kafkaConfig(t, addr, t.TempDir())
+	cfg.Kafka.Group = "tidemark-group"
+	cfg.CheckpointDir = ckDir
+	cfg.ForwardTimeout = 5 * time.Second
+	return cfg
+}
+
+// waitGroup asks r for the group-wide report until it has contributions
+// from n instances and covers want (the topic's last offsets).
+func (r *running) waitGroup(t testing.TB, n int, want []learner.Position) GroupReport {
+	t.Helper()
+	deadline := time.Now().Add(90 * time.Second)
+	var last string
+	for {
+		code, b := r.call(t, "GET", "/v1/learners?scope=group", "", nil)
+		if code == 200 {
+			var rep GroupReport
+			if err := json.Unmarshal(b, &rep); err != nil {
+				t.Fatal(err)
+			}
+			if covers(rep.Positions, want) && len(rep.Contributors) == n {
+				return rep
+			}
+			last = fmt.Sprintf("at %v from %d instances", rep.Positions, len(rep.Contributors))
+		} else {
+			last = fmt.Sprintf("%d %s", code, b)
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("the group did not reach %v: %s", want, last)
+		}
+		time.Sleep(50 * time.Millisecond)
+	}
+}
+
+func covers(have, want []learner.Position) bool {
+	for _, w := range want {
+		i := slices.IndexFunc(have, func(p learner.Position) bool { return p.Partition == w.Partition })
+		if i < 0 || have[i].Offset < w.Offset {
+			return false
+		}
+	}
+	return true
+}
+
+// sameAsTopic checks a group-wide report against the reference engine, bit
+// for bit: counters, positions, pooled errors, drift, per-key figures.
+func sameAsTopic(t testing.TB, what string, got GroupReport, ref *learner.Engine) {
+	t.Helper()
+	sameJSON(t, what, got.Report, ref.Report(true))
+}
+
+// TestGroupOfThreeIsOneInstance: three instances in one group split six
+// partitions; the group-wide report equals one engine over the whole topic
+// to the bit, from every instance; every key is predicted by every instance
+// exactly as its owner predicts it; an instance that stops hands its
+// partitions over and one that comes back takes some again, and the view
+// stays exact.
+func TestGroupOfThreeIsOneInstance(t *testing.T) {
+	addr := groupBroker(t)
+	lines := roomsScenario(t, 2)
+	half := len(lines) / 2
+	produceKeyed(t, addr, lines[:half])
+	ck := t.TempDir()
+	var rs []*running
+	for range 3 {
+		rs = append(rs, start(t, groupConfig(t, addr, ck)))
+	}
+	last := lastOffsets(t, addr)
+	if len(last) != groupParts {
+		t.Fatalf("events landed in %d partitions, want %d", len(last), groupParts)
+	}
+	for _, r := range rs {
+		sameAsTopic(t, "group-wide report (three instances)", r.waitGroup(t, 3, last), topicEngine(t, addr, testConfig(t, "").Engine))
+	}
+	// Each instance owns two partitions; /v1/cluster says so from anywhere.
+	var cv ClusterView
+	code, b := rs[1].call(t, "GET", "/v1/cluster", "", nil)
+	if code != 200 || json.Unmarshal(b, &cv) != nil {
+		t.Fatalf("GET /v1/cluster: %d %s", code, b)
+	}
+	owners := map[int32]string{}
+	for _, in := range cv.Instances {
+		if len(in.Partitions) != 2 || in.Error != "" {
+			t.Errorf("instance %s: partitions %v (error %q), want two", in.Instance, in.Partitions, in.Error)
+		}
+		for _, p := range in.Partitions {
+			owners[p.Partition] = in.Address
+			if p.Lag != 0 || p.Offset != last[p.Partition].Offset {
+				t.Errorf("partition %d: offset %d lag %d, want %d and 0", p.Partition, p.Offset, p.Lag, last[p.Partition].Offset)
+			}
+		}
+	}
+	if len(cv.Instances) != 3 || len(owners) != groupParts || len(cv.Unowned) != 0 || cv.Partitions != groupParts {
+		t.Errorf("cluster: %d instances, %d partitions owned, unowned %v: %s", len(cv.Instances), len(owners), cv.Unowned, b)
+	}
+	checkPredicts(t, rs, addr)
+
+	// One instance stops (its partitions are checkpointed and handed over);
+	// more events arrive; the other two take them all.
+	if err := rs[2].stop(); err != nil {
+		t.Fatal(err)
+	}
+	produceKeyed(t, addr, lines[half:])
+	last = lastOffsets(t, addr)
+	ref := topicEngine(t, addr, testConfig(t, "").Engine)
+	sameAsTopic(t, "group-wide report (two instances)", rs[0].waitGroup(t, 2, last), ref)
+	// It comes back with its data directory: the view is still exact.
+	rs[2] = start(t, groupConfig(t, addr, ck))
+	for _, r := range rs {
+		sameAsTopic(t, "group-wide report (after a restart)", r.waitGroup(t, 3, last), ref)
+	}
+	checkPredicts(t, rs, addr)
+}
+
+// checkPredicts asks every instance for every key's prediction, one row at a
+// time and all rows at once: every answer equals the reference engine's,
+// and a single row's answer is the owner's, byte for byte.
+func checkPredicts(t *testing.T, rs []*running, addr string) {
+	t.Helper()
+	ref := topicEngine(t, addr, testConfig(t, "").Engine)
+	var rows []string
+	for i := 1; i <= 12; i++ {
+		key := fmt.Sprintf("room-%d", i)
+		switch i {
+		case 1, 2, 3:
+			key = "room-" + string(rune('a'+i-1))
+		}
+		rows = append(rows, fmt.Sprintf(`{"key":%q,"time":"2026-03-02T23:00:00Z","features":{"outdoor_c":6.5,"door_min":0,"shift":"night"}}`, key))
+	}
+	for _, name := range serviceSpecs {
+		var first [][]byte
+		for i, r := range rs {
+			for j, row := range rows {
+				code, b := r.call(t, "POST", "/v1/predict", "", []byte(fmt.Sprintf(`{"learner":%q,%s`, name, row[1:])))
+				if code != 200 {
+					t.Fatalf("instance %d, %s: %d %s", i, row, code, b)
+				}
+				if i == 0 {
+					first = append(first, b)
+				} else if !bytes.Equal(b, first[j]) {
+					t.Errorf("instance %d answers %s\ninstance 0 %s", i, b, first[j])
+				}
+				var resp PredictResponse
+				json.Unmarshal(b, &resp)
+				var ev learner.Event
+				learner.DecodeRow([]byte(row), &ev)
+				p, _ := ref.Predict(ev.Key, name, &ev)
+				if resp.PredictAnswer == nil || resp.Prediction != p.Value {
+					t.Errorf("%s %s: instance %d predicts %s, one engine over the topic %v", name, ev.Key, i, b, p.Value)
+				}
+			}
+			code, b := r.call(t, "POST", "/v1/predict", "", []byte(fmt.Sprintf(`{"learner":%q,"rows":[%s]}`, name, bytes.Join(toBytes(rows), []byte(",")))))
+			var resp PredictResponse
+			if code != 200 || json.Unmarshal(b, &resp) != nil || len(resp.Predictions) != len(rows) {
+				t.Fatalf("instance %d, all rows: %d %s", i, code, b)
+			}
+			for j, a := range resp.Predictions {
+				var one PredictResponse
+				json.Unmarshal(first[j], &one)
+				if a.Key != one.Key || a.Prediction != one.Prediction {
+					t.Errorf("instance %d, row %d of all: %+v, alone %+v", i, j, a, *one.PredictAnswer)
+				}
+			}
+		}
+	}
+}
+
+func toBytes(ss []string) [][]byte {
+	out := make([][]byte, len(ss))
+	for i, s := range ss {
+		out[i] = []byte(s)
+	}
+	return out
+}
+
+// TestStaleOwnerIsFenced: an instance that still believes it owns a
+// partition after the group gave it to another cannot overwrite the new
+// owner's state: its checkpoint is refused (a newer generation wrote the
+// partition's newest checkpoint), it gives the partition up, and the
+// store's newest checkpoint stays the new owner's.
+func TestStaleOwnerIsFenced(t *testing.T) {
+	addr := groupBroker(t)
+	produceKeyed(t, addr, roomsScenario(t, 1)[:600])
+	ck := t.TempDir()
+	r := start(t, groupConfig(t, addr, ck))
+	r.waitGroup(t, 1, lastOffsets(t, addr))
+	// A newer owner (generation 1000) writes partition 0's state.
+	res := r.svc.loop.do(func(l *loop) cmdResult {
+		ps := l.group.owned[0]
+		if ps == nil {
+			return cmdResult{err: fmt.Errorf("partition 0 not owned")}
+		}
+		moved := l.eng.Split([]int32{0})
+		info, err := persist.SavePartition(ps.store, moved, 0, checkpoint.Handover, 1000, "the new owner")
+		l.eng.Merge(moved)
+		return cmdResult{info: info, err: err}
+	})
+	if res.err != nil {
+		t.Fatal(res.err)
+	}
+	newer := res.info
+	// The stale owner's next checkpoint of partition 0 is refused.
+	code, b := r.call(t, "POST", "/v1/checkpoints", "", []byte("{}"))
+	if code == 201 {
+		t.Fatalf("a stale owner's checkpoint was written: %s", b)
+	}
+	store, err := checkpoint.OpenStore(checkpoint.StoreConfig{Dir: persist.PartitionDir(ck, 0), ReadOnly: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer store.Close()
+	vs, _ := store.Versions()
+	if vs[len(vs)-1] != newer.Version {
+		t.Errorf("newest version of partition 0 is %d, want the new owner's %d", vs[len(vs)-1], newer.Version)
+	}
+	owned := r.svc.loop.do(func(l *loop) cmdResult {
+		if l.group.owns(0) {
+			return cmdResult{err: fmt.Errorf("still owns partition 0")}
+		}
+		if _, _, ok := l.eng.PartitionCounts(0); ok {
+			return cmdResult{err: fmt.Errorf("still holds partition 0's state")}
+		}
+		return cmdResult{}
+	})
+	if owned.err != nil {
+		t.Error(owned.err)
+	}
+}
