@@ -27,6 +27,9 @@ var (
 	// ErrNotStored: what the command needed written could not be stored
 	// durably; the state is as before. HTTP 503.
 	ErrNotStored = errors.New("api: could not be stored durably")
+	// ErrMoved: in a consumer group, the partition the command is about is
+	// not this instance's (any more). HTTP 503: retry, it reaches the owner.
+	ErrMoved = errors.New("api: the partition is another instance's")
 )
 
 // cmdError is a command's error: the message the user reads, which sentinel
@@ -55,7 +58,7 @@ func statusOf(err error) int {
 		return http.StatusNotFound
 	case errors.Is(err, ErrConflict), errors.Is(err, checkpoint.ErrCorrupt), errors.Is(err, persist.ErrResume), errors.Is(err, learner.ErrCorruptState):
 		return http.StatusConflict
-	case errors.Is(err, ErrNotStored):
+	case errors.Is(err, ErrNotStored), errors.Is(err, ErrMoved):
 		return http.StatusServiceUnavailable
 	}
 	return http.StatusInternalServerError

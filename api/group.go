@@ -1,6 +1,7 @@
 package api
 
 import (
+	"encoding/json"
 	"errors"
 	"fmt"
 	"slices"
@@ -47,6 +48,7 @@ type partSt struct {
 	store *checkpoint.Store
 	last  checkpoint.Info // the newest checkpoint written or adopted here (zero: none)
 	saved int64           // the partition's high-water offset at the last checkpoint (-1: none)
+	skip  *skipRule       // a restore's skip rule while it applies to this partition
 }
 
 func newGroup(dir, instance string) *group {
@@ -170,6 +172,10 @@ func (l *loop) loadPartition(p int32) (*partSt, error) {
 	if st != nil {
 		ps.last = st.Info
 		ps.saved = st.Manifest.Positions[0].Offset
+		var src serviceSource
+		if json.Unmarshal(st.Manifest.Source, &src) == nil && src.Skip != nil && !src.Skip.done(l.eng) {
+			ps.skip = src.Skip // a restore's catch-up goes on here
+		}
 		l.lastAlarms = l.eng.Alarms()
 		l.cfg.Log.Info("consumer group: partition state loaded", "partition", p, "version", st.Manifest.Version,
 			"owner_before", st.Manifest.Owner, "events", st.Manifest.Events, "took", time.Since(start).Round(time.Millisecond).String())
@@ -202,7 +208,7 @@ func (ps *partSt) stillNewest() bool {
 // owner gives the partition up at once.
 func (l *loop) savePartition(p int32, ps *partSt, reason checkpoint.Reason) (checkpoint.Info, error) {
 	g := l.group
-	info, err := persist.SavePartition(ps.store, l.eng, p, reason, int64(g.gen.ID), g.instance)
+	info, err := persist.SavePartition(ps.store, l.eng, p, reason, ps.last.Version, int64(g.gen.ID), g.instance, serviceSource{Kind: "service", Skip: ps.skip})
 	if errors.Is(err, checkpoint.ErrFenced) {
 		l.cfg.Log.Warn("consumer group: another instance owns the partition now; giving it up", "partition", p, "error", err)
 		delete(g.owned, p)
@@ -304,7 +310,100 @@ func (g *group) all() []*partSt {
 	return out
 }
 
-// restorePartition restores a partition of a consumer group. Not yet built.
+// restorePartition sets the state of one owned partition back to version v
+// of its store and resumes as asked; the other partitions go on untouched.
+// The restored state is written as the partition's newest checkpoint (in
+// this generation, so fenced like any other) before it replaces the live
+// one; then the intake rejoins the group, so that the partition is read again
+// from the restored position by whichever instance it is assigned to, which
+// loads it from that checkpoint (skip rule included). It runs on the loop.
 func (l *loop) restorePartition(v uint64, req RestoreRequest) cmdResult {
-	return cmdResult{err: cmdErr(ErrConflict, "restore in a consumer group is not built yet")}
+	if req.Partition == nil {
+		return cmdResult{err: cmdErr(ErrInvalidRequest, "in a consumer group each partition has its own checkpoints: say which partition (\"partition\": N) "+
+			"or restore every partition with POST /v1/cluster/restore")}
+	}
+	res := l.restoreOne(*req.Partition, v, req)
+	if res.err == nil {
+		l.startSource() // rejoins the group: the partition is read again from the restored position
+		l.publish()
+	}
+	return res
+}
+
+// restoreParts restores each partition of versions to its version, for a
+// group-wide restore; one rejoin follows them all.
+func (l *loop) restoreParts(versions map[int32]uint64, req RestoreRequest) map[int32]cmdResult {
+	out := map[int32]cmdResult{}
+	done := false
+	for p, v := range versions {
+		out[p] = l.restoreOne(p, v, req)
+		done = done || out[p].err == nil
+	}
+	if done {
+		l.startSource()
+		l.publish()
+	}
+	return out
+}
+
+// restoreOne restores partition p to version v (see restorePartition),
+// without rejoining.
+func (l *loop) restoreOne(p int32, v uint64, req RestoreRequest) cmdResult {
+	ps := l.group.owned[p]
+	if ps == nil {
+		return cmdResult{err: cmdErr(ErrMoved, "this instance does not own partition %d (it moved); retry", p)}
+	}
+	var live []learner.Position
+	for _, pos := range l.eng.Positions() {
+		if pos.Partition == p {
+			live = append(live, pos)
+		}
+	}
+	mode, rule, err := req.rule(live)
+	if err != nil {
+		return cmdResult{err: cmdErr(ErrInvalidRequest, "%v", err)}
+	}
+	st, err := ps.store.Stream(v)
+	if errors.Is(err, checkpoint.ErrNotFound) {
+		return cmdResult{err: cmdErr(ErrNoCheckpoint, "partition %d has no checkpoint %d; GET /v1/checkpoints lists them", p, v)}
+	}
+	if err != nil {
+		return cmdResult{err: cmdErr(ErrConflict, "checkpoint %d of partition %d fails its checks and cannot be restored: %v", v, p, err).withCause(err)}
+	}
+	restored, err := learner.NewEngine(l.eng.Config())
+	if err != nil {
+		st.Close()
+		return cmdResult{err: err}
+	}
+	if err := persist.AdoptStream(restored, st, adoptHint); errors.Is(err, checkpoint.ErrCorrupt) {
+		return cmdResult{err: cmdErr(ErrConflict, "checkpoint %d of partition %d fails its checks and cannot be restored: %v", v, p, err).withCause(err)}
+	} else if err != nil {
+		return cmdResult{err: err}
+	}
+	if _, _, ok := restored.PartitionCounts(p); !ok {
+		return cmdResult{err: cmdErr(ErrConflict, "checkpoint %d does not hold partition %d", v, p)}
+	}
+	if mode == ResumeFromNow {
+		restored.CoverUpTo(live)
+	}
+	// Recorded first: a restore happens as a whole or not at all.
+	rps := &partSt{store: ps.store, last: ps.last, saved: -1}
+	if mode == ResumeSkip {
+		rps.skip = rule
+	}
+	info, err := persist.SavePartition(ps.store, restored, p, checkpoint.Manual, v, int64(l.group.gen.ID), l.group.instance, serviceSource{Kind: "service", Skip: rps.skip})
+	if err != nil {
+		l.cfg.Log.Error("restore not done: the checkpoint recording it could not be written; the state is unchanged", "partition", p, "version", v, "error", err)
+		return cmdResult{err: cmdErr(ErrNotStored, "restore of checkpoint %d of partition %d not done: the checkpoint recording it could not be written (%v); "+
+			"the partition goes on from its state before this request", v, p, err).withCause(err)}
+	}
+	rps.last, rps.saved = info, info.Position[0].Offset
+	l.eng.Split([]int32{p})
+	if err := l.eng.Merge(restored); err != nil {
+		panic(fmt.Sprintf("api: a restored partition does not merge back: %v", err)) // same configuration, partition just taken out
+	}
+	l.group.owned[p] = rps
+	l.lastAlarms, l.lastCk = l.eng.Alarms(), info
+	l.cfg.Log.Warn("restored", "partition", p, "version", v, "resume", mode.String())
+	return cmdResult{info: info}
 }

@@ -59,6 +59,7 @@ func (s *Service) newHTTP() *http.Server {
 	e.POST("/v1/intake/skip-damaged", s.handleSkipDamaged, changing(jsonTypes...)...)
 	e.GET("/v1/cluster", s.handleCluster, read)
 	e.GET("/v1/cluster/totals", s.handleTotals, read)
+	e.POST("/v1/cluster/restore", s.handleGroupRestore, changing(jsonTypes...)...)
 	e.GET("/healthz", s.handleHealth)
 	e.GET("/readyz", s.handleReady)
 	e.GET("/metrics", echo.WrapHandler(s.metrics.handler()), read)
@@ -493,6 +494,12 @@ func (s *Service) handleRestore(c echo.Context) error {
 	var req RestoreRequest
 	if err := decodeJSONBody(c, &req); err != nil {
 		return httpErr(http.StatusBadRequest, "the body must be one object {\"resume\":\"from_checkpoint\"|\"from_now\"|\"skip\", …}: %v", errMessage(err))
+	}
+	if s.kafka != nil && req.Partition != nil && c.Request().Header.Get(forwardedHeader) == "" {
+		// The partition's owner restores it.
+		if routed, err := s.routeToOwner(c, *req.Partition, req); routed {
+			return err
+		}
 	}
 	res := s.loop.do(func(l *loop) cmdResult { return l.restore(v, req) })
 	if res.err != nil {

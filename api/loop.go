@@ -297,22 +297,23 @@ func (l *loop) apply(it item) {
 		return
 	}
 	defer l.checkReady()
-	if l.skip != nil && l.skip.coversPosition(it.pos) {
+	skip := l.skipFor(it.pos.Partition)
+	if skip != nil && skip.coversPosition(it.pos) {
 		l.eng.Pass(it.pos)
-		l.afterEvent()
+		l.afterEvent(it.pos)
 		return
 	}
 	if it.decErr != nil {
 		l.eng.Skip(it.pos)
 		l.metrics.rejections.WithLabelValues("decode").Inc()
 		l.dead.add(it.pos, it.decErr, it.data)
-		l.afterEvent()
+		l.afterEvent(it.pos)
 		return
 	}
 	ev := it.ev
-	if l.skip != nil && l.skip.coversEvent(it.pos, ev) {
+	if skip != nil && skip.coversEvent(it.pos, ev) {
 		l.eng.Pass(it.pos)
-		l.afterEvent()
+		l.afterEvent(it.pos)
 		return
 	}
 	if _, err := l.eng.Apply(it.pos, ev); err != nil {
@@ -326,15 +327,31 @@ func (l *loop) apply(it item) {
 		l.lastAlarms = a
 		l.pinBeforeAlarm(it.pos.Partition)
 	}
-	l.afterEvent()
+	l.afterEvent(it.pos)
 }
 
-func (l *loop) afterEvent() {
+// skipFor returns the skip rule of a restore that applies to partition p:
+// in a consumer group each partition has its own.
+func (l *loop) skipFor(p int32) *skipRule {
+	if l.group != nil {
+		if ps := l.group.owned[p]; ps != nil {
+			return ps.skip
+		}
+		return nil
+	}
+	return l.skip
+}
+
+func (l *loop) afterEvent(pos learner.Position) {
 	l.sinceCk++
 	l.handled.Add(1)
-	if l.skip != nil && l.skip.done(l.eng) {
-		l.cfg.Log.Info("restore: the skipped range is behind; back to normal intake")
-		l.skip = nil
+	if skip := l.skipFor(pos.Partition); skip != nil && skip.done(l.eng) {
+		l.cfg.Log.Info("restore: the skipped range is behind; back to normal intake", "partition", pos.Partition)
+		if l.group != nil {
+			l.group.owned[pos.Partition].skip = nil
+		} else {
+			l.skip = nil
+		}
 	}
 	// A curve point when the applied count reaches a multiple of CurveEvery:
 	// once, not again for every rejected or passed event while the count

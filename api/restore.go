@@ -54,6 +54,10 @@ type PositionRange struct {
 
 // RestoreRequest is the body of POST /v1/checkpoints/{version}/restore.
 type RestoreRequest struct {
+	// Partition names the partition to restore in a consumer group, where
+	// each partition has its own checkpoints (and versions); absent
+	// otherwise.
+	Partition     *int32          `json:"partition,omitempty"`
 	Resume        string          `json:"resume"`
 	SkipFromTime  string          `json:"skip_from_time,omitempty"` // RFC 3339, inclusive
 	SkipToTime    string          `json:"skip_to_time,omitempty"`   // RFC 3339, exclusive

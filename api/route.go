@@ -537,11 +537,21 @@ func (s *Service) askOrSelf(c echo.Context, m intake.Member, path string) (int, 
 	if !s.isSelf(m) {
 		return s.ask(c.Request().Context(), m, http.MethodGet, path, nil)
 	}
+	return s.askSelf(c, http.MethodGet, path, nil)
+}
+
+// askSelf serves a request of this instance's to itself, in process, with
+// the credentials and origin of the request c is answering.
+func (s *Service) askSelf(c echo.Context, method, path string, body []byte) (int, []byte, error) {
 	req := c.Request().Clone(c.Request().Context())
-	req.Method = http.MethodGet
+	req.Method = method
 	req.URL.Path, req.URL.RawQuery, _ = strings.Cut(path, "?")
 	req.RequestURI = ""
-	req.Body = http.NoBody
+	req.Body = io.NopCloser(bytes.NewReader(body))
+	req.ContentLength = int64(len(body))
+	if body != nil {
+		req.Header.Set("Content-Type", "application/json")
+	}
 	req.Header.Set(forwardedHeader, s.loop.group.instance)
 	rec := &recorder{header: http.Header{}}
 	s.http.Handler.ServeHTTP(rec, req)

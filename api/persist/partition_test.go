@@ -80,7 +80,7 @@ func TestPartitionStateMovesBetweenInstances(t *testing.T) {
 		x.Apply(e.pos, e.ev)
 	}
 	for p := int32(0); p < 6; p++ {
-		if _, err := SavePartition(stores[p], x, p, checkpoint.Periodic, 1, "x"); err != nil {
+		if _, err := SavePartition(stores[p], x, p, checkpoint.Periodic, 0, 1, "x", nil); err != nil {
 			t.Fatal(err)
 		}
 	}
@@ -89,7 +89,7 @@ func TestPartitionStateMovesBetweenInstances(t *testing.T) {
 	}
 	// Generation 2: X checkpoints what it lets go of, then drops it.
 	for p := range moved {
-		if _, err := SavePartition(stores[p], x, p, checkpoint.Shutdown, 1, "x"); err != nil {
+		if _, err := SavePartition(stores[p], x, p, checkpoint.Shutdown, 0, 1, "x", nil); err != nil {
 			t.Fatal(err)
 		}
 	}
@@ -114,7 +114,7 @@ func TestPartitionStateMovesBetweenInstances(t *testing.T) {
 		if moved[p] {
 			owner, name = y, "y"
 		}
-		if _, err := SavePartition(stores[p], owner, p, checkpoint.Periodic, 2, name); err != nil {
+		if _, err := SavePartition(stores[p], owner, p, checkpoint.Periodic, 0, 2, name, nil); err != nil {
 			t.Fatal(err)
 		}
 	}
@@ -125,7 +125,7 @@ func TestPartitionStateMovesBetweenInstances(t *testing.T) {
 			stale.Apply(e.pos, e.ev)
 		}
 	}
-	if _, err := SavePartition(stores[1], stale, 1, checkpoint.Periodic, 1, "x"); !errors.Is(err, checkpoint.ErrFenced) {
+	if _, err := SavePartition(stores[1], stale, 1, checkpoint.Periodic, 0, 1, "x", nil); !errors.Is(err, checkpoint.ErrFenced) {
 		t.Fatalf("a late write of a lost partition: %v, want ErrFenced", err)
 	}
 
@@ -174,7 +174,7 @@ func TestPartitionStateSurvivesAKill(t *testing.T) {
 		x.Apply(e.pos, e.ev)
 	}
 	for p := int32(0); p < 6; p++ {
-		if _, err := SavePartition(store(p), x, p, checkpoint.Periodic, 1, "x"); err != nil {
+		if _, err := SavePartition(store(p), x, p, checkpoint.Periodic, 0, 1, "x", nil); err != nil {
 			t.Fatal(err)
 		}
 	}

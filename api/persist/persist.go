@@ -172,15 +172,23 @@ func PartitionDir(dir string, p int32) string {
 
 // SavePartition writes partition p of eng (its keys, high-water mark and
 // counters, with the global section) to store, the partition's own, stamped
-// with the consumer-group generation in which owner holds it. A writer whose
+// with the consumer-group generation in which owner holds it; parent and
+// source are as for Save. A writer whose
 // generation is older than the store's newest checkpoint is refused
 // (checkpoint.ErrFenced): it lost the partition.
-func SavePartition(store *checkpoint.Store, eng *learner.Engine, p int32, reason checkpoint.Reason, generation int64, owner string) (checkpoint.Info, error) {
+func SavePartition(store *checkpoint.Store, eng *learner.Engine, p int32, reason checkpoint.Reason, parent uint64, generation int64, owner string, source any) (checkpoint.Info, error) {
 	applied, _, ok := eng.PartitionCounts(p)
 	if !ok {
 		return checkpoint.Info{}, fmt.Errorf("persist: the engine holds no partition %d", p)
 	}
-	m := checkpoint.Manifest{Reason: reason, Events: applied, ConfigSHA256: eng.Config().Digest(), Generation: generation, Owner: owner}
+	m := checkpoint.Manifest{Reason: reason, Parent: parent, Events: applied, ConfigSHA256: eng.Config().Digest(), Generation: generation, Owner: owner}
+	if source != nil {
+		b, err := json.Marshal(source)
+		if err != nil {
+			return checkpoint.Info{}, fmt.Errorf("persist: source record: %w", err)
+		}
+		m.Source = b
+	}
 	for _, pos := range eng.Positions() {
 		if pos.Partition == p {
 			m.Positions = []checkpoint.Position{{Partition: p, Offset: pos.Offset}}

@@ -47,11 +47,17 @@ type fileConfig struct {
 		HashBuckets  int      `yaml:"hash_buckets"`
 		TimeFeatures bool     `yaml:"time_features"`
 	} `yaml:"features"`
-	History string `yaml:"history"`
-	Kafka   struct {
-		Brokers []string `yaml:"brokers"`
-		Topic   string   `yaml:"topic"`
-		Group   string   `yaml:"group"`
+	History       string `yaml:"history"`
+	CheckpointDir string `yaml:"checkpoint_dir"`
+	Instance      string `yaml:"instance"`
+	Advertise     string `yaml:"advertise"`
+	Kafka         struct {
+		Brokers          []string `yaml:"brokers"`
+		Topic            string   `yaml:"topic"`
+		Group            string   `yaml:"group"`
+		Partitioner      string   `yaml:"partitioner"`
+		RebalanceTimeout string   `yaml:"rebalance_timeout"`
+		ForwardTimeout   string   `yaml:"forward_timeout"`
 	} `yaml:"kafka"`
 }
 
@@ -99,7 +105,13 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	history := fs.String("history", "", "learn from this history `FILE` (NDJSON, plain, .gz or .zst; position = line number) instead of the journal")
 	brokers := fs.String("kafka-brokers", "", "Kafka bootstrap brokers host:port,... (learn from Kafka instead of the journal)")
 	topic := fs.String("kafka-topic", "", "Kafka topic of events")
-	group := fs.String("kafka-group", "tidemark", "Kafka consumer group")
+	group := fs.String("kafka-group", "tidemark", "Kafka consumer group: instances with the same group split the topic's partitions")
+	partitioner := fs.String("kafka-partitioner", intake.DefaultPartitioner, "the producers' key-to-partition function, to route predicts to the instance that owns the key: murmur2 (the Java client's default), fnv1a or crc32")
+	rebalance := fs.Duration("kafka-rebalance-timeout", 10*time.Second, "how long the group waits for an instance to checkpoint the partitions it gives up")
+	forwardTimeout := fs.Duration("forward-timeout", api.DefaultForwardTimeout, "bound on a request forwarded to another instance of the group")
+	ckDir := fs.String("checkpoint-dir", "", "checkpoint `DIR` (default DATA/checkpoints); with Kafka, one every instance of the group reaches, e.g. on a shared file system")
+	instance := fs.String("instance", "", "this instance's `NAME` in its consumer group (default: its advertised address)")
+	advertise := fs.String("advertise", "", "the `URL` other instances of the group reach this one at (default: from --listen, e.g. http://10.0.0.7:8080)")
 	logLevel := fs.String("log-level", "info", "log level: debug, info, warn, error")
 	tlsCert := fs.String("tls-cert", "", "serve HTTPS with this certificate `FILE` (PEM), with --tls-key")
 	tlsKey := fs.String("tls-key", "", "the certificate's private key `FILE` (PEM)")
@@ -228,10 +240,29 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	cfg.Engine = eng
 
 	cfg.History = pick("history", *history, fc.History)
+	cfg.CheckpointDir = pick("checkpoint-dir", *ckDir, fc.CheckpointDir)
+	cfg.Instance = pick("instance", *instance, fc.Instance)
+	cfg.Advertise = pick("advertise", *advertise, fc.Advertise)
+	cfg.Partitioner = pick("kafka-partitioner", *partitioner, fc.Kafka.Partitioner)
+	duration := func(flagName, key string, flagVal time.Duration, fileVal string) time.Duration {
+		if set[flagName] || fileVal == "" {
+			return flagVal
+		}
+		d, err := time.ParseDuration(fileVal)
+		if err != nil {
+			problems = append(problems, fmt.Errorf("%s %q: %v", key, fileVal, err))
+		}
+		return d
+	}
+	cfg.ForwardTimeout = duration("forward-timeout", "kafka.forward_timeout", *forwardTimeout, fc.Kafka.ForwardTimeout)
 	kb := pick("kafka-brokers", *brokers, strings.Join(fc.Kafka.Brokers, ","))
 	kt := pick("kafka-topic", *topic, fc.Kafka.Topic)
 	if kb != "" || kt != "" {
-		cfg.Kafka = &intake.KafkaConfig{Brokers: splitList(kb), Topic: kt, Group: pick("kafka-group", *group, fc.Kafka.Group)}
+		cfg.Kafka = &intake.KafkaConfig{Brokers: splitList(kb), Topic: kt, Group: pick("kafka-group", *group, fc.Kafka.Group),
+			RebalanceTimeout: duration("kafka-rebalance-timeout", "kafka.rebalance_timeout", *rebalance, fc.Kafka.RebalanceTimeout)}
+		if cfg.Kafka.RebalanceTimeout <= 0 {
+			problems = append(problems, fmt.Errorf("kafka rebalance timeout %v: want a positive duration", cfg.Kafka.RebalanceTimeout))
+		}
 	}
 	logger := slog.New(slog.NewTextHandler(stderr, &slog.HandlerOptions{Level: level}))
 	cfg.Log = logger
