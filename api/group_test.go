@@ -6,6 +6,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"slices"
+	"strings"
 	"testing"
 	"time"
 
@@ -195,6 +196,30 @@ func TestGroupOfThreeIsOneInstance(t *testing.T) {
 	}
 	if len(cv.Instances) != 3 || len(owners) != groupParts || len(cv.Unowned) != 0 || cv.Partitions != groupParts {
 		t.Errorf("cluster: %d instances, %d partitions owned, unowned %v: %s", len(cv.Instances), len(owners), cv.Unowned, b)
+	}
+	// Per partition, exactly one instance says it owns it in /metrics.
+	owned := map[string]int{}
+	for _, r := range rs {
+		code, b := r.call(t, "GET", "/metrics", "", nil)
+		if code != 200 {
+			t.Fatalf("metrics: %d", code)
+		}
+		for _, line := range strings.Split(string(b), "\n") {
+			if p, ok := strings.CutPrefix(line, "tidemark_partition_owned{partition=\""); ok {
+				part, val, _ := strings.Cut(p, "\"} ")
+				if val == "1" {
+					owned[part]++
+				}
+			}
+		}
+	}
+	if len(owned) != groupParts {
+		t.Errorf("tidemark_partition_owned: %v, want each of %d partitions owned once", owned, groupParts)
+	}
+	for p, n := range owned {
+		if n != 1 {
+			t.Errorf("partition %s owned by %d instances", p, n)
+		}
 	}
 	checkPredicts(t, rs, addr)
 

@@ -76,12 +76,17 @@ var (
 	descState    = prometheus.NewDesc("tidemark_state_bytes", "Bytes the model state holds, as estimated from its windows and coefficients (what the memory budget is held to).", nil, nil)
 	descBudget   = prometheus.NewDesc("tidemark_memory_budget_bytes", "The memory budget: events of new keys are rejected (reason memory_budget) while the state is at or past it; 0 for none.", nil, nil)
 	descKeys     = prometheus.NewDesc("tidemark_keys", "Distinct keys in the state.", nil, nil)
+	descOwned    = prometheus.NewDesc("tidemark_partition_owned", "Consumer group: 1 for each partition of the topic this instance owns, 0 for the others (summed over the instances, 1 per partition once the group is settled).", []string{"partition"}, nil)
+	descPartCk   = prometheus.NewDesc("tidemark_partition_checkpoint_age_seconds", "Consumer group: seconds since the newest checkpoint of an owned partition was created.", []string{"partition"}, nil)
+	descPartVer  = prometheus.NewDesc("tidemark_partition_checkpoint_version", "Consumer group: the newest checkpoint version of an owned partition (its store's own numbering).", []string{"partition"}, nil)
+	descGen      = prometheus.NewDesc("tidemark_group_generation", "Consumer group: the generation this instance is in (it grows with every rebalance).", nil, nil)
 	descStopped  = prometheus.NewDesc("tidemark_intake_stopped", "1 while a fault of the data directory stops intake (see /readyz for what and why).", nil, nil)
 )
 
 func (c *snapshotCollector) Describe(ch chan<- *prometheus.Desc) {
 	for _, d := range []*prometheus.Desc{descApplied, descRejected, descSkipped, descDead, descRMSE, descMAE, descSkill,
-		descScored, descDrift, descAlarms, descCkVer, descCkAge, descCkBytes, descLag, descReady, descConn, descStopped, descState, descBudget, descKeys} {
+		descScored, descDrift, descAlarms, descCkVer, descCkAge, descCkBytes, descLag, descReady, descConn, descStopped, descState, descBudget, descKeys,
+		descOwned, descPartCk, descPartVer, descGen} {
 		ch <- d
 	}
 }
@@ -130,6 +135,18 @@ func (c *snapshotCollector) Collect(ch chan<- prometheus.Metric) {
 	for _, l := range snap.lag {
 		gauge(descLag, float64(l.Offset), strconv.Itoa(int(l.Partition)))
 	}
+	if g := snap.group; g != nil {
+		gauge(descGen, float64(g.Generation))
+		for p := range int32(c.s.kafka.Partitions()) {
+			gauge(descOwned, b2f(snap.owns(p)), strconv.Itoa(int(p)))
+		}
+		for _, pv := range g.Partitions {
+			if pv.CheckpointCreated != nil {
+				gauge(descPartCk, time.Since(*pv.CheckpointCreated).Seconds(), strconv.Itoa(int(pv.Partition)))
+				gauge(descPartVer, float64(pv.Checkpoint), strconv.Itoa(int(pv.Partition)))
+			}
+		}
+	}
 	if snap.connected != nil {
 		conn := 0.0
 		if *snap.connected {
@@ -146,6 +163,13 @@ func (c *snapshotCollector) Collect(ch chan<- prometheus.Metric) {
 	}
 	gauge(descReady, ready)
 	gauge(descStopped, stopped)
+}
+
+func b2f(b bool) float64 {
+	if b {
+		return 1
+	}
+	return 0
 }
 
 // rejected returns the rejection counter of a reason.
