@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"path/filepath"
 	"strconv"
 	"strings"
 	"text/tabwriter"
@@ -46,6 +47,13 @@ func runCheckpoints(args []string, stdout, stderr io.Writer) error {
 	readOnly := sub == "list" || sub == "show" || sub == "verify"
 	if st, err := os.Stat(dir); err != nil || !st.IsDir() {
 		return fmt.Errorf("%w in %s: the directory does not exist (a service keeps its checkpoints in DATA/checkpoints)", checkpoint.ErrNoStore, dir)
+	}
+	if parts, _ := filepath.Glob(filepath.Join(dir, "partition-*")); len(parts) > 0 {
+		// A consumer group's checkpoint directory: a store per partition.
+		if sub != "list" {
+			return usagef("%s holds a consumer group's checkpoints, a store per partition: give the partition's directory, e.g. %s", dir, parts[0])
+		}
+		return listPartitions(stdout, parts, *asJSON)
 	}
 	store, err := checkpoint.OpenStore(checkpoint.StoreConfig{Dir: dir, ReadOnly: readOnly})
 	if err != nil {
@@ -143,6 +151,36 @@ func positions(ps []checkpoint.Position) string {
 		s = append(s, fmt.Sprintf("%d:%d", p.Partition, p.Offset))
 	}
 	return strings.Join(s, " ")
+}
+
+// listPartitions lists the checkpoints of every partition store of a
+// consumer group's checkpoint directory, partition by partition.
+func listPartitions(w io.Writer, dirs []string, asJSON bool) error {
+	list := []checkpoint.Info{}
+	for _, d := range dirs {
+		n, err := strconv.ParseInt(strings.TrimPrefix(filepath.Base(d), "partition-"), 10, 32)
+		if err != nil {
+			continue // not a partition store
+		}
+		p := int32(n)
+		store, err := checkpoint.OpenStore(checkpoint.StoreConfig{Dir: d, ReadOnly: true})
+		if err != nil {
+			return err
+		}
+		l, err := store.List()
+		store.Close()
+		if err != nil {
+			return err
+		}
+		for i := range l {
+			l[i].Partition = &p
+		}
+		list = append(list, l...)
+	}
+	if asJSON {
+		return writeJSON(w, list)
+	}
+	return writeCheckpointTable(w, list)
 }
 
 func writeCheckpointTable(w io.Writer, list []checkpoint.Info) error {

@@ -16,6 +16,7 @@ import (
 	"tidemark/api"
 	"tidemark/api/intake"
 	"tidemark/bench/synth"
+	"tidemark/checkpoint"
 	"tidemark/learner"
 )
 
@@ -84,6 +85,24 @@ func TestGroupSurvivesAKill(t *testing.T) {
 	ps[2] = startServe(t, bin, dirs[2], addrs[2], flags...)
 	for _, p := range ps {
 		sameJSON(t, "three instances after the restart", groupAt(t, p, 3, broker), ref())
+	}
+
+	// `checkpoints list` on the shared directory lists every partition's.
+	var out, errOut bytes.Buffer
+	if err := runCheckpoints([]string{"list", shared, "--json"}, &out, &errOut); err != nil {
+		t.Fatalf("checkpoints list: %v %s", err, errOut.String())
+	}
+	var list []checkpoint.Info
+	json.Unmarshal(out.Bytes(), &list)
+	parts, handover := map[int32]bool{}, false
+	for _, in := range list {
+		if in.Partition != nil {
+			parts[*in.Partition] = true
+		}
+		handover = handover || in.Reason == checkpoint.Handover
+	}
+	if len(parts) != 6 || !handover {
+		t.Errorf("checkpoints list of the group's directory: partitions %v, a handover among them %v", parts, handover)
 	}
 }
 
