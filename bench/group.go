@@ -68,7 +68,7 @@ func groupScale() string {
 		panic(err)
 	}
 	floorRate := float64(got-1) / time.Since(firstAt).Seconds() // from the first message, as ours from the settled group
-	fmt.Fprintf(&b, "  floor, plain kafka-go readers draining the topic: %12.0f events/s, %.2f CPU µs/event\n", floorRate, (cpuTime() - floorCPU).Seconds()*1e6/float64(got))
+	fmt.Fprintf(&b, "  floor, plain kafka-go readers draining the topic: %12.0f events/s, %.2f CPU µs/event\n", floorRate, (cpuTime()-floorCPU).Seconds()*1e6/float64(got))
 	for n := 1; n <= 3; n++ {
 		shared, _ := os.MkdirTemp("", "tidemark-bench-group-")
 		cpu0 := cpuTime()
