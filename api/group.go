@@ -39,6 +39,7 @@ type group struct {
 	gen      intake.Generation
 	joined   bool               // assigned partitions at least once
 	owned    map[int32]*partSt  // the partitions this instance owns
+	whole    *learner.Engine    // partitions of a whole-state checkpoint from before groups, taken as they are first assigned
 	parked   map[int32]*partSt  // revoked, still in the engine until the next assignment says whether they come back
 	fenced   map[int32]struct{} // given up after a write was fenced, until the next assignment
 }
@@ -169,6 +170,22 @@ func (l *loop) loadPartition(p int32) (*partSt, error) {
 		store.Close()
 		return nil, err
 	}
+	if st == nil && l.group.whole != nil {
+		if _, _, ok := l.group.whole.PartitionCounts(p); ok {
+			// The partition's state so far is in the whole-state checkpoint
+			// this instance kept before it joined a group: it goes on from
+			// there, and the partition's store gets its first checkpoint.
+			if err := l.eng.Merge(l.group.whole.Split([]int32{p})); err != nil {
+				store.Close()
+				return nil, err
+			}
+			if _, err := l.savePartition(p, ps, checkpoint.Handover); err != nil {
+				l.cfg.Log.Error("consumer group: could not write the first checkpoint of a partition taken from the whole-state checkpoint", "partition", p, "error", err)
+			}
+			l.cfg.Log.Info("consumer group: partition state taken from the whole-state checkpoint", "partition", p)
+			return ps, nil
+		}
+	}
 	if st != nil {
 		ps.last = st.Info
 		ps.saved = st.Manifest.Positions[0].Offset
@@ -181,6 +198,34 @@ func (l *loop) loadPartition(p int32) (*partSt, error) {
 			"owner_before", st.Manifest.Owner, "events", st.Manifest.Events, "took", time.Since(start).Round(time.Millisecond).String())
 	}
 	return ps, nil
+}
+
+// adoptWholeState loads the newest good whole-state checkpoint of dir, as
+// a service kept before it was an instance of a consumer group, when there
+// is one: each of its partitions is taken from it the first time the
+// partition is assigned here and its own store holds nothing, so that
+// upgrading loses no state.
+func (l *loop) adoptWholeState(dir string) error {
+	store, err := checkpoint.OpenStore(checkpoint.StoreConfig{Dir: dir, ReadOnly: true, FS: l.cfg.CheckpointFS})
+	if err != nil {
+		return nil // no such directory: nothing to take
+	}
+	defer store.Close()
+	whole, err := learner.NewEngine(l.eng.Config())
+	if err != nil {
+		return err
+	}
+	st, skipped, err := persist.AdoptNewest(store, whole, adoptHint)
+	for _, e := range skipped {
+		l.cfg.Log.Warn("skipping a checkpoint that fails its checks", "error", e)
+	}
+	if err != nil || st == nil {
+		return err
+	}
+	l.group.whole = whole
+	l.cfg.Log.Info("a whole-state checkpoint from before the consumer group: its partitions are taken from it as they are assigned",
+		"version", st.Manifest.Version, "position", positionsText(st.Manifest.Positions))
+	return nil
 }
 
 // dropPartition takes p's state out of the engine and closes its store.

@@ -5,6 +5,7 @@ import (
 	"context"
 	"encoding/json"
 	"fmt"
+	"path/filepath"
 	"slices"
 	"strings"
 	"testing"
@@ -71,12 +72,18 @@ func produceKeyed(t testing.TB, addr string, lines [][]byte) {
 // topicEngine applies every message of the topic, partition by partition,
 // to one engine.
 func topicEngine(t testing.TB, addr string, cfg learner.Config) *learner.Engine {
+	return topicEngineWith(t, addr, cfg, lastOffsets(t, addr), nil)
+}
+
+// topicEngineWith applies the messages of the topic up to the offsets of
+// last to one engine, passing over (Engine.Pass) those pass says to.
+func topicEngineWith(t testing.TB, addr string, cfg learner.Config, last []learner.Position, pass func(learner.Position, *learner.Event) bool) *learner.Engine {
 	t.Helper()
 	eng, err := learner.NewEngine(cfg)
 	if err != nil {
 		t.Fatal(err)
 	}
-	for _, hw := range lastOffsets(t, addr) {
+	for _, hw := range last {
 		r := kafka.NewReader(kafka.ReaderConfig{Brokers: []string{addr}, Topic: topic, Partition: int(hw.Partition), MaxWait: 50 * time.Millisecond})
 		ctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
 		for {
@@ -86,9 +93,12 @@ func topicEngine(t testing.TB, addr string, cfg learner.Config) *learner.Engine 
 			}
 			pos := learner.Position{Partition: hw.Partition, Offset: m.Offset}
 			var ev learner.Event
-			if err := learner.DecodeEvent(m.Value, &ev); err != nil {
+			switch err := learner.DecodeEvent(m.Value, &ev); {
+			case err != nil:
 				eng.Skip(pos)
-			} else {
+			case pass != nil && pass(pos, &ev):
+				eng.Pass(pos)
+			default:
 				eng.Apply(pos, &ev)
 			}
 			if m.Offset >= hw.Offset {
@@ -398,33 +408,14 @@ func TestGroupRestore(t *testing.T) {
 	// time is in the skipped range are passed over.
 	f, _ := time.Parse(time.RFC3339, from)
 	u, _ := time.Parse(time.RFC3339, to)
-	ref, _ := learner.NewEngine(testConfig(t, "").Engine)
 	skipped := 0
-	for _, hw := range last {
-		r := kafka.NewReader(kafka.ReaderConfig{Brokers: []string{addr}, Topic: topic, Partition: int(hw.Partition), MaxWait: 50 * time.Millisecond})
-		for {
-			m, err := r.ReadMessage(context.Background())
-			if err != nil {
-				t.Fatal(err)
-			}
-			pos := learner.Position{Partition: hw.Partition, Offset: m.Offset}
-			var ev learner.Event
-			derr := learner.DecodeEvent(m.Value, &ev)
-			switch {
-			case derr == nil && m.Offset > first[hw.Partition].Offset && ev.HasTime && ev.Time >= f.UnixNano() && ev.Time < u.UnixNano():
-				ref.Pass(pos)
-				skipped++
-			case derr != nil:
-				ref.Skip(pos)
-			default:
-				ref.Apply(pos, &ev)
-			}
-			if m.Offset >= hw.Offset {
-				break
-			}
+	ref := topicEngineWith(t, addr, testConfig(t, "").Engine, last, func(pos learner.Position, ev *learner.Event) bool {
+		skip := pos.Offset > first[pos.Partition].Offset && ev.HasTime && ev.Time >= f.UnixNano() && ev.Time < u.UnixNano()
+		if skip {
+			skipped++
 		}
-		r.Close()
-	}
+		return skip
+	})
 	if skipped == 0 {
 		t.Fatal("the skipped range holds no event")
 	}
@@ -459,5 +450,47 @@ func TestGroupRestore(t *testing.T) {
 	// Without a partition, a restore in a group says what to do.
 	if code, b := rs[0].call(t, "POST", fmt.Sprintf("/v1/checkpoints/%d/restore", v), "", []byte(`{"resume":"from_checkpoint"}`)); code != 400 || !bytes.Contains(b, []byte("partition")) {
 		t.Errorf("restore without a partition: %d %s", code, b)
+	}
+}
+
+// TestWholeStateCheckpointCarriesOver: a service that kept a whole-state
+// checkpoint before it was an instance of a consumer group goes on from it:
+// each partition's state is taken from it when the partition is first
+// assigned (the reference passed over the first event of every partition,
+// which a read of the topic from its start would not), and written to the
+// partition's own store.
+func TestWholeStateCheckpointCarriesOver(t *testing.T) {
+	addr := groupBroker(t)
+	lines := roomsScenario(t, 1)
+	produceKeyed(t, addr, lines[:600])
+	cfg := groupConfig(t, addr, "")
+	cfg.CheckpointDir = "" // the default, DATA/checkpoints, where the whole state is
+	firstOfEach := func(pos learner.Position, _ *learner.Event) bool { return pos.Offset == 0 }
+	old := topicEngineWith(t, addr, cfg.Engine, lastOffsets(t, addr), firstOfEach)
+	store, err := checkpoint.OpenStore(checkpoint.StoreConfig{Dir: filepath.Join(cfg.DataDir, "checkpoints")})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := persist.Save(store, old, checkpoint.Shutdown, 0, nil); err != nil {
+		t.Fatal(err)
+	}
+	store.Close()
+	produceKeyed(t, addr, lines[600:])
+	last := lastOffsets(t, addr)
+	r := start(t, cfg)
+	got := r.waitGroup(t, 1, last)
+	sameAsTopic(t, "report after taking the whole-state checkpoint over", got, topicEngineWith(t, addr, cfg.Engine, last, firstOfEach))
+	if got.Skipped != groupParts {
+		t.Errorf("skipped %d, want %d (the first event of each partition, passed over before)", got.Skipped, groupParts)
+	}
+	for p := range int32(groupParts) {
+		s, err := checkpoint.OpenStore(checkpoint.StoreConfig{Dir: persist.PartitionDir(filepath.Join(cfg.DataDir, "checkpoints"), p), ReadOnly: true})
+		if err != nil {
+			t.Fatalf("partition %d: %v", p, err)
+		}
+		if vs, _ := s.Versions(); len(vs) == 0 {
+			t.Errorf("partition %d's store holds no checkpoint", p)
+		}
+		s.Close()
 	}
 }

@@ -100,6 +100,12 @@ func New(cfg Config) (*Service, error) {
 		s.close()
 		return nil, err
 	}
+	if l.group != nil {
+		if err := l.adoptWholeState(filepath.Join(cfg.DataDir, "checkpoints")); err != nil {
+			s.close()
+			return nil, err
+		}
+	}
 	s.http = s.newHTTP()
 	l.publish()
 	return s, nil
