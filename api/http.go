@@ -197,7 +197,9 @@ type PredictAnswer struct {
 // PredictResponse is the body of a predict answer. A one-row request is
 // answered with the row's fields at the top level (the embedded
 // PredictAnswer); a {"rows": […]} request with predictions, one per row in
-// order, and no top-level row fields.
+// order, and no top-level row fields. In a consumer group Checkpoint and
+// Events describe the instance that answered: the key's owner, or, for rows
+// of several owners, the instance asked.
 type PredictResponse struct {
 	Learner     string          `json:"learner"`
 	Checkpoint  uint64          `json:"checkpoint_version"`
@@ -242,7 +244,7 @@ func (s *Service) handlePredict(c echo.Context) error {
 	}
 	snap := s.holdState()
 	defer snap.state.eng.Release()
-	if routed, err := s.routePredict(c, snap, body, name, rows, single); routed {
+	if routed, err := s.routePredict(c, snap, body, name, rows); routed {
 		return err
 	}
 	resp, err := s.predictRows(snap, name, rows, single)

@@ -184,9 +184,9 @@ func unavailable(c echo.Context, format string, args ...any) error {
 // routePredict answers a predict whose rows are not all of partitions this
 // instance owns: rows of other owners are forwarded to them (rows of one
 // owner in one request), and a request all of whose rows belong to one
-// other instance is relayed whole, its answer unchanged. It returns false
-// when every row is this instance's to answer.
-func (s *Service) routePredict(c echo.Context, snap *snapshot, body []byte, name string, rows []json.RawMessage, single bool) (bool, error) {
+// other instance (a one-row request always) is relayed whole, its answer
+// unchanged. It returns false when every row is this instance's to answer.
+func (s *Service) routePredict(c echo.Context, snap *snapshot, body []byte, name string, rows []json.RawMessage) (bool, error) {
 	if s.kafka == nil || c.Request().Header.Get(forwardedHeader) != "" {
 		return false, nil
 	}
@@ -293,7 +293,6 @@ func (s *Service) routePredict(c echo.Context, snap *snapshot, body []byte, name
 			resp.Predictions[i] = pt.resp.Predictions[j]
 		}
 	}
-	_ = single // a one-row request has one owner: relayed whole above
 	return true, c.JSON(http.StatusOK, resp)
 }
 
