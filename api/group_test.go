@@ -12,7 +12,6 @@ import (
 	"time"
 
 	"github.com/segmentio/kafka-go"
-	"github.com/twmb/franz-go/pkg/kfake"
 
 	"tidemark/api/persist"
 	"tidemark/bench/synth"
@@ -30,15 +29,7 @@ import (
 const groupParts = 6
 
 // groupBroker starts a broker with a six-partition topic.
-func groupBroker(t testing.TB) string {
-	t.Helper()
-	c, err := kfake.NewCluster(kfake.NumBrokers(1), kfake.SeedTopics(groupParts, topic))
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(c.Close)
-	return c.ListenAddrs()[0]
-}
+func groupBroker(t testing.TB) string { return brokerWith(t, groupParts) }
 
 // roomsScenario is the demo scenario over twelve rooms, so that every one
 // of six partitions carries keys.

@@ -25,9 +25,12 @@ const topic = "events"
 
 // broker starts a Kafka-protocol broker in process on loopback (kfake) with a
 // three-partition topic.
-func broker(t testing.TB) string {
+func broker(t testing.TB) string { return brokerWith(t, 3) }
+
+// brokerWith starts one with an n-partition topic.
+func brokerWith(t testing.TB, n int) string {
 	t.Helper()
-	c, err := kfake.NewCluster(kfake.NumBrokers(1), kfake.SeedTopics(3, topic))
+	c, err := kfake.NewCluster(kfake.NumBrokers(1), kfake.SeedTopics(int32(n), topic))
 	if err != nil {
 		t.Fatal(err)
 	}

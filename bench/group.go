@@ -34,30 +34,11 @@ func groupScale() string {
 	if quick {
 		days = 17
 	}
-	c, err := kfake.NewCluster(kfake.NumBrokers(1), kfake.SeedTopics(6, "events"))
-	if err != nil {
-		panic(err)
-	}
-	defer c.Close()
-	addr := c.ListenAddrs()[0]
 	var buf bytes.Buffer
 	synth.Write(&buf, synth.Config{Days: days, Seed: 5, Rooms: 60})
 	lines := bytes.Split(bytes.TrimSpace(buf.Bytes()), []byte("\n"))
-	w := &kafka.Writer{Addr: kafka.TCP(addr), Topic: "events", Balancer: kafka.Murmur2Balancer{Consistent: true}, BatchSize: 1000, BatchTimeout: 5 * time.Millisecond}
-	var msgs []kafka.Message
-	var ev learner.Event
-	for _, l := range lines {
-		ev.Key = ""
-		learner.DecodeEvent(l, &ev)
-		msgs = append(msgs, kafka.Message{Key: []byte(ev.Key), Value: l})
-	}
-	if err := w.WriteMessages(context.Background(), msgs...); err != nil {
-		panic(err)
-	}
-	w.Close()
-	k, _ := intake.NewKafka(intake.KafkaConfig{Brokers: []string{addr}, Topic: "events"})
-	k.Refresh(context.Background())
-	last := k.HighWater()
+	addr, last, closeBroker := topicOf(6, lines, true)
+	defer closeBroker()
 	total := int64(len(lines))
 
 	var b strings.Builder
@@ -135,6 +116,41 @@ func groupSettled(svcs []*api.Service) bool {
 		}
 	}
 	return len(owned) == 6
+}
+
+// topicOf starts an in-process broker (kfake) whose topic "events" has
+// the given partitions and holds lines, keyed by their events' keys (the Java
+// client's partitioner) when keyed is set, else spread round-robin; it
+// returns the broker's address, each partition's last offset, and what
+// stops the broker.
+func topicOf(partitions int32, lines [][]byte, keyed bool) (string, []learner.Position, func()) {
+	c, err := kfake.NewCluster(kfake.NumBrokers(1), kfake.SeedTopics(partitions, "events"))
+	if err != nil {
+		panic(err)
+	}
+	addr := c.ListenAddrs()[0]
+	w := &kafka.Writer{Addr: kafka.TCP(addr), Topic: "events", Balancer: &kafka.RoundRobin{}, BatchSize: 1000, BatchTimeout: 5 * time.Millisecond}
+	if keyed {
+		w.Balancer = kafka.Murmur2Balancer{Consistent: true}
+	}
+	var msgs []kafka.Message
+	var ev learner.Event
+	for _, l := range lines {
+		m := kafka.Message{Value: l}
+		if keyed {
+			ev.Key = ""
+			learner.DecodeEvent(l, &ev)
+			m.Key = []byte(ev.Key)
+		}
+		msgs = append(msgs, m)
+	}
+	if err := w.WriteMessages(context.Background(), msgs...); err != nil {
+		panic(err)
+	}
+	w.Close()
+	k, _ := intake.NewKafka(intake.KafkaConfig{Brokers: []string{addr}, Topic: "events"})
+	k.Refresh(context.Background())
+	return addr, k.HighWater(), c.Close
 }
 
 // groupCovers reports whether every position of want is covered by one of

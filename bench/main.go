@@ -34,8 +34,6 @@ import (
 	"text/tabwriter"
 	"time"
 
-	"github.com/segmentio/kafka-go"
-	"github.com/twmb/franz-go/pkg/kfake"
 	"gonum.org/v1/gonum/mat"
 
 	"tidemark/api"
@@ -396,25 +394,9 @@ func kafkaIntake() result {
 	if quick {
 		n = 60_000
 	}
-	c, err := kfake.NewCluster(kfake.NumBrokers(1), kfake.SeedTopics(3, "events"))
-	if err != nil {
-		panic(err)
-	}
-	defer c.Close()
-	addr := c.ListenAddrs()[0]
-	w := &kafka.Writer{Addr: kafka.TCP(addr), Topic: "events", Balancer: &kafka.RoundRobin{}, BatchSize: 1000, BatchTimeout: 5 * time.Millisecond}
 	lines := bytes.Split(bytes.TrimSpace(scenarioLines(n)), []byte("\n"))
-	var msgs []kafka.Message
-	for _, l := range lines {
-		msgs = append(msgs, kafka.Message{Value: l})
-	}
-	if err := w.WriteMessages(context.Background(), msgs...); err != nil {
-		panic(err)
-	}
-	w.Close()
-	k, _ := intake.NewKafka(intake.KafkaConfig{Brokers: []string{addr}, Topic: "events"})
-	k.Refresh(context.Background())
-	last := k.HighWater()
+	addr, last, closeBroker := topicOf(3, lines, false)
+	defer closeBroker()
 
 	got, firstAt, err := intake.Drain(context.Background(), []string{addr}, "events", last)
 	if err != nil {

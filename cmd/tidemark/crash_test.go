@@ -43,6 +43,18 @@ func buildBinary(t *testing.T) string {
 	return bin
 }
 
+// startBroker starts a Kafka-protocol broker in process (kfake) with a topic
+// "events" of n partitions, closed when the test ends.
+func startBroker(t *testing.T, n int) string {
+	t.Helper()
+	c, err := kfake.NewCluster(kfake.NumBrokers(1), kfake.SeedTopics(int32(n), "events"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(c.Close)
+	return c.ListenAddrs()[0]
+}
+
 func freePort(t *testing.T) string {
 	ln, err := net.Listen("tcp", "127.0.0.1:0")
 	if err != nil {
@@ -322,12 +334,7 @@ func TestCrashLoopKafkaIntake(t *testing.T) {
 		t.Skip("builds the binary and kills it 20 times")
 	}
 	bin := buildBinary(t)
-	c, err := kfake.NewCluster(kfake.NumBrokers(1), kfake.SeedTopics(3, "events"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer c.Close()
-	broker := c.ListenAddrs()[0]
+	broker := startBroker(t, 3)
 	w := &kafka.Writer{Addr: kafka.TCP(broker), Topic: "events", Balancer: &kafka.Hash{}, BatchSize: 100, BatchTimeout: 2 * time.Millisecond}
 	defer w.Close()
 	dir, addr := t.TempDir(), freePort(t)

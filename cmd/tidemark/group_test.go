@@ -11,7 +11,6 @@ import (
 	"time"
 
 	"github.com/segmentio/kafka-go"
-	"github.com/twmb/franz-go/pkg/kfake"
 
 	"tidemark/api"
 	"tidemark/api/intake"
@@ -32,12 +31,7 @@ func TestGroupSurvivesAKill(t *testing.T) {
 		t.Skip("builds the binary and runs three instances")
 	}
 	bin := buildBinary(t)
-	c, err := kfake.NewCluster(kfake.NumBrokers(1), kfake.SeedTopics(6, "events"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer c.Close()
-	broker := c.ListenAddrs()[0]
+	broker := startBroker(t, 6)
 	var buf bytes.Buffer
 	synth.Write(&buf, synth.Config{Days: 2, Seed: 4, Rooms: 12})
 	lines := bytes.Split(bytes.TrimSpace(buf.Bytes()), []byte("\n"))
