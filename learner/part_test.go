@@ -46,6 +46,23 @@ func reportJSON(t *testing.T, e *Engine) string {
 	return string(b)
 }
 
+// splitRun applies the partitioned stream to one engine and, split by
+// partition, to three (each two of the six partitions).
+func splitRun(t *testing.T) (*Engine, [3]*Engine) {
+	t.Helper()
+	evs, pos := partitioned(6000)
+	one := mustEngine(t, Config{}, partKinds...)
+	var parts [3]*Engine
+	for i := range parts {
+		parts[i] = mustEngine(t, Config{}, partKinds...)
+	}
+	for i, ev := range evs {
+		one.Apply(pos[i], ev)
+		parts[pos[i].Partition%3].Apply(pos[i], ev)
+	}
+	return one, parts
+}
+
 var partKinds = []string{"knn:k=5,window=200", "rls:forget=0.99", "sliding-rls:window=100", "mean:window=50"}
 
 // TestMergedEnginesAreOneEngine: three engines, each applying only the events
@@ -57,16 +74,7 @@ var partKinds = []string{"knn:k=5,window=200", "rls:forget=0.99", "sliding-rls:w
 // practice for partitioned computations); the learners' numbers themselves
 // are checked against outside references elsewhere (NIST StRD, gonum).
 func TestMergedEnginesAreOneEngine(t *testing.T) {
-	evs, pos := partitioned(6000)
-	one := mustEngine(t, Config{}, partKinds...)
-	var parts [3]*Engine
-	for i := range parts {
-		parts[i] = mustEngine(t, Config{}, partKinds...)
-	}
-	for i, ev := range evs {
-		one.Apply(pos[i], ev)
-		parts[pos[i].Partition%3].Apply(pos[i], ev)
-	}
+	one, parts := splitRun(t)
 	if one.Alarms() == 0 || one.Rejected() == 0 || one.Report(false).Duplicates == 0 {
 		t.Fatalf("the stream should raise alarms, refuse and redeliver events: %d %d %d", one.Alarms(), one.Rejected(), one.Report(false).Duplicates)
 	}
@@ -164,16 +172,7 @@ func lastOf(pos []Position, p int32) int {
 // and the last alarm. The reference is the engine itself, as in
 // TestMergedEnginesAreOneEngine.
 func TestTotalsAddUpToOneEngine(t *testing.T) {
-	evs, pos := partitioned(6000)
-	one := mustEngine(t, Config{}, partKinds...)
-	var parts [3]*Engine
-	for i := range parts {
-		parts[i] = mustEngine(t, Config{}, partKinds...)
-	}
-	for i, ev := range evs {
-		one.Apply(pos[i], ev)
-		parts[pos[i].Partition%3].Apply(pos[i], ev)
-	}
+	one, parts := splitRun(t)
 	var sum Totals
 	for i, e := range []*Engine{parts[2], parts[0], parts[1]} { // any order
 		b, err := json.Marshal(e.Totals())
