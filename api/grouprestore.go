@@ -48,7 +48,7 @@ func (s *Service) routeToOwner(c echo.Context, p int32, req RestoreRequest) (boo
 	if err != nil {
 		return true, err
 	}
-	return true, c.JSONBlob(code, b)
+	return true, relay(c, code, b)
 }
 
 // GroupRestoreRequest is the body of POST /v1/cluster/restore: the moment to

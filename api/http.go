@@ -268,7 +268,7 @@ func (s *Service) predictRows(snap *snapshot, name string, rows []json.RawMessag
 		}
 		if s.kafka != nil {
 			if p, ok := s.partitionOf(ev.Key); ok && !snap.owns(p) {
-				return resp, httpErr(http.StatusServiceUnavailable, "%skey %q is in partition %d, which instance %s does not own (it moved); retry", where, ev.Key, p, snap.group.Instance)
+				return resp, httpErr(http.StatusServiceUnavailable, "%skey %q is in partition %d, which instance %s does not own (it moved); retry shortly", where, ev.Key, p, snap.group.Instance)
 			}
 		}
 		p, err := snap.state.predict(ev.Key, name, &ev)

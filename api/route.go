@@ -222,7 +222,7 @@ func (s *Service) routePredict(c echo.Context, snap *snapshot, body []byte, name
 		if err != nil {
 			return true, err
 		}
-		return true, c.JSONBlob(code, b)
+		return true, relay(c, code, b)
 	}
 	// Rows of several owners: each owner answers its rows; the answer puts
 	// them back in order.
@@ -294,6 +294,15 @@ func (s *Service) routePredict(c echo.Context, snap *snapshot, body []byte, name
 		}
 	}
 	return true, c.JSON(http.StatusOK, resp)
+}
+
+// relay answers with another instance's answer, as it was; a 503 asks the
+// client to retry shortly (the partition was moving).
+func relay(c echo.Context, code int, b []byte) error {
+	if code == http.StatusServiceUnavailable {
+		c.Response().Header().Set("Retry-After", "1")
+	}
+	return c.JSONBlob(code, b)
 }
 
 // ask sends a request to another instance of the group within the forward
