@@ -161,8 +161,13 @@ func (c *Config) Validate() error {
 	if c.ReadyMaxLag < 0 {
 		errs = append(errs, fmt.Errorf("ready max lag %d: want 0 (no bound) or a positive number of events", c.ReadyMaxLag))
 	}
-	if c.BodyLimit < 0 || c.MaxRows < 0 || c.Retain < 0 || c.DeadLetterBytes < 0 {
-		errs = append(errs, errors.New("body limit, max rows, retain and the dead-letter bound must not be negative"))
+	for _, v := range []struct {
+		name string
+		n    int64
+	}{{"body limit", c.BodyLimit}, {"max rows", int64(c.MaxRows)}, {"retain", int64(c.Retain)}, {"dead-letter bound", c.DeadLetterBytes}} {
+		if v.n < 0 {
+			errs = append(errs, fmt.Errorf("%s %d: must not be negative (0 takes the default)", v.name, v.n))
+		}
 	}
 	if c.DefaultLearner != "" {
 		found := false

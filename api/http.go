@@ -101,7 +101,7 @@ func (s *Service) errorHandler(err error, c echo.Context) {
 	} else {
 		s.cfg.Log.Error("request failed", "path", c.Path(), "error", err)
 	}
-	c.JSON(code, map[string]string{"message": msg})
+	c.JSON(code, map[string]string{"message": Plain(msg)})
 }
 
 func httpErr(code int, format string, args ...any) error {

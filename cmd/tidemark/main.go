@@ -10,7 +10,10 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"runtime/debug"
 	"strings"
+
+	"tidemark/api"
 )
 
 // Exit statuses (DESIGN.md): 0 ok, 1 failure, 2 bad usage or input.
@@ -48,23 +51,33 @@ func main() {
 }
 
 func run(args []string, stdout, stderr io.Writer) int {
-	if len(args) == 0 || args[0] == "help" || args[0] == "-h" || args[0] == "--help" {
+	switch {
+	case len(args) == 0:
+		printUsage(stderr)
+		return exitUsage
+	case args[0] == "-h" || args[0] == "--help" || (args[0] == "help" && len(args) == 1):
 		printUsage(stdout)
-		if len(args) == 0 {
-			return exitUsage
-		}
 		return exitOK
+	case args[0] == "--version" || args[0] == "version":
+		fmt.Fprintln(stdout, "tidemark", version())
+		return exitOK
+	case args[0] == "help":
+		args = []string{args[1], "--help"} // help CMD is CMD --help
 	}
 	for _, c := range commands() {
 		if c.name == args[0] {
-			err := c.run(args[1:], stdout, stderr)
+			out := stderr
+			if asksHelp(args[1:]) {
+				out = stdout // help asked for is the answer, not a complaint
+			}
+			err := c.run(args[1:], stdout, out)
 			switch {
 			case err == nil:
 				return exitOK
 			case errors.Is(err, flag.ErrHelp):
 				return exitOK
 			}
-			fmt.Fprintf(stderr, "tidemark %s: %v\n", c.name, err)
+			fmt.Fprintf(stderr, "tidemark %s: %s\n", c.name, api.Plain(err.Error()))
 			var u usageError
 			if errors.As(err, &u) {
 				return exitUsage
@@ -77,9 +90,50 @@ func run(args []string, stdout, stderr io.Writer) int {
 	return exitUsage
 }
 
+// asksHelp reports whether args hold a help flag before any "--".
+func asksHelp(args []string) bool {
+	for _, a := range args {
+		switch a {
+		case "--":
+			return false
+		case "-h", "-help", "--help", "--h":
+			return true
+		}
+	}
+	return false
+}
+
+// version is the module version the binary was built from, or its VCS
+// revision when built from a checkout.
+func version() string {
+	bi, ok := debug.ReadBuildInfo()
+	if !ok {
+		return "(unknown)"
+	}
+	v := bi.Main.Version
+	var rev, modified string
+	for _, s := range bi.Settings {
+		switch s.Key {
+		case "vcs.revision":
+			rev = s.Value
+		case "vcs.modified":
+			if s.Value == "true" {
+				modified = ", modified"
+			}
+		}
+	}
+	if rev != "" {
+		if len(rev) > 12 {
+			rev = rev[:12]
+		}
+		v += " (" + rev + modified + ")"
+	}
+	return v + " " + bi.GoVersion
+}
+
 func printUsage(w io.Writer) {
 	fmt.Fprintln(w, "tidemark learns regression models online from labelled events and scores them test-then-train.")
-	fmt.Fprintln(w, "\nUsage: tidemark COMMAND [flags]   (tidemark COMMAND --help lists a command's flags)\n\nCommands:")
+	fmt.Fprintln(w, "\nUsage: tidemark COMMAND [flags]   (tidemark help COMMAND lists a command's flags; tidemark --version)\n\nCommands:")
 	for _, c := range commands() {
 		fmt.Fprintf(w, "  %-12s %s\n", c.name, c.summary)
 	}
@@ -88,13 +142,18 @@ func printUsage(w io.Writer) {
 // parse parses flags that may come before or after positional arguments and
 // returns the positionals. A flag error is a usage error.
 func parse(fs *flag.FlagSet, args []string) ([]string, error) {
+	out := fs.Output()
+	fs.SetOutput(io.Discard) // an error is returned and printed once, by run
+	defer fs.SetOutput(out)
 	var pos []string
 	for {
 		if err := fs.Parse(args); err != nil {
 			if errors.Is(err, flag.ErrHelp) {
+				fs.SetOutput(out)
+				fs.Usage()
 				return nil, err
 			}
-			return nil, usageError{err}
+			return nil, usagef("%v (tidemark help %s lists the flags)", err, fs.Name())
 		}
 		args = fs.Args()
 		if len(args) == 0 {

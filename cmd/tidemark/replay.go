@@ -9,6 +9,7 @@ import (
 	"io"
 	"os"
 	"os/signal"
+	"path/filepath"
 	"strings"
 
 	"tidemark/api/intake"
@@ -120,6 +121,22 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 	}
 	if *every < 0 {
 		return usagef("--every %d: want a positive number of lines", *every)
+	}
+	if *workers < 0 {
+		return usagef("--workers %d: want 0 (one per CPU) or a positive number of goroutines", *workers)
+	}
+	if *curveEvery < 1 {
+		return usagef("--curve-every %d: want a positive number of events per row", *curveEvery)
+	}
+	// Output files are checked before the work, not after it.
+	for _, out := range []struct{ flag, path string }{{"--curve", *curvePath}, {"--plot", *plotPath}} {
+		if out.path == "" {
+			continue
+		}
+		dir := filepath.Dir(out.path)
+		if st, err := os.Stat(dir); err != nil || !st.IsDir() {
+			return usagef("%s %s: the directory %s does not exist; create it first", out.flag, out.path, dir)
+		}
 	}
 	cfg, err := ef.config()
 	if err != nil {

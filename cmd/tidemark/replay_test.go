@@ -256,7 +256,6 @@ func TestReplayStrictAndUsage(t *testing.T) {
 		{[]string{"replay", "--history", path, "--learner", "mean", "--json"}, 0, ""},
 		{[]string{"replay", "--learner", "mean", "--history", path, "--no-such-flag"}, 2, "no-such-flag"},
 		{[]string{"nonsense"}, 2, "unknown command"},
-		{[]string{"replay", "--help"}, 0, "--history"},
 	}
 	for _, c := range cases {
 		var stdout, stderr bytes.Buffer

@@ -80,8 +80,13 @@ func runServe(args []string, stdout, stderr io.Writer) error {
 	if cfg.TLSCert != "" {
 		scheme = "https"
 	}
-	fmt.Fprintf(stdout, "tidemark serving on %s://%s (learners: %s); Ctrl-C stops with a final checkpoint\n", scheme, cfg.Listen, cfg.Engine.Names())
-	return svc.Run(ctx)
+	done := make(chan error, 1)
+	go func() { done <- svc.Run(ctx) }()
+	// Said once the port is bound (a failure to bind is Run's error).
+	if addr := svc.Addr(); addr != "" {
+		fmt.Fprintf(stdout, "tidemark serving on %s://%s (learners: %s); Ctrl-C stops with a final checkpoint\n", scheme, addr, cfg.Engine.Names())
+	}
+	return <-done
 }
 
 // serveConfig builds the service configuration from flags and the YAML
@@ -204,6 +209,18 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	cfg.MinScored = *minScored
 	if !set["min-scored"] && fc.MinScored != 0 {
 		cfg.MinScored = fc.MinScored
+	}
+	if cfg.MinScored < -1 {
+		problems = append(problems, fmt.Errorf("--min-scored %d: want -1 (no minimum), 0 (the default, %d) or a positive number of events", cfg.MinScored, api.DefaultMinScored))
+	}
+	if cfg.CheckpointEvery < 0 || (set["checkpoint-every"] && cfg.CheckpointEvery == 0) {
+		problems = append(problems, fmt.Errorf("--checkpoint-every %d: want a positive number of events", cfg.CheckpointEvery))
+	}
+	if cfg.CheckpointInterval <= 0 && set["checkpoint-interval"] {
+		problems = append(problems, fmt.Errorf("--checkpoint-interval %v: want a positive duration", cfg.CheckpointInterval))
+	}
+	if cfg.ForwardTimeout <= 0 && set["forward-timeout"] {
+		problems = append(problems, fmt.Errorf("--forward-timeout %v: want a positive duration", cfg.ForwardTimeout))
 	}
 	cfg.Retain, cfg.BodyLimit, cfg.MaxRows, cfg.DefaultLearner = fc.Retain, fc.BodyLimit, fc.MaxRows, fc.DefaultLearner
 
