@@ -7,10 +7,10 @@ import "testing"
 // operator's report quoted, written out here).
 func TestPlainDropsPackagePrefixes(t *testing.T) {
 	for in, want := range map[string]string{
-		"learner: invalid event: line 3: target is missing":         "invalid event: line 3: target is missing",
+		"learner: invalid event: line 3: target is missing":          "invalid event: line 3: target is missing",
 		"checkpoint: corrupt: checkpoint: ckpt-7.tdmk: CRC mismatch": "corrupt: ckpt-7.tdmk: CRC mismatch",
 		"kafka: no brokers given (--kafka-brokers host:port,...)":    "kafka: no brokers given (--kafka-brokers host:port,...)",
-		"a; persist: cannot resume: other learners":                 "a; cannot resume: other learners",
+		"a; persist: cannot resume: other learners":                  "a; cannot resume: other learners",
 		"nothing to drop: learner k=5":                               "nothing to drop: learner k=5",
 	} {
 		if got := Plain(in); got != want {
