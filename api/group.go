@@ -436,7 +436,7 @@ func (l *loop) restoreOne(p int32, v uint64, req RestoreRequest) cmdResult {
 	if mode == ResumeSkip {
 		rps.skip = rule
 	}
-	info, err := persist.SavePartition(ps.store, restored, p, checkpoint.Manual, v, int64(l.group.gen.ID), l.group.instance, serviceSource{Kind: "service", Skip: rps.skip})
+	info, err := persist.SavePartition(ps.store, restored, p, checkpoint.Restore, v, int64(l.group.gen.ID), l.group.instance, serviceSource{Kind: "service", Skip: rps.skip})
 	if err != nil {
 		l.cfg.Log.Error("restore not done: the checkpoint recording it could not be written; the state is unchanged", "partition", p, "version", v, "error", err)
 		return cmdResult{err: cmdErr(ErrNotStored, "restore of checkpoint %d of partition %d not done: the checkpoint recording it could not be written (%v); "+

@@ -391,7 +391,7 @@ func TestGroupRestore(t *testing.T) {
 		t.Fatalf("group restore: %d %s", code, b)
 	}
 	for _, pr := range gr.Partitions {
-		if !pr.Restored || pr.Version == 0 || pr.Checkpoint == nil {
+		if !pr.Restored || pr.Version == 0 || pr.Checkpoint == nil || pr.Checkpoint.Reason != checkpoint.Restore {
 			t.Errorf("partition %d not restored: %+v", pr.Partition, pr)
 		}
 	}

@@ -589,7 +589,7 @@ func (l *loop) restore(v uint64, req RestoreRequest) cmdResult {
 	if mode == ResumeSkip {
 		l.skip = rule
 	}
-	if err := l.checkpoint(checkpoint.Manual, v); err != nil {
+	if err := l.checkpoint(checkpoint.Restore, v); err != nil {
 		l.eng, l.skip, l.lastAlarms, l.curveAt = prevEng, prevSkip, prevAlarms, prevCurveAt
 		l.cfg.Log.Error("restore not done: the checkpoint recording it could not be written; the state is unchanged", "version", v, "error", err)
 		return cmdResult{err: cmdErr(ErrNotStored, "restore of checkpoint %d not done: the checkpoint recording it could not be written (%v); "+

@@ -17,6 +17,7 @@ import (
 	"tidemark/api/intake"
 	"tidemark/api/replay"
 	"tidemark/bench/synth"
+	"tidemark/checkpoint"
 	"tidemark/learner"
 )
 
@@ -212,6 +213,10 @@ func TestRestoreModes(t *testing.T) {
 		code, b := r.call(t, "POST", fmt.Sprintf("/v1/checkpoints/%d/restore", v), "", []byte(body))
 		if code != 200 {
 			t.Fatalf("restore: %d %s", code, b)
+		}
+		var res RestoreResult
+		if json.Unmarshal(b, &res) != nil || res.Checkpoint.Reason != checkpoint.Restore || res.Checkpoint.Parent != v {
+			t.Errorf("the checkpoint recording the restore: %+v, want reason restore and parent %d", res.Checkpoint, v)
 		}
 	}
 

@@ -61,15 +61,17 @@ const (
 	// Handover: a partition's state, written by the instance of a consumer
 	// group that gives the partition up, for its next owner.
 	Handover Reason = "handover"
+	// Restore: the state a restore set, written before it became live.
+	Restore Reason = "restore"
 )
 
 // ParseReason parses a reason name.
 func ParseReason(s string) (Reason, error) {
 	switch r := Reason(s); r {
-	case Periodic, Manual, Shutdown, PreDrift, Final, Handover:
+	case Periodic, Manual, Shutdown, PreDrift, Final, Handover, Restore:
 		return r, nil
 	}
-	return "", fmt.Errorf("checkpoint: unknown reason %q (want periodic, manual, shutdown, pre-drift, final or handover)", s)
+	return "", fmt.Errorf("checkpoint: unknown reason %q (want periodic, manual, shutdown, pre-drift, final, handover or restore)", s)
 }
 
 // Position is a stream position the state covers: the high-water offset of

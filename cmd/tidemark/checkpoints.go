@@ -1,6 +1,7 @@
 package main
 
 import (
+	"bytes"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -48,6 +49,12 @@ func runCheckpoints(args []string, stdout, stderr io.Writer) error {
 	if st, err := os.Stat(dir); err != nil || !st.IsDir() {
 		return fmt.Errorf("%w in %s: the directory does not exist (a service keeps its checkpoints in DATA/checkpoints)", checkpoint.ErrNoStore, dir)
 	}
+	if holdsNoCheckpoint(dir) {
+		// A service's data directory: its checkpoints are in checkpoints/.
+		if st, err := os.Stat(filepath.Join(dir, "checkpoints")); err == nil && st.IsDir() {
+			dir = filepath.Join(dir, "checkpoints")
+		}
+	}
 	if parts, _ := filepath.Glob(filepath.Join(dir, "partition-*")); len(parts) > 0 {
 		// A consumer group's checkpoint directory: a store per partition.
 		if sub != "list" {
@@ -70,7 +77,14 @@ func runCheckpoints(args []string, stdout, stderr io.Writer) error {
 			return err
 		}
 		if *asJSON {
+			if list == nil {
+				list = []checkpoint.Info{} // an empty store lists as []
+			}
 			return writeJSON(stdout, list)
+		}
+		if len(list) == 0 {
+			fmt.Fprintf(stdout, "no checkpoints in %s yet\n", dir)
+			return nil
 		}
 		return writeCheckpointTable(stdout, list)
 	case "show":
@@ -153,6 +167,38 @@ func positions(ps []checkpoint.Position) string {
 	return strings.Join(s, " ")
 }
 
+// holdsNoCheckpoint reports whether dir has no checkpoint file of its own.
+func holdsNoCheckpoint(dir string) bool {
+	files, _ := filepath.Glob(filepath.Join(dir, "ckpt-*"))
+	return len(files) == 0
+}
+
+// sourceText shows a checkpoint's record of its source with the times of a
+// skip rule as RFC 3339 times instead of nanoseconds.
+func sourceText(raw []byte) string {
+	var src map[string]any
+	d := json.NewDecoder(bytes.NewReader(raw))
+	d.UseNumber()
+	if d.Decode(&src) != nil {
+		return string(raw)
+	}
+	if skip, ok := src["skip"].(map[string]any); ok {
+		for _, k := range []string{"from_time", "to_time"} {
+			if n, ok := skip[k].(json.Number); ok {
+				if ns, err := n.Int64(); err == nil {
+					skip[k] = time.Unix(0, ns).UTC().Format(time.RFC3339Nano)
+				}
+			}
+		}
+		delete(skip, "has_time")
+	}
+	b, err := json.Marshal(src)
+	if err != nil {
+		return string(raw)
+	}
+	return string(b)
+}
+
 // listPartitions lists the checkpoints of every partition store of a
 // consumer group's checkpoint directory, partition by partition.
 func listPartitions(w io.Writer, dirs []string, asJSON bool) error {
@@ -207,7 +253,7 @@ func writeCheckpointShow(w io.Writer, c *checkpoint.Checkpoint) error {
 	fmt.Fprintf(w, "events        %d\nposition      %s\nstate_sha256  %s\nconfig_sha256 %s\n", m.Events, positions(m.Positions), m.StateSHA256, m.ConfigSHA256)
 	fmt.Fprintf(w, "bytes         %d (raw %d, ratio %.2f)\npinned        %t\n", c.Info.Bytes, m.RawBytes, float64(m.RawBytes)/float64(max(c.Info.Bytes, 1)), c.Info.Pinned)
 	if len(m.Source) > 0 {
-		fmt.Fprintf(w, "source        %s\n", m.Source)
+		fmt.Fprintf(w, "source        %s\n", sourceText(m.Source))
 	}
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
 	fmt.Fprintln(tw, "\nlearner\tscored\tmae\trmse")

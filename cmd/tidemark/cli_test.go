@@ -7,6 +7,11 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+	"time"
+
+	"tidemark/api/persist"
+	"tidemark/checkpoint"
+	"tidemark/learner"
 )
 
 // TestCommandLineManners: help asked for goes to stdout with status 0;
@@ -61,6 +66,46 @@ func TestCommandLineManners(t *testing.T) {
 		}
 		if !ok {
 			t.Errorf("%v: exit %d (want %d)\nstdout %.300q (want %q)\nstderr %.300q (want %q)", c.args, code, c.code, stdout.String(), c.stdout, stderr.String(), c.stderr)
+		}
+	}
+}
+
+// TestCheckpointsCommandsManners: the checkpoints commands take a data
+// directory as well as its checkpoints/ directory; a missing directory is an
+// error; an empty store lists as [] in JSON and says so in a table; show
+// prints a skip rule's times as RFC 3339 times.
+func TestCheckpointsCommandsManners(t *testing.T) {
+	data := t.TempDir()
+	empty := t.TempDir()
+	store, err := checkpoint.OpenStore(checkpoint.StoreConfig{Dir: filepath.Join(data, "checkpoints")})
+	if err != nil {
+		t.Fatal(err)
+	}
+	eng, _ := learner.NewEngine(crashEngine(t))
+	from := time.Date(2026, 3, 2, 10, 0, 0, 0, time.UTC)
+	src := map[string]any{"kind": "service", "skip": map[string]any{"from_time": from.UnixNano(), "to_time": from.Add(6 * time.Hour).UnixNano(), "has_time": true}}
+	if _, err := persist.Save(store, eng, checkpoint.Restore, 0, src); err != nil {
+		t.Fatal(err)
+	}
+	store.Close()
+	cases := []struct {
+		args   []string
+		code   int
+		stdout string
+		stderr string
+	}{
+		{[]string{"checkpoints", "list", data}, 0, "restore", ""},
+		{[]string{"checkpoints", "list", data, "--json"}, 0, `"reason": "restore"`, ""},
+		{[]string{"checkpoints", "show", data, "1"}, 0, `"skip":{"from_time":"2026-03-02T10:00:00Z","to_time":"2026-03-02T16:00:00Z"}`, ""},
+		{[]string{"checkpoints", "list", empty, "--json"}, 0, "[]", ""},
+		{[]string{"checkpoints", "list", empty}, 0, "no checkpoints", ""},
+		{[]string{"checkpoints", "list", filepath.Join(empty, "nonexistent")}, 1, "", "does not exist"},
+	}
+	for _, c := range cases {
+		var stdout, stderr bytes.Buffer
+		code := run(c.args, &stdout, &stderr)
+		if code != c.code || !strings.Contains(stdout.String(), c.stdout) || !strings.Contains(stderr.String(), c.stderr) {
+			t.Errorf("%v: exit %d (want %d)\nstdout %.400q (want %q)\nstderr %.300q (want %q)", c.args, code, c.code, stdout.String(), c.stdout, stderr.String(), c.stderr)
 		}
 	}
 }
