@@ -201,10 +201,14 @@ type PredictAnswer struct {
 // Events describe the instance that answered: the key's owner, or, for rows
 // of several owners, the instance asked.
 type PredictResponse struct {
-	Learner     string          `json:"learner"`
-	Checkpoint  uint64          `json:"checkpoint_version"`
-	Events      int64           `json:"events_applied"`
-	Predictions []PredictAnswer `json:"predictions,omitempty"`
+	Learner string `json:"learner"`
+	// LearnerChosen says who chose the learner: "request" (it named one)
+	// or "default" (it named none; the service's default learner answered,
+	// --default-learner, else the first configured).
+	LearnerChosen string          `json:"learner_chosen"`
+	Checkpoint    uint64          `json:"checkpoint_version"`
+	Events        int64           `json:"events_applied"`
+	Predictions   []PredictAnswer `json:"predictions,omitempty"`
 	*PredictAnswer
 	Caution string `json:"caution"`
 }
@@ -238,19 +242,20 @@ func (s *Service) handlePredict(c echo.Context) error {
 	if len(rows) > s.cfg.MaxRows {
 		return httpErr(http.StatusRequestEntityTooLarge, "%d rows, more than the limit of %d rows per request (--max-rows); send fewer per request", len(rows), s.cfg.MaxRows)
 	}
-	name := req.Learner
+	name, chosen := req.Learner, "request"
 	if name == "" {
-		name = s.cfg.DefaultLearner
+		name, chosen = s.cfg.DefaultLearner, "default"
 	}
 	snap := s.holdState()
 	defer snap.state.eng.Release()
-	if routed, err := s.routePredict(c, snap, body, name, rows); routed {
+	if routed, err := s.routePredict(c, snap, body, name, chosen, rows); routed {
 		return err
 	}
 	resp, err := s.predictRows(snap, name, rows, single)
 	if err != nil {
 		return err
 	}
+	resp.LearnerChosen = chosen
 	return c.JSON(http.StatusOK, resp)
 }
 

@@ -186,7 +186,7 @@ func unavailable(c echo.Context, format string, args ...any) error {
 // owner in one request), and a request all of whose rows belong to one
 // other instance (a one-row request always) is relayed whole, its answer
 // unchanged. It returns false when every row is this instance's to answer.
-func (s *Service) routePredict(c echo.Context, snap *snapshot, body []byte, name string, rows []json.RawMessage) (bool, error) {
+func (s *Service) routePredict(c echo.Context, snap *snapshot, body []byte, name, chosen string, rows []json.RawMessage) (bool, error) {
 	if s.kafka == nil || c.Request().Header.Get(forwardedHeader) != "" {
 		return false, nil
 	}
@@ -265,7 +265,7 @@ func (s *Service) routePredict(c echo.Context, snap *snapshot, body []byte, name
 			}
 		}()
 	}
-	resp := PredictResponse{Learner: name, Checkpoint: snap.state.ckVersion, Events: snap.state.applied, Caution: caution,
+	resp := PredictResponse{Learner: name, LearnerChosen: chosen, Checkpoint: snap.state.ckVersion, Events: snap.state.applied, Caution: caution,
 		Predictions: make([]PredictAnswer, len(rows))}
 	if len(local) > 0 {
 		sub := make([]json.RawMessage, len(local))

@@ -599,3 +599,31 @@ func TestServeFromHistoryRejectsLongLineByPosition(t *testing.T) {
 		t.Errorf("dead letters: %.300s; want line 11 named as too long", b)
 	}
 }
+
+// TestPredictSaysWhichLearner: a predict that names no learner is answered
+// by the service's default learner (the first configured, or the one set),
+// and the answer says so; one that names a learner says it was asked.
+func TestPredictSaysWhichLearner(t *testing.T) {
+	for _, def := range []string{"", serviceSpecs[1]} {
+		cfg := testConfig(t, t.TempDir())
+		cfg.DefaultLearner = def
+		r := start(t, cfg)
+		r.post(t, "", scenario(t, 1)[:400])
+		r.waitCovered(t, 400)
+		want := def
+		if want == "" {
+			want = serviceSpecs[0]
+		}
+		row := `{"key":"room-a","time":"2026-03-01T20:00:00Z","features":{"outdoor_c":6.5,"door_min":0,"shift":"night"}}`
+		for _, c := range []struct{ body, learner, chosen string }{
+			{row, want, "default"},
+			{`{"learner":"mean:window=50","rows":[` + row + `]}`, "mean:window=50", "request"},
+		} {
+			code, b := r.call(t, "POST", "/v1/predict", "", []byte(c.body))
+			var resp PredictResponse
+			if code != 200 || json.Unmarshal(b, &resp) != nil || resp.Learner != c.learner || resp.LearnerChosen != c.chosen {
+				t.Errorf("default %q, body %s: %d %s; want learner %q chosen %q", def, c.body, code, b, c.learner, c.chosen)
+			}
+		}
+	}
+}

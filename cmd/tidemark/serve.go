@@ -106,6 +106,7 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	readyMaxLag := fs.Int64("ready-max-lag", 0, "report not ready while more than `N` events wait to be applied (0: no bound)")
 	every := fs.Int64("checkpoint-every", api.DefaultCheckpointEvery, "events between periodic checkpoints")
 	interval := fs.Duration("checkpoint-interval", api.DefaultCheckpointInterval, "also checkpoint this long after the last one")
+	defaultLearner := fs.String("default-learner", "", "the learner `NAME` predict asks when a request names none (default: the first --learner)")
 	minScored := fs.Int64("min-scored", api.DefaultMinScored, "events a learner must be scored on for a key before predict answers (-1: none)")
 	history := fs.String("history", "", "learn from this history `FILE` (NDJSON, plain, .gz or .zst; position = line number) instead of the journal")
 	brokers := fs.String("kafka-brokers", "", "Kafka bootstrap brokers host:port,... (learn from Kafka instead of the journal)")
@@ -222,7 +223,8 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	if cfg.ForwardTimeout <= 0 && set["forward-timeout"] {
 		problems = append(problems, fmt.Errorf("--forward-timeout %v: want a positive duration", cfg.ForwardTimeout))
 	}
-	cfg.Retain, cfg.BodyLimit, cfg.MaxRows, cfg.DefaultLearner = fc.Retain, fc.BodyLimit, fc.MaxRows, fc.DefaultLearner
+	cfg.Retain, cfg.BodyLimit, cfg.MaxRows = fc.Retain, fc.BodyLimit, fc.MaxRows
+	cfg.DefaultLearner = pick("default-learner", *defaultLearner, fc.DefaultLearner)
 
 	if !set["learner"] {
 		ef.learners = fc.Learners
