@@ -132,7 +132,7 @@ func (d *deadLetters) add(pos learner.Position, reason error, data []byte) {
 	if len(data) > maxDeadPayload {
 		data = data[:maxDeadPayload]
 	}
-	b := appendDeadLetter(d.buf[:0], pos, reason.Error(), data)
+	b := appendDeadLetter(d.buf[:0], pos, Plain(reason.Error()), data)
 	d.buf = b
 	if d.size > 0 && d.size+int64(len(b)) > d.limit {
 		d.rotate()

@@ -415,6 +415,11 @@ func (l *loop) restoreOne(p int32, v uint64, req RestoreRequest) cmdResult {
 	if err != nil {
 		return cmdResult{err: cmdErr(ErrConflict, "checkpoint %d of partition %d fails its checks and cannot be restored: %v", v, p, err).withCause(err)}
 	}
+	list, _ := ps.store.List()
+	if err := skipReaches(st.Manifest, rule, list); err != nil {
+		st.Close()
+		return cmdResult{err: err}
+	}
 	restored, err := learner.NewEngine(l.eng.Config())
 	if err != nil {
 		st.Close()

@@ -364,7 +364,7 @@ func (s *Service) handleEvents(c echo.Context) error {
 				reason = rj.Kind.String()
 			}
 			s.metrics.refused.WithLabelValues(reason).Inc()
-			resp.Rejected = append(resp.Rejected, RejectedEvent{Index: i, Line: l.line, Reason: err.Error()})
+			resp.Rejected = append(resp.Rejected, RejectedEvent{Index: i, Line: l.line, Reason: Plain(err.Error())})
 			continue
 		}
 		ok = append(ok, l.data)

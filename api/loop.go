@@ -568,6 +568,11 @@ func (l *loop) restore(v uint64, req RestoreRequest) cmdResult {
 	if err != nil {
 		return failsChecks(err)
 	}
+	list, _ := l.store.List()
+	if err := skipReaches(st.Manifest, rule, list); err != nil {
+		st.Close()
+		return cmdResult{err: err}
+	}
 	// The restored state is built beside the live one and becomes live only
 	// once the checkpoint recording it is durable: a restore happens as a
 	// whole or not at all.

@@ -154,3 +154,54 @@ type RestoreResult struct {
 	Checkpoint checkpoint.Info    `json:"checkpoint"` // taken at once, recording the restore
 	Position   []learner.Position `json:"position"`
 }
+
+// skipReaches refuses a skip that cannot leave out what it names because
+// checkpoint m's state already holds some of it: a time range that begins at
+// or before the latest event time m applied, or a position range that begins
+// at or before m's position in its partition. The answer names what the
+// operator probably meant: the newest checkpoint of list from before the
+// range.
+func skipReaches(m checkpoint.Manifest, rule *skipRule, list []checkpoint.Info) error {
+	if rule == nil {
+		return nil
+	}
+	if rule.HasTime && m.EventTimes != nil && rule.FromTime <= m.EventTimes.Last.UnixNano() {
+		from := time.Unix(0, rule.FromTime).UTC()
+		var best *checkpoint.Info
+		for i, in := range list {
+			if in.Error == "" && in.EventTimes != nil && in.EventTimes.Last.Before(from) && (best == nil || in.Version > best.Version) {
+				best = &list[i]
+			}
+		}
+		msg := fmt.Sprintf("checkpoint %d already holds events up to %s, at or after skip_from_time %s: the range's events in its state cannot be skipped",
+			m.Version, m.EventTimes.Last.Format(time.RFC3339), from.Format(time.RFC3339))
+		if best != nil {
+			msg += fmt.Sprintf("; restore a checkpoint from before the range — version %d is the newest (its events end at %s)", best.Version, best.EventTimes.Last.Format(time.RFC3339))
+		} else {
+			msg += "; no checkpoint kept ends before the range"
+		}
+		return cmdErr(ErrConflict, "%s", msg)
+	}
+	for _, pr := range rule.Positions {
+		for _, p := range m.Positions {
+			if p.Partition != pr.Partition || pr.From > p.Offset {
+				continue
+			}
+			var best *checkpoint.Info
+			for i, in := range list {
+				for _, q := range in.Position {
+					if in.Error == "" && q.Partition == pr.Partition && q.Offset < pr.From && (best == nil || in.Version > best.Version) {
+						best = &list[i]
+					}
+				}
+			}
+			msg := fmt.Sprintf("checkpoint %d already holds partition %d up to offset %d, at or after the skip range's start %d: what it holds cannot be skipped",
+				m.Version, p.Partition, p.Offset, pr.From)
+			if best != nil {
+				msg += fmt.Sprintf("; restore a checkpoint from before the range — version %d is the newest", best.Version)
+			}
+			return cmdErr(ErrConflict, "%s", msg)
+		}
+	}
+	return nil
+}

@@ -627,3 +627,62 @@ func TestPredictSaysWhichLearner(t *testing.T) {
 		}
 	}
 }
+
+// TestRestoreRefusesASkipItsCheckpointHolds: a skip whose range begins at
+// or before the latest event the checkpoint applied cannot leave those
+// events out; it is refused (409), naming the newest checkpoint from before
+// the range, which is then accepted. The same for a position range. The
+// listing says what each checkpoint covers in event time.
+func TestRestoreRefusesASkipItsCheckpointHolds(t *testing.T) {
+	lines := scenario(t, 2)
+	r := start(t, testConfig(t, t.TempDir()))
+	posted := 0
+	take := func(upTo int) checkpoint.Info {
+		r.post(t, "", lines[posted:upTo])
+		posted = upTo
+		r.waitCovered(t, int64(upTo))
+		code, b := r.call(t, "POST", "/v1/checkpoints", "", nil)
+		var info checkpoint.Info
+		if code != 201 || json.Unmarshal(b, &info) != nil {
+			t.Fatalf("POST /v1/checkpoints: %d %s", code, b)
+		}
+		return info
+	}
+	before := take(600) // 200 readings of each room: up to 2026-03-01T16:35
+	after := take(1200)
+	// The demo scenario's readings are every five minutes per room from
+	// 2026-03-01T00:00 (bench/synth): the 600th line is at 16:35.
+	if before.EventTimes == nil || before.EventTimes.First != synthStart() || before.EventTimes.Last.Format(time.RFC3339) != "2026-03-01T16:35:00Z" {
+		t.Errorf("checkpoint %d covers %+v, want 2026-03-01T00:00 to 16:35", before.Version, before.EventTimes)
+	}
+	// What the refusal should name: the newest checkpoint listed whose
+	// events end before the range (periodic ones were taken too).
+	from := time.Date(2026, 3, 1, 18, 0, 0, 0, time.UTC)
+	code, b := r.call(t, "GET", "/v1/checkpoints", "", nil)
+	var list []checkpoint.Info
+	json.Unmarshal(b, &list)
+	var meant uint64
+	for _, in := range list {
+		if in.EventTimes != nil && in.EventTimes.Last.Before(from) && in.Version > meant {
+			meant = in.Version
+		}
+	}
+	if meant < before.Version {
+		t.Fatalf("listing %s: no checkpoint before the range", b)
+	}
+	skip := `{"resume":"skip","skip_from_time":"2026-03-01T18:00:00Z","skip_to_time":"2026-03-01T20:00:00Z"}`
+	code, b = r.call(t, "POST", fmt.Sprintf("/v1/checkpoints/%d/restore", after.Version), "", []byte(skip))
+	if code != 409 || !strings.Contains(string(b), fmt.Sprintf("version %d is the newest", meant)) {
+		t.Errorf("a skip inside the checkpoint's events: %d %s, want 409 naming version %d", code, b, meant)
+	}
+	pos := `{"resume":"skip","skip_positions":[{"partition":0,"from":700,"to":800}]}`
+	code, b = r.call(t, "POST", fmt.Sprintf("/v1/checkpoints/%d/restore", after.Version), "", []byte(pos))
+	if code != 409 || !strings.Contains(string(b), "version") || !strings.Contains(string(b), "offset 1200") {
+		t.Errorf("a skip of positions the checkpoint holds: %d %s, want 409 naming an earlier version", code, b)
+	}
+	if code, b := r.call(t, "POST", fmt.Sprintf("/v1/checkpoints/%d/restore", meant), "", []byte(skip)); code != 200 {
+		t.Errorf("the skip from the checkpoint before the range: %d %s", code, b)
+	}
+}
+
+func synthStart() time.Time { return time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC) }

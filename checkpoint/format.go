@@ -92,12 +92,16 @@ type Metric struct {
 // Manifest describes a checkpoint. Version and StateSHA256, RawBytes are set
 // by the Store when it writes; the caller fills in the rest.
 type Manifest struct {
-	Version      uint64          `json:"version"`
-	Parent       uint64          `json:"parent"` // the version this state descends from; 0 for none
-	Created      time.Time       `json:"created"`
-	Reason       Reason          `json:"reason"`
-	Positions    []Position      `json:"positions"`
-	Events       int64           `json:"events"` // events the state has applied
+	Version   uint64     `json:"version"`
+	Parent    uint64     `json:"parent"` // the version this state descends from; 0 for none
+	Created   time.Time  `json:"created"`
+	Reason    Reason     `json:"reason"`
+	Positions []Position `json:"positions"`
+	Events    int64      `json:"events"` // events the state has applied
+	// EventTimes is the range of event times of the events the state has
+	// applied (nil when none had a time, or for a state written before it
+	// was recorded).
+	EventTimes   *TimeRange      `json:"event_times,omitempty"`
 	ConfigSHA256 string          `json:"config_sha256"`
 	StateSHA256  string          `json:"state_sha256"`
 	RawBytes     int64           `json:"raw_bytes"`
@@ -111,6 +115,12 @@ type Manifest struct {
 	// newest again (Store.WriteState refuses, ErrFenced).
 	Generation int64  `json:"generation,omitempty"`
 	Owner      string `json:"owner,omitempty"`
+}
+
+// TimeRange is a range of event times, both ends included.
+type TimeRange struct {
+	First time.Time `json:"first"`
+	Last  time.Time `json:"last"`
 }
 
 // generationBand is the first version of generation g's band.

@@ -78,6 +78,7 @@ type Info struct {
 	Created     time.Time  `json:"created"`
 	Position    []Position `json:"position"`
 	Events      int64      `json:"events"`
+	EventTimes  *TimeRange `json:"event_times,omitempty"` // see Manifest.EventTimes
 	StateSHA256 string     `json:"state_sha256"`
 	Bytes       int64      `json:"bytes"`
 	RawBytes    int64      `json:"raw_bytes"`
@@ -330,7 +331,7 @@ func (s *Store) retain(vs []uint64, pins map[uint64]bool) {
 func info(m *Manifest, name string, size int64, pinned bool) Info {
 	return Info{Version: m.Version, Parent: m.Parent, Created: m.Created, Position: m.Positions, Events: m.Events,
 		StateSHA256: m.StateSHA256, Bytes: size, RawBytes: m.RawBytes, Reason: m.Reason, Pinned: pinned,
-		Generation: m.Generation, Owner: m.Owner, File: name}
+		Generation: m.Generation, Owner: m.Owner, EventTimes: m.EventTimes, File: name}
 }
 
 // Load reads and verifies version v completely. A file that fails any check

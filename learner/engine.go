@@ -416,6 +416,9 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 	}
 	e.applied++
 	p.applied++
+	if ev.HasTime {
+		p.times.add(ev.Time)
+	}
 	return true, nil
 }
 

@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"hash/maphash"
 	"maps"
+	"slices"
 )
 
 // part is what the engine keeps of one stream partition besides its keys:
@@ -13,8 +14,31 @@ import (
 type part struct {
 	hwm int64
 	counts
-	learnerAlarms []int64  // per learner
-	last          []*Alarm // per learner, its latest alarm here (nil: none)
+	times         timeRange // event times of the events applied
+	learnerAlarms []int64   // per learner
+	last          []*Alarm  // per learner, its latest alarm here (nil: none)
+}
+
+// timeRange is the earliest and latest event time (Unix ns) of the events
+// applied; set reports whether any had a time.
+type timeRange struct {
+	first, last int64
+	set         bool
+}
+
+func (t *timeRange) add(ns int64) {
+	if !t.set {
+		t.first, t.last, t.set = ns, ns, true
+		return
+	}
+	t.first, t.last = min(t.first, ns), max(t.last, ns)
+}
+
+func (t *timeRange) join(o timeRange) {
+	if o.set {
+		t.add(o.first)
+		t.add(o.last)
+	}
 }
 
 // counts are an engine's or a partition's event counters.
@@ -165,6 +189,19 @@ func (e *Engine) countPart(pt *part, sign int64) {
 			}
 		}
 	}
+}
+
+// EventTimes returns the earliest and latest event time (Unix ns) of the
+// events the engine's state has applied, and whether any had a time; with
+// partitions given, of those partitions only.
+func (e *Engine) EventTimes(partitions ...int32) (first, last int64, ok bool) {
+	var t timeRange
+	for p, pt := range e.parts {
+		if len(partitions) == 0 || slices.Contains(partitions, p) {
+			t.join(pt.times)
+		}
+	}
+	return t.first, t.last, t.set
 }
 
 // PartitionCounts returns partition p's events applied and rejected, and

@@ -43,8 +43,10 @@ const (
 	// bounds, and counts late events per windowed learner; older moments are
 	// rebuilt from their windows on decode. 6 keeps the counters and drift
 	// alarms per partition too, so that a partition's state can move whole
-	// (Split, Merge); before 6 they are given to the lowest partition.
-	stateVersion = 6
+	// (Split, Merge); before 6 they are given to the lowest partition. 7
+	// keeps each partition's range of event times applied (for checkpoints
+	// to say what they cover); before 7 it is unknown.
+	stateVersion = 7
 	maxNames     = MaxFeatures
 	maxSections  = 1 << 20
 )
@@ -106,7 +108,13 @@ func (e *Engine) EncodePartitions(sink SectionSink, ps []int32) error {
 		w.b = append(w.b[:0], partitionMagic...)
 		w.u32(uint32(p.Partition))
 		w.i64(p.Offset)
-		e.parts[p.Partition].encode(w)
+		pt := e.parts[p.Partition]
+		pt.encode(w)
+		w.bool(pt.times.set)
+		if pt.times.set {
+			w.i64(pt.times.first)
+			w.i64(pt.times.last)
+		}
 		w.int(len(keys))
 		for i, ks := range keys {
 			w.sink += touchAhead(keys, i)
@@ -432,6 +440,12 @@ func (e *Engine) decodePartition(sp int32, r *decoder) error {
 	pt.hwm = r.i64()
 	if r.ver >= 6 {
 		pt.decode(r)
+	}
+	if r.ver >= 7 {
+		pt.times.set = r.bool()
+		if pt.times.set {
+			pt.times.first, pt.times.last = r.i64(), r.i64()
+		}
 	}
 	nk := r.count(e.cfg.MaxKeys-e.keys.len(), 8)
 	if nk > 0 && e.schema == nil {

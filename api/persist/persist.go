@@ -14,6 +14,7 @@ import (
 	"fmt"
 	"path/filepath"
 	"slices"
+	"time"
 
 	"tidemark/checkpoint"
 	"tidemark/learner"
@@ -28,7 +29,7 @@ var ErrResume = errors.New("persist: cannot resume")
 // events applied, the configuration digest and each learner's overall
 // figures. The store assigns the version and the creation time.
 func Manifest(eng *learner.Engine, reason checkpoint.Reason, parent uint64) checkpoint.Manifest {
-	m := checkpoint.Manifest{Parent: parent, Reason: reason, Events: eng.Applied(), ConfigSHA256: eng.Config().Digest()}
+	m := checkpoint.Manifest{Parent: parent, Reason: reason, Events: eng.Applied(), ConfigSHA256: eng.Config().Digest(), EventTimes: eventTimes(eng)}
 	for _, p := range eng.Positions() {
 		m.Positions = append(m.Positions, checkpoint.Position{Partition: p.Partition, Offset: p.Offset})
 	}
@@ -36,6 +37,16 @@ func Manifest(eng *learner.Engine, reason checkpoint.Reason, parent uint64) chec
 		m.Metrics = append(m.Metrics, checkpoint.Metric{Name: l.Name, Scored: l.Scored, MAE: l.MAE, RMSE: l.RMSE})
 	}
 	return m
+}
+
+// eventTimes is the range of event times the engine (or the given
+// partitions of it) applied, nil when unknown.
+func eventTimes(eng *learner.Engine, partitions ...int32) *checkpoint.TimeRange {
+	first, last, ok := eng.EventTimes(partitions...)
+	if !ok {
+		return nil
+	}
+	return &checkpoint.TimeRange{First: time.Unix(0, first).UTC(), Last: time.Unix(0, last).UTC()}
 }
 
 // Save writes the engine's state (a live engine or a published copy) to
@@ -181,7 +192,8 @@ func SavePartition(store *checkpoint.Store, eng *learner.Engine, p int32, reason
 	if !ok {
 		return checkpoint.Info{}, fmt.Errorf("persist: the engine holds no partition %d", p)
 	}
-	m := checkpoint.Manifest{Reason: reason, Parent: parent, Events: applied, ConfigSHA256: eng.Config().Digest(), Generation: generation, Owner: owner}
+	m := checkpoint.Manifest{Reason: reason, Parent: parent, Events: applied, ConfigSHA256: eng.Config().Digest(), Generation: generation, Owner: owner,
+		EventTimes: eventTimes(eng, p)}
 	if source != nil {
 		b, err := json.Marshal(source)
 		if err != nil {

@@ -167,6 +167,14 @@ func positions(ps []checkpoint.Position) string {
 	return strings.Join(s, " ")
 }
 
+// timesText shows the range of event times a checkpoint covers.
+func timesText(r *checkpoint.TimeRange) string {
+	if r == nil {
+		return "–"
+	}
+	return r.First.Format(time.RFC3339) + " … " + r.Last.Format(time.RFC3339)
+}
+
 // holdsNoCheckpoint reports whether dir has no checkpoint file of its own.
 func holdsNoCheckpoint(dir string) bool {
 	files, _ := filepath.Glob(filepath.Join(dir, "ckpt-*"))
@@ -231,7 +239,7 @@ func listPartitions(w io.Writer, dirs []string, asJSON bool) error {
 
 func writeCheckpointTable(w io.Writer, list []checkpoint.Info) error {
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
-	fmt.Fprintln(tw, "version\tcreated\treason\tevents\tposition\tbytes\traw bytes\tpinned\tstate_sha256")
+	fmt.Fprintln(tw, "version\tcreated\treason\tevents\tevent times\tposition\tbytes\traw bytes\tpinned\tstate_sha256")
 	for _, in := range list {
 		if in.Error != "" {
 			fmt.Fprintf(tw, "%d\tCORRUPT: %s\n", in.Version, in.Error)
@@ -241,8 +249,8 @@ func writeCheckpointTable(w io.Writer, list []checkpoint.Info) error {
 		if in.Pinned {
 			pin = "pinned"
 		}
-		fmt.Fprintf(tw, "%d\t%s\t%s\t%d\t%s\t%d\t%d\t%s\t%s\n", in.Version, in.Created.Format(time.RFC3339), in.Reason,
-			in.Events, positions(in.Position), in.Bytes, in.RawBytes, pin, in.StateSHA256[:16])
+		fmt.Fprintf(tw, "%d\t%s\t%s\t%d\t%s\t%s\t%d\t%d\t%s\t%s\n", in.Version, in.Created.Format(time.RFC3339), in.Reason,
+			in.Events, timesText(in.EventTimes), positions(in.Position), in.Bytes, in.RawBytes, pin, in.StateSHA256[:16])
 	}
 	return tw.Flush()
 }
@@ -250,7 +258,7 @@ func writeCheckpointTable(w io.Writer, list []checkpoint.Info) error {
 func writeCheckpointShow(w io.Writer, c *checkpoint.Checkpoint) error {
 	m := c.Manifest
 	fmt.Fprintf(w, "version       %d (parent %d)\nfile          %s\ncreated       %s\nreason        %s\n", m.Version, m.Parent, c.Info.File, m.Created.Format(time.RFC3339), m.Reason)
-	fmt.Fprintf(w, "events        %d\nposition      %s\nstate_sha256  %s\nconfig_sha256 %s\n", m.Events, positions(m.Positions), m.StateSHA256, m.ConfigSHA256)
+	fmt.Fprintf(w, "events        %d\nevent times   %s\nposition      %s\nstate_sha256  %s\nconfig_sha256 %s\n", m.Events, timesText(m.EventTimes), positions(m.Positions), m.StateSHA256, m.ConfigSHA256)
 	fmt.Fprintf(w, "bytes         %d (raw %d, ratio %.2f)\npinned        %t\n", c.Info.Bytes, m.RawBytes, float64(m.RawBytes)/float64(max(c.Info.Bytes, 1)), c.Info.Pinned)
 	if len(m.Source) > 0 {
 		fmt.Fprintf(w, "source        %s\n", sourceText(m.Source))

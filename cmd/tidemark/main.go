@@ -182,3 +182,14 @@ func newFlagSet(name, usage string, stderr io.Writer) *flag.FlagSet {
 	}
 	return fs
 }
+
+// plainWriter writes each message without the package prefixes of the
+// errors in it (api.Plain): what a person reads on stderr.
+type plainWriter struct{ w io.Writer }
+
+func (p plainWriter) Write(b []byte) (int, error) {
+	if _, err := io.WriteString(p.w, api.Plain(string(b))); err != nil {
+		return 0, err
+	}
+	return len(b), nil
+}

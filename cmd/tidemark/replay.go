@@ -160,7 +160,7 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 	}
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
 	defer stop()
-	rc := replay.ReplayConfig{Strict: *strict, Log: stderr, Checkpoints: store, Every: *every, Resume: *resume, Sequential: *sequential}
+	rc := replay.ReplayConfig{Strict: *strict, Log: plainWriter{stderr}, Checkpoints: store, Every: *every, Resume: *resume, Sequential: *sequential}
 	var rec *chart.Recorder
 	if *curvePath != "" || *plotPath != "" {
 		rec = chart.NewRecorder(eng, *curveEvery, *plotKey)

@@ -214,7 +214,7 @@ func TestReplayJSONMatchesReference(t *testing.T) {
 				t.Errorf("events %d rejected %d, want %d and %d", out.Events, out.Rejected, events, len(badLines))
 			}
 			for _, n := range badLines {
-				if want := fmt.Sprintf("line %d: ", n); !strings.Contains(stderr.String(), want+"learner: invalid event: target is missing") {
+				if want := fmt.Sprintf("line %d: ", n); !strings.Contains(stderr.String(), want+"invalid event: target is missing") {
 					t.Errorf("stderr does not name %q:\n%s", want, stderr.String())
 				}
 			}
