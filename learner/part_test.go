@@ -202,3 +202,49 @@ func TestTotalsAddUpToOneEngine(t *testing.T) {
 		t.Errorf("added totals report\n%s\nwant\n%s", got, want)
 	}
 }
+
+// TestEventTimesFollowThePartitions: the range of event times an engine
+// applied is the minimum and maximum over the events Apply accepted (written
+// out here from Apply's answers), per partition and overall; it survives
+// encoding and moves with Split and Merge.
+func TestEventTimesFollowThePartitions(t *testing.T) {
+	evs, pos := partitioned(3000)
+	e := mustEngine(t, Config{}, partKinds...)
+	type rng struct{ lo, hi int64 }
+	want := map[int32]*rng{}
+	all := &rng{lo: 1 << 62, hi: -1 << 62}
+	for i, ev := range evs {
+		if ok, _ := e.Apply(pos[i], ev); ok {
+			r := want[pos[i].Partition]
+			if r == nil {
+				r = &rng{lo: ev.Time, hi: ev.Time}
+				want[pos[i].Partition] = r
+			}
+			r.lo, r.hi = min(r.lo, ev.Time), max(r.hi, ev.Time)
+			all.lo, all.hi = min(all.lo, ev.Time), max(all.hi, ev.Time)
+		}
+	}
+	check := func(what string, e *Engine) {
+		t.Helper()
+		if lo, hi, ok := e.EventTimes(); !ok || lo != all.lo || hi != all.hi {
+			t.Errorf("%s: event times %d..%d (%v), want %d..%d", what, lo, hi, ok, all.lo, all.hi)
+		}
+		for p, r := range want {
+			if lo, hi, ok := e.EventTimes(p); !ok || lo != r.lo || hi != r.hi {
+				t.Errorf("%s: partition %d: %d..%d, want %d..%d", what, p, lo, hi, r.lo, r.hi)
+			}
+		}
+	}
+	check("applied", e)
+	d := mustEngine(t, Config{}, partKinds...)
+	if err := d.Decode(e.Encode(nil)); err != nil {
+		t.Fatal(err)
+	}
+	check("decoded", d)
+	moved := d.Split([]int32{1, 4})
+	if lo, hi, _ := moved.EventTimes(); lo != min(want[1].lo, want[4].lo) || hi != max(want[1].hi, want[4].hi) {
+		t.Errorf("split off: %d..%d", lo, hi)
+	}
+	d.Merge(moved)
+	check("merged back", d)
+}
