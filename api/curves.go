@@ -2,6 +2,7 @@ package api
 
 import (
 	"sync"
+	"time"
 
 	"tidemark/learner"
 	"tidemark/window"
@@ -12,8 +13,12 @@ import (
 type CurvePoint struct {
 	Position learner.Position `json:"position"`
 	Events   int64            `json:"events"`
-	MAE      *float64         `json:"mae"`
-	RMSE     *float64         `json:"rmse"`
+	// Time is the latest event time the state had applied (absent when no
+	// event had a time), Rejected the events refused so far.
+	Time     *time.Time `json:"time,omitempty"`
+	Rejected int64      `json:"rejected"`
+	MAE      *float64   `json:"mae"`
+	RMSE     *float64   `json:"rmse"`
 }
 
 // curves keeps the last points of every learner's recent error, sampled
@@ -39,11 +44,86 @@ func (c *curves) add(eng *learner.Engine) {
 	if ps := eng.Positions(); len(ps) > 0 {
 		pos = ps[len(ps)-1]
 	}
+	var at *time.Time
+	if _, last, ok := eng.EventTimes(); ok {
+		t := time.Unix(0, last).UTC()
+		at = &t
+	}
 	c.mu.Lock()
 	defer c.mu.Unlock()
 	for i := range c.points {
 		_, mae, rmse := eng.Recent(i)
-		c.points[i].Push(CurvePoint{Position: pos, Events: eng.Applied(), MAE: mae, RMSE: rmse})
+		c.points[i].Push(CurvePoint{Position: pos, Events: eng.Applied(), Time: at, Rejected: eng.Rejected(), MAE: mae, RMSE: rmse})
+	}
+}
+
+// notes keeps the latest drift alarms and rejections for the page, newest
+// last; like the curves, in memory only.
+type notes struct {
+	mu         sync.Mutex
+	alarms     *window.Ring[AlarmNote]
+	rejections *window.Ring[RejectionNote]
+}
+
+// AlarmNote is a drift alarm: which learner, for which key, where and when.
+type AlarmNote struct {
+	Learner  string           `json:"learner"`
+	Key      string           `json:"key"`
+	Position learner.Position `json:"position"`
+	Time     *time.Time       `json:"time,omitempty"` // the event's time
+}
+
+// RejectionNote is an event of the stream the engine refused.
+type RejectionNote struct {
+	Position learner.Position `json:"position"`
+	Reason   string           `json:"reason"`
+	At       time.Time        `json:"at"` // when it was refused
+}
+
+func newNotes() *notes {
+	return &notes{alarms: window.NewRing[AlarmNote](200), rejections: window.NewRing[RejectionNote](20)}
+}
+
+func (n *notes) alarm(a AlarmNote) {
+	n.mu.Lock()
+	defer n.mu.Unlock()
+	n.alarms.Push(a)
+}
+
+func (n *notes) rejected(r RejectionNote) {
+	n.mu.Lock()
+	defer n.mu.Unlock()
+	n.rejections.Push(r)
+}
+
+// get returns copies, oldest first.
+func (n *notes) get() ([]AlarmNote, []RejectionNote) {
+	n.mu.Lock()
+	defer n.mu.Unlock()
+	return ringSlice(n.alarms), ringSlice(n.rejections)
+}
+
+func ringSlice[T any](r *window.Ring[T]) []T {
+	out := make([]T, r.Len())
+	for i := range out {
+		out[i] = r.At(i)
+	}
+	return out
+}
+
+// trim drops the points after applied events: a restore took the state
+// back, and what they showed did not happen to it.
+func (c *curves) trim(applied int64) {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	for i, r := range c.points {
+		kept := window.NewRing[CurvePoint](r.Cap())
+		for j := range r.Len() {
+			if p := r.At(j); p.Events <= applied {
+				kept.Push(p)
+			}
+		}
+		c.points[i] = kept
 	}
 }
 

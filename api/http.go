@@ -63,7 +63,10 @@ func (s *Service) newHTTP() *http.Server {
 	e.GET("/healthz", s.handleHealth)
 	e.GET("/readyz", s.handleReady)
 	e.GET("/metrics", echo.WrapHandler(s.metrics.handler()), read)
-	e.GET("/", s.handleDashboard, read)
+	e.GET("/", s.handlePage, read)
+	e.GET("/:asset", s.handlePage, read)
+	e.GET("/v1/overview", s.handleOverview, read)
+	e.POST("/v1/checkpoints/:version/pin", s.handlePin, changing(jsonTypes...)...)
 	e.GET("/v1/openapi.json", func(c echo.Context) error { return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, openapiDoc) })
 	return &http.Server{Addr: s.cfg.Listen, Handler: e, ReadHeaderTimeout: readHeaderTimeout,
 		ReadTimeout: readTimeout, WriteTimeout: writeTimeout, IdleTimeout: idleTimeout,

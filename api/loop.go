@@ -31,6 +31,7 @@ type loop struct {
 	dead    *deadLetters
 	metrics *metrics
 	curves  *curves
+	notes   *notes
 
 	snap  *atomic.Pointer[snapshot] // where it publishes (the service's)
 	fault *atomic.Pointer[fault]    // what stopped intake, or nil (the service's)
@@ -53,6 +54,7 @@ type loop struct {
 	ckPositions map[uint64][]learner.Position // positions each known checkpoint covers
 	handled     atomic.Int64                  // events handled (applied, rejected or passed) since start
 	group       *group                        // the partitions owned in a consumer group (group.go); nil but with Kafka intake
+	alarmCounts []int64                       // each learner's alarms when the page was last told (noteAlarms)
 }
 
 // item is one event handed from a source to the loop, decoded by the
@@ -307,6 +309,7 @@ func (l *loop) apply(it item) {
 		l.eng.Skip(it.pos)
 		l.metrics.rejections.WithLabelValues("decode").Inc()
 		l.dead.add(it.pos, it.decErr, it.data)
+		l.notes.rejected(RejectionNote{Position: it.pos, Reason: Plain(it.decErr.Error()), At: time.Now().UTC()})
 		l.afterEvent(it.pos)
 		return
 	}
@@ -323,11 +326,34 @@ func (l *loop) apply(it item) {
 		}
 		l.metrics.rejected(reason).Inc()
 		l.dead.add(it.pos, err, it.data)
+		l.notes.rejected(RejectionNote{Position: it.pos, Reason: Plain(err.Error()), At: time.Now().UTC()})
 	} else if a := l.eng.Alarms(); a != l.lastAlarms {
 		l.lastAlarms = a
+		l.noteAlarms(it.pos, ev)
 		l.pinBeforeAlarm(it.pos.Partition)
 	}
 	l.afterEvent(it.pos)
+}
+
+// noteAlarms records, for the page, the alarms the event at pos raised:
+// those of the learners whose alarm count grew.
+func (l *loop) noteAlarms(pos learner.Position, ev *learner.Event) {
+	if len(l.alarmCounts) != len(l.cfg.Engine.Learners) {
+		l.alarmCounts = make([]int64, len(l.cfg.Engine.Learners))
+	}
+	for i, spec := range l.cfg.Engine.Learners {
+		n := l.eng.LearnerAlarms(i)
+		raised := n > l.alarmCounts[i]
+		l.alarmCounts[i] = n
+		if raised {
+			n := AlarmNote{Learner: spec.Name, Key: ev.Key, Position: pos}
+			if ev.HasTime {
+				t := time.Unix(0, ev.Time).UTC()
+				n.Time = &t
+			}
+			l.notes.alarm(n)
+		}
+	}
 }
 
 // skipFor returns the skip rule of a restore that applies to partition p:
@@ -601,6 +627,7 @@ func (l *loop) restore(v uint64, req RestoreRequest) cmdResult {
 			"the service goes on from its state before this request", v, err).withCause(err)}
 	}
 	info := l.lastCk
+	l.curves.trim(eng.Applied())
 	l.cfg.Log.Warn("restored", "version", v, "resume", mode.String())
 	l.setCatchUp()
 	l.startSource()

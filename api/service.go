@@ -31,6 +31,7 @@ type Service struct {
 	journal intake.Appender // the source, when it takes events over HTTP; else nil
 	metrics *metrics
 	curves  *curves
+	notes   *notes
 	http    *http.Server
 
 	snap  atomic.Pointer[snapshot] // published by the loop
@@ -75,7 +76,8 @@ func New(cfg Config) (*Service, error) {
 	s := &Service{cfg: cfg, curves: newCurves(cfg.Engine.Learners, cfg.CurvePoints), listening: make(chan struct{})}
 	s.dataDir, _ = filepath.Abs(cfg.DataDir)
 	s.metrics = newMetrics(s)
-	l := &loop{cfg: cfg, eng: eng, metrics: s.metrics, curves: s.curves, snap: &s.snap, fault: &s.fault,
+	s.notes = newNotes()
+	l := &loop{cfg: cfg, eng: eng, metrics: s.metrics, curves: s.curves, notes: s.notes, snap: &s.snap, fault: &s.fault,
 		cmds: make(chan command), ckPositions: map[uint64][]learner.Position{}}
 	s.loop = l
 	if cfg.Kafka != nil {

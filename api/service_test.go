@@ -10,6 +10,7 @@ import (
 	"net/http"
 	"os"
 	"path/filepath"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -321,6 +322,14 @@ func TestAuthOnEveryChangingEndpoint(t *testing.T) {
 		{"POST", "/v1/checkpoints", ``},
 		{"POST", "/v1/checkpoints/1/restore", `{"resume":"from_now"}`},
 	}
+	// Every other changing route the server serves, found from its routes.
+	for _, rt := range r.svc.routes() {
+		path := strings.NewReplacer(":version", "1", ":name", "x").Replace(rt.Path)
+		if rt.Method != "POST" || path == "/v1/predict" || slices.ContainsFunc(changing, func(c struct{ method, path, body string }) bool { return c.path == path }) {
+			continue
+		}
+		changing = append(changing, struct{ method, path, body string }{"POST", path, `{}`})
+	}
 	for _, c := range changing {
 		for _, tok := range []string{"", "wrong", "s3cret-tokenX"} {
 			code, b := r.call(t, c.method, c.path, tok, []byte(c.body))
@@ -477,17 +486,65 @@ func TestJournalTrimmedBehindRetainedCheckpoints(t *testing.T) {
 	r2.waitCovered(t, int64(len(lines)+10))
 }
 
-func TestDashboard(t *testing.T) {
+// TestOverview: the page's one source, GET /v1/overview, holds the status,
+// the learners best recent error first with their curves over event time,
+// the alarms and the checkpoints; GET / serves the page with a policy that
+// keeps it to the service's own assets.
+func TestOverview(t *testing.T) {
 	cfg := testConfig(t, t.TempDir())
 	cfg.CurveEvery = 20
 	r := start(t, cfg)
 	r.post(t, "", scenario(t, 1)[:300])
-	r.waitCovered(t, 300)
-	code, b := r.call(t, "GET", "/", "", nil)
-	page := string(b)
-	for _, want := range []string{"300 events applied", "rls:forget=0.99", "<polyline", "not a safety system", "Checkpoints"} {
-		if code != 200 || !strings.Contains(page, want) {
-			t.Errorf("dashboard (%d) lacks %q", code, want)
+	rep := r.waitCovered(t, 300)
+	r.call(t, "POST", "/v1/checkpoints", "", nil)
+	code, b := r.call(t, "GET", "/v1/overview", "", nil)
+	var o Overview
+	if code != 200 || json.Unmarshal(b, &o) != nil {
+		t.Fatalf("GET /v1/overview: %d %s", code, b)
+	}
+	if o.Status.Events != 300 || o.Status.Keys != 3 || len(o.Learners) != len(serviceSpecs) || len(o.Checkpoints) == 0 || o.Checkpoints[0].EventTimes == nil {
+		t.Errorf("overview: %+v", o.Status)
+	}
+	for i, l := range o.Learners {
+		if i > 0 && l.Recent.RMSE != nil && o.Learners[i-1].Recent.RMSE != nil && *l.Recent.RMSE < *o.Learners[i-1].Recent.RMSE {
+			t.Errorf("learners not by recent rmse: %s after %s", l.Name, o.Learners[i-1].Name)
+		}
+		if len(l.Curve) != 15 || l.Curve[len(l.Curve)-1].Time == nil {
+			t.Errorf("%s: %d curve points (want 300/20 = 15), the last with time %v", l.Name, len(l.Curve), l.Curve[len(l.Curve)-1].Time)
+		}
+		for _, want := range rep.Learners {
+			if want.Name == l.Name && *want.Recent.RMSE != *l.Recent.RMSE {
+				t.Errorf("%s: recent rmse %v, GET /v1/learners %v", l.Name, *l.Recent.RMSE, *want.Recent.RMSE)
+			}
+		}
+	}
+	if !strings.Contains(o.Caution, "not a safety system") {
+		t.Errorf("caution: %q", o.Caution)
+	}
+	v := o.Checkpoints[0].Version
+	for _, pin := range []bool{true, false} {
+		code, b := r.call(t, "POST", fmt.Sprintf("/v1/checkpoints/%d/pin", v), "", []byte(fmt.Sprintf(`{"pinned":%t}`, pin)))
+		var in checkpoint.Info
+		if code != 200 || json.Unmarshal(b, &in) != nil || in.Version != v || in.Pinned != pin {
+			t.Errorf("pin %t: %d %s", pin, code, b)
+		}
+	}
+	if code, b := r.call(t, "POST", "/v1/checkpoints/999/pin", "", []byte(`{"pinned":true}`)); code != 404 {
+		t.Errorf("pin of a missing checkpoint: %d %s", code, b)
+	}
+	req, _ := http.NewRequest("GET", r.base+"/", nil)
+	resp, err := http.DefaultClient.Do(req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	page, _ := io.ReadAll(resp.Body)
+	resp.Body.Close()
+	if resp.StatusCode != 200 || !strings.Contains(string(page), `src="/page.js"`) || !strings.Contains(resp.Header.Get("Content-Security-Policy"), "default-src 'none'") {
+		t.Errorf("GET /: %d, policy %q", resp.StatusCode, resp.Header.Get("Content-Security-Policy"))
+	}
+	for _, asset := range []string{"/page.js", "/page.css"} {
+		if code, _ := r.call(t, "GET", asset, "", nil); code != 200 {
+			t.Errorf("GET %s: %d", asset, code)
 		}
 	}
 }

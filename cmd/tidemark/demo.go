@@ -148,16 +148,16 @@ func printDemoIntro(dc demoConfig, base string) {
 	fmt.Fprintf(w, "and the outdoor sensor is stuck from %s to %s. The first %s goes in at once, then a day\nevery %s of wall time.\n\n",
 		stuckFrom.Format(time.RFC3339), stuckTo.Format(time.RFC3339), plural(dc.Warmup, "day"), (time.Duration(float64(24*time.Hour) / dc.Speed)).Round(time.Second))
 	fmt.Fprintf(w, "  service     %s   (data in %s)\n", base, dc.DataDir)
-	fmt.Fprintf(w, "  dashboard   %s/\n", base)
+	fmt.Fprintf(w, "  page        %s/   (open it: the learners race, alarms, checkpoints; restore from there)\n", base)
 	fmt.Fprintf(w, "  learners    curl -s '%s/v1/learners?keys=false'\n", base)
-	fmt.Fprintf(w, "  predict     curl -s -H 'Content-Type: application/json' -d '{\"learner\":\"rls-forget\",\"key\":\"room-b\",\"time\":\"%s\",\"features\":{\"outdoor_c\":14,\"door_min\":2,\"shift\":\"day\"}}' %s/v1/predict\n",
+	fmt.Fprintf(w, "  predict     curl -s -H 'Content-Type: application/json' -d '{\"learner\":\"rls-forget\",\"key\":\"room-b\",\"time\":\"%s\",\"features\":{\"outdoor_c\":14,\"door_min\":2,\"shift\":\"day\"}}' '%s/v1/predict'\n",
 		synth.Start.Add(36*time.Hour).Format(time.RFC3339), base)
-	fmt.Fprintf(w, "  curve       curl -s %s/v1/learners/rls-forget/curve\n", base)
-	fmt.Fprintf(w, "  checkpoints curl -s %s/v1/checkpoints\n", base)
-	fmt.Fprintf(w, "  restore     curl -s -H 'Content-Type: application/json' -d '{\"resume\":\"skip\",\"skip_from_time\":\"%s\",\"skip_to_time\":\"%s\"}' %s/v1/checkpoints/VERSION/restore\n",
+	fmt.Fprintf(w, "  curve       curl -s '%s/v1/learners/rls-forget/curve'\n", base)
+	fmt.Fprintf(w, "  checkpoints curl -s '%s/v1/checkpoints'\n", base)
+	fmt.Fprintf(w, "  restore     curl -s -H 'Content-Type: application/json' -d '{\"resume\":\"skip\",\"skip_from_time\":\"%s\",\"skip_to_time\":\"%s\"}' '%s/v1/checkpoints/VERSION/restore'\n",
 		stuckFrom.Format(time.RFC3339), stuckTo.Format(time.RFC3339), base)
-	fmt.Fprintf(w, "              (VERSION: a checkpoint taken before %s, from the list above)\n", stuckFrom.Format(time.RFC3339))
-	fmt.Fprintf(w, "  metrics     curl -s %s/metrics | grep ^tidemark_\n\n", base)
+	fmt.Fprintf(w, "              (VERSION: a checkpoint whose events end before %s, from the list above)\n", stuckFrom.Format(time.RFC3339))
+	fmt.Fprintf(w, "  metrics     curl -s '%s/metrics' | grep ^tidemark_\n\n", base)
 	fmt.Fprintf(w, "Predictions steer decisions: check a learner's recent error before acting on it. Ctrl-C stops with a checkpoint.\n\n")
 }
 

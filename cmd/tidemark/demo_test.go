@@ -29,7 +29,7 @@ func TestDemoSmoke(t *testing.T) {
 	if !ready || !predicted {
 		t.Errorf("demo: ready %v, predict answered %v", ready, predicted)
 	}
-	for _, want := range []string{"dashboard", "curl -s -H 'Content-Type: application/json' -d", "/restore", "the scenario is played out", "rls-forget", "shutdown checkpoint"} {
+	for _, want := range []string{"page        http", "curl -s -H 'Content-Type: application/json' -d", "/restore", "the scenario is played out", "rls-forget", "shutdown checkpoint"} {
 		if !strings.Contains(out.String(), want) {
 			t.Errorf("demo output lacks %q:\n%s", want, out.String())
 		}
