@@ -1,6 +1,10 @@
 package api
 
 import (
+	"encoding/json"
+	"fmt"
+	"os"
+	"path/filepath"
 	"sync"
 	"time"
 
@@ -22,8 +26,9 @@ type CurvePoint struct {
 }
 
 // curves keeps the last points of every learner's recent error, sampled
-// every CurveEvery applied events. They live in memory only: after a restart
-// a curve starts again (the checkpointed state is the model, not its history).
+// every CurveEvery applied events. They are written beside the checkpoints
+// (DATA/curves.json, with the latest alarms) each time one is taken, and
+// read back at start, so that a restart keeps them (save, load).
 type curves struct {
 	mu     sync.Mutex
 	names  []string
@@ -58,7 +63,8 @@ func (c *curves) add(eng *learner.Engine) {
 }
 
 // notes keeps the latest drift alarms and rejections for the page, newest
-// last; like the curves, in memory only.
+// last; the alarms are kept with the curves (save), the rejections only in
+// memory.
 type notes struct {
 	mu         sync.Mutex
 	alarms     *window.Ring[AlarmNote]
@@ -141,4 +147,72 @@ func (c *curves) get(name string) ([]CurvePoint, bool) {
 		}
 	}
 	return nil, false
+}
+
+// kept is what curves.json holds.
+type kept struct {
+	Curves map[string][]CurvePoint `json:"curves"`
+	Alarms []AlarmNote             `json:"alarms"`
+}
+
+// save writes the curves and the latest alarms to path, through a
+// temporary file renamed into place.
+func save(path string, c *curves, n *notes) error {
+	k := kept{Curves: map[string][]CurvePoint{}}
+	for _, name := range c.names {
+		k.Curves[name], _ = c.get(name)
+	}
+	k.Alarms, _ = n.get()
+	b, err := json.Marshal(k)
+	if err != nil {
+		return err
+	}
+	tmp, err := os.CreateTemp(filepath.Dir(path), ".curves-*")
+	if err != nil {
+		return err
+	}
+	defer os.Remove(tmp.Name())
+	if _, err := tmp.Write(b); err != nil {
+		tmp.Close()
+		return err
+	}
+	if err := tmp.Sync(); err != nil {
+		tmp.Close()
+		return err
+	}
+	if err := tmp.Close(); err != nil {
+		return err
+	}
+	return os.Rename(tmp.Name(), path)
+}
+
+// load reads what save wrote into c and n, keeping only the points and
+// alarms of a state that has applied at most applied events (the state
+// restored at start may be older than the curves). A missing file is no
+// error.
+func load(path string, c *curves, n *notes, applied int64) error {
+	b, err := os.ReadFile(path)
+	if os.IsNotExist(err) {
+		return nil
+	}
+	if err != nil {
+		return err
+	}
+	var k kept
+	if err := json.Unmarshal(b, &k); err != nil {
+		return fmt.Errorf("%s: %w", path, err)
+	}
+	c.mu.Lock()
+	for i, name := range c.names {
+		for _, p := range k.Curves[name] {
+			if p.Events <= applied {
+				c.points[i].Push(p)
+			}
+		}
+	}
+	c.mu.Unlock()
+	for _, a := range k.Alarms {
+		n.alarm(a)
+	}
+	return nil
 }

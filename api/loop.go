@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"path/filepath"
 	"slices"
 	"sync"
 	"sync/atomic"
@@ -449,10 +450,16 @@ func (l *loop) checkpoint(reason checkpoint.Reason, parent uint64) error {
 	return nil
 }
 
+// curvesPath is where the curves are kept between runs.
+func (l *loop) curvesPath() string { return filepath.Join(l.cfg.DataDir, "curves.json") }
+
 // afterCheckpoint tells the source what the checkpoints cover: the newest
 // (Kafka commits it) and the oldest retained (the journal deletes what
-// precedes it), and flushes the dead letters.
+// precedes it), flushes the dead letters, and keeps the curves.
 func (l *loop) afterCheckpoint() {
+	if err := save(l.curvesPath(), l.curves, l.notes); err != nil {
+		l.cfg.Log.Warn("the error curves could not be saved; a restart starts them again", "error", err)
+	}
 	if err := l.dead.flush(); err != nil {
 		l.cfg.Log.Error("dead letters: flush failed", "error", err)
 	}

@@ -108,6 +108,13 @@ func New(cfg Config) (*Service, error) {
 			return nil, err
 		}
 	}
+	if l.group == nil {
+		// The curves as of the last checkpoint; in a consumer group they
+		// start again, as the partitions owned may differ.
+		if err := load(l.curvesPath(), s.curves, s.notes, l.eng.Applied()); err != nil {
+			cfg.Log.Warn("the saved error curves cannot be read; they start again", "error", err)
+		}
+	}
 	s.http = s.newHTTP()
 	l.publish()
 	return s, nil

@@ -743,3 +743,32 @@ func TestRestoreRefusesASkipItsCheckpointHolds(t *testing.T) {
 }
 
 func synthStart() time.Time { return time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC) }
+
+// TestCurvesSurviveARestart: the error curves and alarms are kept with the
+// checkpoints, so that a restarted service shows the same curve (and,
+// resumed from an older checkpoint, none of the points after it).
+func TestCurvesSurviveARestart(t *testing.T) {
+	dir := t.TempDir()
+	cfg := testConfig(t, dir)
+	cfg.CurveEvery = 20
+	r := start(t, cfg)
+	r.post(t, "", scenario(t, 1)[:300])
+	r.waitCovered(t, 300)
+	curve := func(r *running) []CurvePoint {
+		code, b := r.call(t, "GET", "/v1/learners/"+serviceSpecs[1]+"/curve", "", nil)
+		var c struct{ Points []CurvePoint }
+		if code != 200 || json.Unmarshal(b, &c) != nil {
+			t.Fatalf("curve: %d %s", code, b)
+		}
+		return c.Points
+	}
+	before := curve(r)
+	if len(before) != 15 {
+		t.Fatalf("%d points before the restart, want 300/20 = 15", len(before))
+	}
+	if err := r.stop(); err != nil { // a shutdown checkpoint
+		t.Fatal(err)
+	}
+	r = start(t, cfg)
+	sameJSON(t, "the curve after a restart", curve(r), before)
+}
