@@ -26,8 +26,15 @@ import (
 	"tidemark/window"
 )
 
-// DefaultEvery is the number of applied events per curve row.
-const DefaultEvery = 500
+// DefaultEvery is the number of applied events per curve row: fine enough
+// that a burst of a few hours shows (the demo scenario has 36 events an
+// hour).
+const DefaultEvery = 50
+
+// MaxRows bounds the curve: past it every other row is dropped and the
+// events per row doubled, so that a long history keeps its whole curve in
+// bounded memory.
+const MaxRows = 5000
 
 // DefaultTail is how many of the plotted key's last events the prediction
 // panel shows.
@@ -139,6 +146,18 @@ func (r *Recorder) addRow(line, t int64, eng *learner.Engine) {
 		}
 	}
 	r.rows = append(r.rows, row)
+	if len(r.rows) > MaxRows && r.applied%(2*r.Every) == 0 {
+		// Keep the rows at multiples of twice the events per row: the
+		// curve as it would have been recorded at that resolution.
+		kept := r.rows[:0]
+		for k, row := range r.rows {
+			if k%2 == 1 {
+				kept = append(kept, row)
+			}
+		}
+		r.rows = kept
+		r.Every *= 2
+	}
 }
 
 // Rows returns the curve rows recorded.
@@ -226,8 +245,10 @@ func (r *Recorder) Plot(path, units string) error {
 	top := plot.New()
 	top.Title.Text = "Recent prequential error (each key's last scored events), with drift alarms"
 	top.Y.Label.Text = "recent RMSE" + unit
-	top.Legend.Top = true
-	top.Legend.Left = true
+	// The legends sit beside the plots, never on the data.
+	topLegend, bottomLegend := plot.NewLegend(), plot.NewLegend()
+	topLegend.Top, bottomLegend.Top = true, true
+	topLegend.Left, bottomLegend.Left = true, true
 	for n, i := range order {
 		pts := make(plotter.XYs, 0, len(r.rows))
 		for _, row := range r.rows {
@@ -246,33 +267,32 @@ func (r *Recorder) Plot(path, units string) error {
 		line.Width = vg.Points(1.5)
 		line.Dashes = dashes(n)
 		top.Add(line)
-		top.Legend.Add(r.names[i], line)
 		var marks plotter.XYs
 		for _, a := range r.alarms {
 			if a.Learner == i {
 				marks = append(marks, plotter.XY{X: xOf(a.Line, a.Time), Y: nearest(pts, xOf(a.Line, a.Time))})
 			}
 		}
-		if len(marks) > 0 {
-			sc, err := plotter.NewScatter(marks)
-			if err != nil {
-				return err
-			}
-			sc.GlyphStyle.Shape = draw.TriangleGlyph{}
-			sc.GlyphStyle.Color = line.Color
-			sc.GlyphStyle.Radius = vg.Points(4)
-			top.Add(sc)
+		// Each learner's alarms have a shape of their own as well as its
+		// colour, and the legend shows it beside the line.
+		sc, err := plotter.NewScatter(marks)
+		if err != nil {
+			return err
 		}
-	}
-	if len(r.alarms) > 0 {
-		top.Title.Text += " (triangles)"
+		sc.GlyphStyle.Shape = alarmShapes[n%len(alarmShapes)]
+		sc.GlyphStyle.Color = line.Color
+		sc.GlyphStyle.Radius = vg.Points(4)
+		if len(marks) > 0 {
+			top.Add(sc)
+			topLegend.Add(fmt.Sprintf("%s (%d alarms)", r.names[i], len(marks)), line, sc)
+		} else {
+			topLegend.Add(r.names[i], line)
+		}
 	}
 	best := order[0]
 	bottom := plot.New()
 	bottom.Title.Text = fmt.Sprintf("Prediction against target, best learner %s, key %q, last %d events", r.names[best], r.Key, r.tail.Len())
 	bottom.Y.Label.Text = "target" + unit
-	bottom.Legend.Top = true
-	bottom.Legend.Left = true
 	var tgt, prd plotter.XYs
 	for j := 0; j < r.tail.Len(); j++ {
 		p := r.tail.At(j)
@@ -286,32 +306,36 @@ func (r *Recorder) Plot(path, units string) error {
 		lt, _ := plotter.NewLine(tgt)
 		lt.Color, lt.Width = okabeIto[7], vg.Points(1)
 		bottom.Add(lt)
-		bottom.Legend.Add("target", lt)
+		bottomLegend.Add("target", lt)
 	}
 	if len(prd) > 0 {
 		lp, _ := plotter.NewLine(prd)
 		lp.Color, lp.Width, lp.Dashes = okabeIto[5], vg.Points(1.5), []vg.Length{vg.Points(4), vg.Points(2)}
 		bottom.Add(lp)
-		bottom.Legend.Add("prediction", lp)
+		bottomLegend.Add("prediction", lp)
 	}
 	for _, p := range []*plot.Plot{top, bottom} {
 		if r.hasTime {
-			p.X.Tick.Marker = plot.TimeTicks{Format: "Jan 2\n15:04"}
+			p.X.Tick.Marker = wholeTimeTicks{}
 			p.X.Label.Text = "event time (UTC)"
 		} else {
 			p.X.Label.Text = "position (line)"
 		}
 		p.Add(plotter.NewGrid())
 	}
-	const w, h = 28 * vg.Centimeter, 22 * vg.Centimeter
+	const w, h, legendW = 34 * vg.Centimeter, 22 * vg.Centimeter, 7 * vg.Centimeter
 	c, err := draw.NewFormattedCanvas(w, h, format)
 	if err != nil {
 		return err
 	}
+	whole := draw.New(c)
 	tiles := draw.Tiles{Rows: 2, Cols: 1, PadTop: vg.Points(6), PadBottom: vg.Points(6), PadLeft: vg.Points(6), PadRight: vg.Points(10), PadY: vg.Points(14)}
-	cans := plot.Align([][]*plot.Plot{{top}, {bottom}}, tiles, draw.New(c))
+	cans := plot.Align([][]*plot.Plot{{top}, {bottom}}, tiles, draw.Crop(whole, 0, -legendW, 0, 0))
 	top.Draw(cans[0][0])
 	bottom.Draw(cans[1][0])
+	legends := draw.Crop(whole, w-legendW, 0, 0, 0)
+	topLegend.Draw(draw.Crop(legends, 0, 0, h/2, -vg.Points(24)))
+	bottomLegend.Draw(draw.Crop(legends, 0, 0, 0, -h/2-vg.Points(24)))
 	f, err := os.Create(path)
 	if err != nil {
 		return err
@@ -321,6 +345,38 @@ func (r *Recorder) Plot(path, units string) error {
 		return err
 	}
 	return f.Close()
+}
+
+// alarmShapes tell the learners' alarms apart by shape as well as colour.
+var alarmShapes = []draw.GlyphDrawer{draw.TriangleGlyph{}, draw.CircleGlyph{}, draw.BoxGlyph{}, draw.PyramidGlyph{},
+	draw.RingGlyph{}, draw.SquareGlyph{}, draw.CrossGlyph{}, draw.PlusGlyph{}}
+
+// wholeTimeTicks marks event time (Unix seconds, UTC) on whole hours or
+// days: the step is the smallest of 1, 2, 3, 6 or 12 hours, or 1, 2, 7, 14
+// or 28 days, that gives at most eight ticks; midnights are labelled with
+// the date, other ticks with the hour.
+type wholeTimeTicks struct{}
+
+func (wholeTimeTicks) Ticks(min, max float64) []plot.Tick {
+	const hour = 3600.0
+	steps := []float64{hour, 2 * hour, 3 * hour, 6 * hour, 12 * hour, 24 * hour, 48 * hour, 168 * hour, 336 * hour, 672 * hour}
+	step := steps[len(steps)-1]
+	for _, s := range steps {
+		if (max-min)/s <= 8 {
+			step = s
+			break
+		}
+	}
+	var ticks []plot.Tick
+	for t := math.Ceil(min/step) * step; t <= max; t += step {
+		at := time.Unix(int64(t), 0).UTC()
+		label := at.Format("15:04")
+		if at.Hour() == 0 && at.Minute() == 0 {
+			label = at.Format("Jan 2")
+		}
+		ticks = append(ticks, plot.Tick{Value: t, Label: label})
+	}
+	return ticks
 }
 
 // ranked returns learner indices by their last recent RMSE, best first;
