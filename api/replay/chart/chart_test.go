@@ -5,6 +5,7 @@ import (
 	"context"
 	"encoding/csv"
 	"encoding/xml"
+	"fmt"
 	"image/png"
 	"io"
 	"os"
@@ -20,8 +21,13 @@ import (
 
 func record(t *testing.T, every int64) (*chart.Recorder, *learner.Engine) {
 	t.Helper()
+	return recordDays(t, 2, every)
+}
+
+func recordDays(t *testing.T, days int, every int64) (*chart.Recorder, *learner.Engine) {
+	t.Helper()
 	var buf bytes.Buffer
-	synth.Write(&buf, synth.Config{Days: 2, Seed: 4})
+	synth.Write(&buf, synth.Config{Days: days, Seed: 4})
 	cfg := learner.Config{Features: learner.FeatureConfig{HashBuckets: 4}}
 	for _, s := range []string{"knn:k=5,window=300", "rls:forget=0.99", "mean"} {
 		sp, _ := learner.ParseSpec(s)
@@ -101,5 +107,21 @@ func TestPlotFilesAreValid(t *testing.T) {
 	}
 	if err := rec.Plot(filepath.Join(dir, "p.gif"), ""); err == nil {
 		t.Error("a .gif plot was accepted")
+	}
+}
+
+// TestLongCurveStaysBounded: seven days of the demo scenario (6 048 events)
+// with a row per event would pass chart.MaxRows; the curve then keeps every
+// other row and doubles its step, so that its rows are exactly those of a
+// recorder that took a row every two events from the start.
+func TestLongCurveStaysBounded(t *testing.T) {
+	fine, _ := recordDays(t, 7, 1)
+	coarse, _ := recordDays(t, 7, 2)
+	if fine.Every != 2 || len(fine.Rows()) > chart.MaxRows {
+		t.Fatalf("step %d, %d rows; want 2 and at most %d", fine.Every, len(fine.Rows()), chart.MaxRows)
+	}
+	// (%v prints the NaN of a learner that has not scored yet; JSON cannot.)
+	if g, w := fmt.Sprintf("%v", fine.Rows()), fmt.Sprintf("%v", coarse.Rows()); g != w || len(fine.Rows()) < 2000 {
+		t.Errorf("the thinned curve (%d rows) differs from one recorded every two events (%d rows)", len(fine.Rows()), len(coarse.Rows()))
 	}
 }
