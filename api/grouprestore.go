@@ -1,7 +1,9 @@
 package api
 
 import (
+	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"net/http"
 	"slices"
@@ -13,6 +15,7 @@ import (
 	"tidemark/api/intake"
 	"tidemark/api/persist"
 	"tidemark/checkpoint"
+	"tidemark/learner"
 )
 
 // Restore in a consumer group. Each partition has its own checkpoints, so a
@@ -211,4 +214,65 @@ func (s *Service) newestBefore(p int32, t time.Time) (uint64, error) {
 		}
 	}
 	return best, nil
+}
+
+// previewRestore counts what restoring version v as req asks would do — the
+// events after the checkpoint up to the live position that it would replay,
+// leave out or forget — reading the source and changing nothing. It refuses,
+// as the restore would, a skip its checkpoint already holds.
+func (s *Service) previewRestore(ctx context.Context, v uint64, req RestoreRequest) (RestorePreview, error) {
+	var m checkpoint.Manifest
+	var live []learner.Position
+	var mode ResumeMode
+	var rule *skipRule
+	res := s.loop.do(func(l *loop) cmdResult {
+		store := l.store
+		live = l.eng.Positions()
+		if l.group != nil {
+			if req.Partition == nil || l.group.owned[*req.Partition] == nil {
+				return cmdResult{err: cmdErr(ErrInvalidRequest, "in a consumer group, name a partition this instance owns (\"partition\": N)")}
+			}
+			store = l.group.owned[*req.Partition].store
+			live = slices.DeleteFunc(live, func(p learner.Position) bool { return p.Partition != *req.Partition })
+		}
+		var err error
+		if mode, rule, err = req.rule(live); err != nil {
+			return cmdResult{err: cmdErr(ErrInvalidRequest, "%v", err)}
+		}
+		if m, err = store.ReadManifest(v); errors.Is(err, checkpoint.ErrNotFound) {
+			return cmdResult{err: cmdErr(ErrNoCheckpoint, "checkpoint %d does not exist; GET /v1/checkpoints lists them", v)}
+		} else if err != nil {
+			return cmdResult{err: cmdErr(ErrConflict, "checkpoint %d cannot be read: %v", v, err).withCause(err)}
+		}
+		list, _ := store.List()
+		return cmdResult{err: skipReaches(m, rule, list)}
+	})
+	if res.err != nil {
+		return RestorePreview{}, res.err
+	}
+	p := RestorePreview{DryRun: true, Restore: v, Resume: mode.String(), To: live}
+	for _, q := range m.Positions {
+		p.From = append(p.From, learner.Position{Partition: q.Partition, Offset: q.Offset})
+	}
+	err := intake.Scan(ctx, s.loop.src, p.From, live, func(pos learner.Position, b []byte) {
+		switch {
+		case mode == ResumeFromNow:
+			p.Forget++
+		case rule != nil && rule.coversPosition(pos):
+			p.Skip++
+		case rule != nil && rule.HasTime:
+			var ev learner.Event
+			if b != nil && learner.DecodeEvent(b, &ev) == nil && rule.coversEvent(pos, &ev) {
+				p.Skip++
+			} else {
+				p.Replay++
+			}
+		default:
+			p.Replay++
+		}
+	})
+	if err != nil {
+		return p, cmdErr(ErrNotStored, "the events after checkpoint %d could not be read back to count them: %v", v, err).withCause(err)
+	}
+	return p, nil
 }

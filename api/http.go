@@ -511,6 +511,20 @@ func (s *Service) handleRestore(c echo.Context) error {
 			return err
 		}
 	}
+	if req.DryRun || req.Resume == ResumeSkip.String() {
+		preview, err := s.previewRestore(c.Request().Context(), v, req)
+		if err != nil {
+			return answer(err)
+		}
+		if req.DryRun {
+			return c.JSON(http.StatusOK, preview)
+		}
+		if preview.Skip == 0 {
+			return answer(cmdErr(ErrConflict, "the skip range selects no event after checkpoint %d (of the %d it would replay): nothing would be left out; "+
+				"check the range against the events' times (GET /v1/checkpoints shows the event times each checkpoint holds), or say \"dry_run\":true to count first",
+				v, preview.Replay))
+		}
+	}
 	res := s.loop.do(func(l *loop) cmdResult { return l.restore(v, req) })
 	if res.err != nil {
 		return answer(res.err)

@@ -23,8 +23,9 @@ import (
 // service learns two days of the demo scenario, with a checkpoint taken
 // before the stuck-sensor burst. On the page: a series per learner; the
 // table's figures equal GET /v1/learners; a restore without the token is
-// refused and the page shows why; with it, accepted, and the checkpoint
-// strip shows the restore; no script error. A screenshot is saved in the
+// refused and the page shows why; with it, a dry run says what would be
+// replayed and left out, the restore is accepted, and the checkpoint strip
+// shows it; no script error. A screenshot is saved in the
 // test's temporary directory (or at $TIDEMARK_SCREENSHOT).
 func TestPageInABrowser(t *testing.T) {
 	browser := ""
@@ -147,6 +148,14 @@ func TestPageInABrowser(t *testing.T) {
 	refused, _ := chromedp.Run(ctx, chromedp.Text(chromedp.ID(`answer`)))
 	err = chromedp.Do(ctx,
 		chromedp.SendKeys(chromedp.ID(`r-token`), tok),
+		chromedp.Click(chromedp.ID(`r-dry`)),
+		chromedp.WaitVisible(chromedp.Search(`//output[@id="answer" and contains(., "would replay")]`)),
+	)
+	counted, _ := chromedp.Run(ctx, chromedp.Text(chromedp.ID(`answer`)))
+	if err != nil || !strings.Contains(counted, "leave out") {
+		t.Fatalf("the dry run from the page: %v (answer %q)", err, counted)
+	}
+	err = chromedp.Do(ctx,
 		chromedp.Click(chromedp.CSS(`#restore button[type=submit]`)),
 		chromedp.WaitVisible(chromedp.Search(`//output[@id="answer" and contains(., "Restored checkpoint")]`)),
 		chromedp.WaitVisible(chromedp.CSS(`#timeline .ckpt[data-reason="restore"]`)),

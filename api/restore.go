@@ -57,8 +57,11 @@ type RestoreRequest struct {
 	// Partition names the partition to restore in a consumer group, where
 	// each partition has its own checkpoints (and versions); absent
 	// otherwise.
-	Partition     *int32          `json:"partition,omitempty"`
-	Resume        string          `json:"resume"`
+	Partition *int32 `json:"partition,omitempty"`
+	Resume    string `json:"resume"`
+	// DryRun answers how many events the restore would replay, leave out
+	// (skip) or forget (from_now), and changes nothing.
+	DryRun        bool            `json:"dry_run,omitempty"`
 	SkipFromTime  string          `json:"skip_from_time,omitempty"` // RFC 3339, inclusive
 	SkipToTime    string          `json:"skip_to_time,omitempty"`   // RFC 3339, exclusive
 	SkipPositions []PositionRange `json:"skip_positions,omitempty"`
@@ -204,4 +207,17 @@ func skipReaches(m checkpoint.Manifest, rule *skipRule, list []checkpoint.Info) 
 		}
 	}
 	return nil
+}
+
+// RestorePreview answers a restore's dry run: what it would do, counted on
+// the source's events after the checkpoint up to the live position.
+type RestorePreview struct {
+	DryRun  bool               `json:"dry_run"` // always true: nothing was changed
+	Restore uint64             `json:"restore"`
+	Resume  string             `json:"resume"`
+	From    []learner.Position `json:"from"` // what the checkpoint covers
+	To      []learner.Position `json:"to"`   // the live position
+	Replay  int64              `json:"replay"`
+	Skip    int64              `json:"skip"`
+	Forget  int64              `json:"forget"` // from_now: the events after the checkpoint, left out for good
 }

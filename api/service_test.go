@@ -737,6 +737,35 @@ func TestRestoreRefusesASkipItsCheckpointHolds(t *testing.T) {
 	if code != 409 || !strings.Contains(string(b), "version") || !strings.Contains(string(b), "offset 1200") {
 		t.Errorf("a skip of positions the checkpoint holds: %d %s, want 409 naming an earlier version", code, b)
 	}
+	// A dry run counts, and changes nothing: the hand count is the lines
+	// after the checkpoint's position, those in the range skipped.
+	var ckAt int64
+	for _, in := range list {
+		if in.Version == meant {
+			ckAt = in.Position[0].Offset
+		}
+	}
+	wantSkip := 0
+	for _, l := range lines[ckAt:1200] {
+		var ev learner.Event
+		if learner.DecodeEvent(l, &ev) == nil && !time.Unix(0, ev.Time).Before(from) && time.Unix(0, ev.Time).Before(from.Add(2*time.Hour)) {
+			wantSkip++
+		}
+	}
+	dry := strings.Replace(skip, `{`, `{"dry_run":true,`, 1)
+	code, b = r.call(t, "POST", fmt.Sprintf("/v1/checkpoints/%d/restore", meant), "", []byte(dry))
+	var pv RestorePreview
+	if code != 200 || json.Unmarshal(b, &pv) != nil || pv.Skip != int64(wantSkip) || pv.Replay+pv.Skip != 1200-ckAt || !pv.DryRun || wantSkip == 0 {
+		t.Errorf("dry run: %d %s; want %d skipped of %d", code, b, wantSkip, 1200-ckAt)
+	}
+	if rep := r.report(t); rep.Events+rep.Rejected != 1200 || rep.Skipped != 0 {
+		t.Errorf("a dry run changed the state: %d events, %d skipped", rep.Events, rep.Skipped)
+	}
+	// A range that selects no event is refused.
+	none := `{"resume":"skip","skip_from_time":"2027-01-01T00:00:00Z","skip_to_time":"2027-01-02T00:00:00Z"}`
+	if code, b := r.call(t, "POST", fmt.Sprintf("/v1/checkpoints/%d/restore", meant), "", []byte(none)); code != 409 || !strings.Contains(string(b), "selects no event") {
+		t.Errorf("a skip that selects nothing: %d %s", code, b)
+	}
 	if code, b := r.call(t, "POST", fmt.Sprintf("/v1/checkpoints/%d/restore", meant), "", []byte(skip)); code != 200 {
 		t.Errorf("the skip from the checkpoint before the range: %d %s", code, b)
 	}

@@ -302,7 +302,7 @@ async function setPin(c, pinned) {
   refresh1();
 }
 
-async function restore(ev) {
+async function restore(ev, dry) {
   ev.preventDefault();
   const [a, b] = $("r-version").value.split("/");
   const version = b === undefined ? a : b;
@@ -314,10 +314,15 @@ async function restore(ev) {
     body.skip_from_time = $("r-from").value.trim();
     body.skip_to_time = $("r-to").value.trim();
   }
-  answer(`Restoring checkpoint ${version}…`, true);
+  if (dry) body.dry_run = true;
+  answer(dry ? `Counting what restoring checkpoint ${version} would do…` : `Restoring checkpoint ${version}…`, true);
   try {
     const r = await fetch(`/v1/checkpoints/${version}/restore`, { method: "POST", headers: headers(true), body: JSON.stringify(body) });
-    if (r.ok) {
+    if (r.ok && dry) {
+      const p = await r.json();
+      answer(`Restoring checkpoint ${p.restore} would replay ${p.replay} events` + (p.skip ? `, leave out ${p.skip}` : "") +
+        (p.forget ? `, forget ${p.forget}` : "") + ". Nothing has changed yet.", true);
+    } else if (r.ok) {
       const res = await r.json();
       answer(`Restored checkpoint ${res.restored} (${res.resume}); the restore is recorded as checkpoint ${res.checkpoint.version}, and the service is catching up.`, true);
     } else {
@@ -343,6 +348,7 @@ async function refresh1() {
 }
 
 document.addEventListener("DOMContentLoaded", () => {
-  $("restore").addEventListener("submit", restore);
+  $("restore").addEventListener("submit", (ev) => restore(ev, false));
+  $("r-dry").addEventListener("click", (ev) => restore(ev, true));
   refresh();
 });
