@@ -53,6 +53,9 @@ func TestCommandLineManners(t *testing.T) {
 		{[]string{"serve", "--data", data, "--learner", "mean", "--min-scored", "-5"}, 2, "", "--min-scored -5", ""},
 		{[]string{"serve", "--data", data, "--learner", "mean", "--checkpoint-every", "0"}, 2, "", "--checkpoint-every 0", ""},
 		{[]string{"synth", "--out", filepath.Join(t.TempDir(), "s.ndjson"), "--rooms", "0"}, 2, "", "--rooms 0", ""},
+		{[]string{"demo", "--days", "3", "--speed", "-1"}, 2, "", "--speed -1", ""},
+		{[]string{"demo", "--days", "3", "--warmup", "-2"}, 2, "", "--warmup -2", ""},
+		{[]string{"demo", "--every", "0s"}, 2, "", "--every 0s", ""},
 		{[]string{"serve", "--data", data, "--learner", "mean", "--listen", busy.Addr().String()}, 1, "", "another address", "serving on"},
 	}
 	for _, c := range cases {

@@ -36,8 +36,24 @@ func runDemo(args []string, stdout, stderr io.Writer) error {
 	if _, err := parse(fs, args); err != nil {
 		return err
 	}
-	if *days < 1 || *days > 366 || *warmup >= *days || *speed <= 0 {
-		return usagef("want --days from 2 to 366, --warmup below --days, and a positive --speed")
+	var bad []string
+	if *days < 2 || *days > 366 {
+		bad = append(bad, fmt.Sprintf("--days %d: want 2 to 366", *days))
+	}
+	if *warmup < 0 || *warmup >= *days {
+		bad = append(bad, fmt.Sprintf("--warmup %d: want 0 up to --days − 1 (%d)", *warmup, *days-1))
+	}
+	if !(*speed > 0) {
+		bad = append(bad, fmt.Sprintf("--speed %v: want a positive factor (1440: a day a minute)", *speed))
+	}
+	if *every <= 0 {
+		bad = append(bad, fmt.Sprintf("--every %v: want a positive duration", *every))
+	}
+	if *duration < 0 {
+		bad = append(bad, fmt.Sprintf("--duration %v: want 0 (until the end) or a positive duration", *duration))
+	}
+	if len(bad) > 0 {
+		return usagef("%s", strings.Join(bad, "; "))
 	}
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 	defer stop()
