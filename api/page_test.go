@@ -174,6 +174,20 @@ func TestPageInABrowser(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	// On a phone's width the page fits: nothing scrolls sideways but the
+	// tables, in their own boxes.
+	err = chromedp.Do(ctx, chromedp.EmulateViewport(390, 844, chromedp.EmulateMobile), chromedp.Sleep(300*time.Millisecond))
+	if err != nil {
+		t.Fatal(err)
+	}
+	overflow, err := chromedp.Run(ctx, chromedp.Evaluate[int](`document.documentElement.scrollWidth - document.documentElement.clientWidth`))
+	if err != nil || overflow > 0 {
+		widest, _ := chromedp.Run(ctx, chromedp.Evaluate[string](`[...document.querySelectorAll("body *")].filter(e => e.getBoundingClientRect().right > document.documentElement.clientWidth && !e.closest(".scroll")).map(e => e.tagName + "#" + e.id + "." + e.className).slice(0, 5).join(" ")`))
+		t.Errorf("on a 390 px wide screen the page is %d px too wide (%v): %s", overflow, err, widest)
+	}
+	if err := chromedp.Do(ctx, chromedp.EmulateReset()); err != nil {
+		t.Fatal(err)
+	}
 	path := filepath.Join(t.TempDir(), "page.png")
 	if p := os.Getenv("TIDEMARK_SCREENSHOT"); p != "" {
 		path = p
