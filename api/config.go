@@ -77,6 +77,8 @@ type Config struct {
 	MaxDriftPins int
 	// DefaultLearner answers predict requests that name none. Default: the first.
 	DefaultLearner string
+	// Units names the target's units (kW, s), for the page. Default: none.
+	Units string
 	// PublishEvery is the longest a published snapshot (what predict and the
 	// read endpoints see) lags the engine. Default: DefaultPublishEvery.
 	PublishEvery time.Duration

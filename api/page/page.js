@@ -158,7 +158,7 @@ function renderChart(o) {
     axis.append(el("svg:line", { class: "grid", x1: L, x2: W - R, y1: y(v), y2: y(v) }));
     axis.append(el("svg:text", { x: L - 6, y: y(v) + 4, "text-anchor": "end" }, num(v, 3)));
   }
-  axis.append(el("svg:text", { x: L, y: 12 }, "recent rmse"));
+  axis.append(el("svg:text", { x: L, y: 12 }, "recent rmse" + (o.settings.units ? ` (${o.settings.units})` : "")));
   svg.append(axis);
   // Refused events: the increase of the refused count between curve points.
   const first = (o.learners[0] && o.learners[0].curve) || [];

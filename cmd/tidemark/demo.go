@@ -125,7 +125,7 @@ func demo(ctx context.Context, dc demoConfig) error {
 		}
 		eng.Learners = append(eng.Learners, sp)
 	}
-	cfg := api.Config{Listen: dc.Listen, DataDir: dc.DataDir, Engine: eng, CheckpointEvery: 2000, CheckpointInterval: 30 * time.Second}
+	cfg := api.Config{Listen: dc.Listen, DataDir: dc.DataDir, Engine: eng, CheckpointEvery: 2000, CheckpointInterval: 30 * time.Second, Units: "kW"}
 	if dc.Log != nil {
 		cfg.Log = slog.New(slog.NewTextHandler(dc.Log, nil))
 	}
