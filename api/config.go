@@ -32,6 +32,12 @@ const (
 	DefaultForwardTimeout     = 2 * time.Second
 )
 
+// Interval methods (Config.Interval).
+const (
+	IntervalConformal = "conformal"
+	IntervalNormal    = "normal"
+)
+
 // Config configures the service. Zero fields take the defaults.
 type Config struct {
 	Listen  string // HTTP address. Default: DefaultListen (loopback only).
@@ -79,6 +85,10 @@ type Config struct {
 	DefaultLearner string
 	// Units names the target's units (kW, s), for the page. Default: none.
 	Units string
+	// Interval is the method of the intervals predict quotes: IntervalConformal
+	// or IntervalNormal (their level is Engine.Score.Level). Default:
+	// IntervalConformal.
+	Interval string
 	// PublishEvery is the longest a published snapshot (what predict and the
 	// read endpoints see) lags the engine. Default: DefaultPublishEvery.
 	PublishEvery time.Duration
@@ -206,6 +216,9 @@ func (c *Config) Validate() error {
 			errs = append(errs, fmt.Errorf("advertised address %q: want http://host:port or https://host:port", c.Advertise))
 		}
 	}
+	if c.Interval != "" && c.Interval != IntervalConformal && c.Interval != IntervalNormal {
+		errs = append(errs, fmt.Errorf("interval %q: want conformal (adapts to the misses it sees) or normal (± z × recent RMSE)", c.Interval))
+	}
 	if c.ForwardTimeout < 0 {
 		errs = append(errs, fmt.Errorf("forward timeout %v: want a positive duration", c.ForwardTimeout))
 	}
@@ -267,6 +280,9 @@ func (c *Config) setDefaults() {
 	}
 	if c.ForwardTimeout == 0 {
 		c.ForwardTimeout = DefaultForwardTimeout
+	}
+	if c.Interval == "" {
+		c.Interval = IntervalConformal
 	}
 	if c.Log == nil {
 		c.Log = slog.New(slog.DiscardHandler)

@@ -179,12 +179,17 @@ type PredictRequest struct {
 	Rows    []json.RawMessage `json:"rows,omitempty"`
 }
 
-// Interval is an approximate 95 % prediction interval: prediction ± 1.96 ×
-// the learner's recent RMSE on the key (a normal approximation, common
-// practice; check its coverage before relying on it).
+// Interval is a prediction interval at a nominal level, by one of two
+// methods (learner.Scorer): "conformal", prediction ± the key's tracked
+// quantile of absolute errors, which adapts to the misses it sees (the
+// default); or "normal", prediction ± z × the key's recent RMSE, a normal
+// approximation. Check the coverage each achieved (GET /v1/learners) before
+// relying on one.
 type Interval struct {
-	Low  float64 `json:"low"`
-	High float64 `json:"high"`
+	Low    float64 `json:"low"`
+	High   float64 `json:"high"`
+	Method string  `json:"method"`
+	Level  float64 `json:"level"`
 }
 
 // PredictAnswer is the answer for one row.
@@ -297,8 +302,12 @@ func (s *Service) predictRows(snap *snapshot, name string, rows []json.RawMessag
 				where, name, p.Scored, ev.Key, s.cfg.MinScored)
 		}
 		a := PredictAnswer{Key: ev.Key, Prediction: p.Value, RecentRMSE: p.RecentRMSE, Trained: p.Trained, Scored: p.Scored}
-		if p.RecentRMSE != nil && !math.IsNaN(*p.RecentRMSE) {
-			a.Interval = &Interval{Low: p.Value - 1.96**p.RecentRMSE, High: p.Value + 1.96**p.RecentRMSE}
+		half := p.Conformal
+		if s.cfg.Interval == IntervalNormal {
+			half = p.Normal
+		}
+		if half != nil && !math.IsNaN(*half) {
+			a.Interval = &Interval{Low: p.Value - *half, High: p.Value + *half, Method: s.cfg.Interval, Level: p.Level}
 		}
 		if single {
 			resp.PredictAnswer = &a

@@ -86,6 +86,7 @@ type OverviewSettings struct {
 	TokenRequired  bool   `json:"token_required"` // on changing requests
 	DefaultLearner string `json:"default_learner"`
 	Units          string `json:"units,omitempty"` // the target's units, when configured
+	Interval       string `json:"interval"`        // the method of the intervals predict quotes
 	CurveEvery     int64  `json:"curve_every"`
 	Group          bool   `json:"group"` // an instance of a consumer group: checkpoints and restores are per partition
 }
@@ -110,7 +111,7 @@ func (s *Service) handleOverview(c echo.Context) error {
 		st.Instance = snap.group.Instance
 	}
 	out := Overview{Status: st, Caution: caution + " Recent error is each key's last " + strconv.Itoa(r.RecentWindow) + " scored events, pooled.",
-		Settings: OverviewSettings{TokenRequired: s.cfg.Token != "", DefaultLearner: s.cfg.DefaultLearner, Units: s.cfg.Units, CurveEvery: s.cfg.CurveEvery, Group: s.kafka != nil}}
+		Settings: OverviewSettings{TokenRequired: s.cfg.Token != "", DefaultLearner: s.cfg.DefaultLearner, Units: s.cfg.Units, Interval: s.cfg.Interval, CurveEvery: s.cfg.CurveEvery, Group: s.kafka != nil}}
 	for _, l := range r.Learners {
 		pts, _ := s.curves.get(l.Name)
 		out.Learners = append(out.Learners, OverviewLearner{LearnerReport: l, Curve: pts})

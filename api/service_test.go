@@ -801,3 +801,42 @@ func TestCurvesSurviveARestart(t *testing.T) {
 	r = start(t, cfg)
 	sameJSON(t, "the curve after a restart", curve(r), before)
 }
+
+// TestPredictQuotesTheIntervalAsked: predict quotes the conformal interval
+// by default and the normal one when configured, each at the engine's level
+// and equal to what an engine replayed over the same events quotes (the
+// methods themselves are checked in learner: TestQuantileTrackingBound,
+// TestConformalHoldsAfterAShift, TestIntervalCoverage).
+func TestPredictQuotesTheIntervalAsked(t *testing.T) {
+	lines := scenario(t, 1)[:400]
+	ref, _ := learner.NewEngine(engineConfig(t, serviceSpecs...))
+	replay.Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(lines, []byte("\n")), '\n'))), ref, replay.ReplayConfig{})
+	row := `{"learner":"rls:forget=0.99","key":"room-a","time":"2026-03-01T20:00:00Z","features":{"outdoor_c":6.5,"door_min":0,"shift":"night"}}`
+	var ev learner.Event
+	learner.DecodeRow([]byte(row), &ev)
+	want, err := ref.Predict("room-a", "rls:forget=0.99", &ev)
+	if err != nil || want.Conformal == nil || want.Normal == nil {
+		t.Fatalf("reference: %+v %v", want, err)
+	}
+	for _, c := range []struct {
+		method string
+		half   float64
+	}{{IntervalConformal, *want.Conformal}, {IntervalNormal, *want.Normal}} {
+		cfg := testConfig(t, t.TempDir())
+		if c.method == IntervalNormal {
+			cfg.Interval = c.method
+		}
+		r := start(t, cfg)
+		r.post(t, "", lines)
+		r.waitCovered(t, int64(len(lines)))
+		code, b := r.call(t, "POST", "/v1/predict", "", []byte(row))
+		var resp PredictResponse
+		if code != 200 || json.Unmarshal(b, &resp) != nil || resp.PredictAnswer == nil || resp.Interval == nil {
+			t.Fatalf("%s: %d %s", c.method, code, b)
+		}
+		in := resp.Interval
+		if in.Method != c.method || in.Level != learner.DefaultLevel || in.Low != want.Value-c.half || in.High != want.Value+c.half {
+			t.Errorf("%s: interval %+v, want %v ± %v at %v", c.method, *in, want.Value, c.half, learner.DefaultLevel)
+		}
+	}
+}

@@ -140,6 +140,8 @@ type Engine struct {
 
 	stateVer uint32 // while decoding: the version of the state being read
 
+	intervals intervalConfig // the prediction intervals' settings (Scorer)
+
 	lastPred []float64 // each learner's prediction for the last applied event
 	lastOK   []bool    // whether it predicted (was ready)
 }
@@ -216,7 +218,8 @@ func NewEngine(cfg Config) (*Engine, error) {
 	}
 	cfg.Score = cfg.Score.withDefaults()
 	cfg.Drift = cfg.Drift.withDefaults()
-	e := &Engine{cfg: cfg, baseline: -1, keys: newKeyIndex(0), parts: map[int32]*part{}, seed: maphash.MakeSeed()}
+	e := &Engine{cfg: cfg, baseline: -1, keys: newKeyIndex(0), parts: map[int32]*part{}, seed: maphash.MakeSeed(),
+		intervals: newIntervalConfig(cfg.Score.Level, cfg.Score.ConformalStep)}
 	e.drift = &e.cfg.Drift
 	e.schema, _, _ = NewSchema(cfg.Features)
 	for i := range cfg.Learners {
@@ -227,7 +230,7 @@ func NewEngine(cfg Config) (*Engine, error) {
 		if s.Kind == KindMean && e.baseline < 0 {
 			e.baseline = i
 		}
-		e.totals = append(e.totals, total{pool: pool{alpha: cfg.Score.Fading}})
+		e.totals = append(e.totals, total{pool: pool{alpha: cfg.Score.Fading, level: cfg.Score.Level}})
 		e.lastPred = append(e.lastPred, 0)
 		e.lastOK = append(e.lastOK, false)
 		e.scratch = append(e.scratch, nil)
@@ -385,7 +388,7 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 		if ok {
 			sc, d := &ks.slots[i].score, &ks.slots[i].drift
 			t.pool.remove(sc)
-			sc.Score(y, pred)
+			sc.score(y, pred, &e.intervals)
 			t.pool.add(sc)
 			before := d.State()
 			alarm := d.Add(math.Abs(y - pred))
@@ -481,6 +484,11 @@ type Prediction struct {
 	// RecentRMSE is the learner's RMSE over the key's recent scored events,
 	// nil before any; services derive an approximate interval from it.
 	RecentRMSE *float64
+	// Normal and Conformal are the half-widths of the intervals the two
+	// methods quote for this key at ScoreConfig.Level (Scorer), nil until
+	// the key has MinIntervalEvents recent errors.
+	Normal, Conformal *float64
+	Level             float64
 }
 
 // Predict answers for one row of features of the given key with the named
@@ -503,7 +511,10 @@ func (e *Engine) Predict(key, learner string, ev *Event) (Prediction, error) {
 	}
 	l := ks.slots[i].learner
 	m := ks.slots[i].score.Metrics()
-	p := Prediction{Trained: l.Trained(), Scored: m.Scored, RecentRMSE: m.Recent.RMSE}
+	p := Prediction{Trained: l.Trained(), Scored: m.Scored, RecentRMSE: m.Recent.RMSE, Level: e.cfg.Score.Level}
+	if sc := &ks.slots[i].score; sc.idx.Len() >= MinIntervalEvents && m.Recent.RMSE != nil {
+		p.Normal, p.Conformal = ptr(normalZ(e.cfg.Score.Level)**m.Recent.RMSE), ptr(math.Max(sc.cq, 0))
+	}
 	// Predicting does not move a time window: only training does. A row's
 	// time only feeds the time features.
 	y, ok := l.predictShared(x)
@@ -814,5 +825,10 @@ func (c Config) digest(withCap bool, maxKeys int) string {
 	}
 	fmt.Fprintf(h, "score %d %g\ndrift %g %g %d %t\n", c.Score.Recent, c.Score.Fading,
 		c.Drift.Delta, c.Drift.Lambda, c.Drift.MinEvents, c.Drift.Raw)
+	if c.Score.Level != DefaultLevel || c.Score.ConformalStep != DefaultConformalStep {
+		// Only other than the defaults, so that checkpoints from before
+		// the intervals had settings still load.
+		fmt.Fprintf(h, "intervals %g %g\n", c.Score.Level, c.Score.ConformalStep)
+	}
 	return hex.EncodeToString(h.Sum(nil))
 }

@@ -91,6 +91,7 @@ func (e *Engine) report(withKeys bool, numKeys int, positions []Position) Report
 		}
 		for _, ks := range keys {
 			kr := KeyReport{Key: ks.key, Metrics: ks.slots[i].score.Metrics(), Drift: ks.slots[i].drift.State().String()}
+			kr.Conformal.Level = e.cfg.Score.Level
 			if e.baseline >= 0 {
 				kr.Skill = Skill(kr.Metrics, ks.slots[e.baseline].score.Metrics())
 			}

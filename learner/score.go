@@ -12,6 +12,11 @@ const (
 	DefaultRecent = 500   // scored events in each key's recent window
 	DefaultFading = 0.999 // fading factor α
 	maxRecent     = 1_000_000
+	// DefaultLevel is the nominal coverage of the prediction intervals.
+	DefaultLevel = 0.9
+	// DefaultConformalStep is γ, the conformal quantile's step in units of
+	// the key's recent RMSE (see Scorer).
+	DefaultConformalStep = 0.1
 )
 
 // ScoreConfig configures prequential scoring. Zero fields take the defaults.
@@ -21,9 +26,21 @@ type ScoreConfig struct {
 	// learner, allocated as events arrive. Default: DefaultRecent.
 	Recent int
 	Fading float64 // α ∈ (0, 1). Default: DefaultFading.
+	// Level is the nominal coverage of the intervals, both methods. Default:
+	// DefaultLevel.
+	Level float64
+	// ConformalStep is γ of the conformal intervals. Default:
+	// DefaultConformalStep.
+	ConformalStep float64
 }
 
 func (c ScoreConfig) withDefaults() ScoreConfig {
+	if c.Level <= 0 || c.Level >= 1 {
+		c.Level = DefaultLevel
+	}
+	if c.ConformalStep <= 0 {
+		c.ConformalStep = DefaultConformalStep
+	}
 	if c.Recent <= 0 {
 		c.Recent = DefaultRecent
 	}
@@ -71,14 +88,47 @@ type Scorer struct {
 	fadAbs, fadSq, fadWeight float64
 
 	// Interval coverage: how often the target fell inside the interval the
-	// service would have quoted before the event, prediction ± 1.96 × the
-	// recent RMSE (once the recent window holds MinIntervalEvents errors).
+	// service would have quoted before the event (once the recent window
+	// holds MinIntervalEvents errors), by both methods, and the widths
+	// quoted. Normal: prediction ± z × the recent RMSE, z the two-sided
+	// point of the level (common practice). Conformal: prediction ± cq.
 	intervals, covered int64
+	nWidth             float64
+	cq                 float64 // the tracked quantile of |e|: the conformal half-width
+	cqCovered          int64
+	cqWidth            float64
+	cqFading           float64 // Σ α^k · held over the conformal intervals quoted: recent coverage
 }
 
-// IntervalZ is the half-width of the quoted interval in recent RMSEs: the
-// two-sided 95 % point of the normal distribution (common practice).
-const IntervalZ = 1.96
+// The conformal intervals track, per key and learner, the level quantile of
+// the absolute error |e| with the update of conformal PID control's
+// quantile tracking (Angelopoulos, Candès & Tibshirani 2023, "Conformal PID
+// Control for Time Series Prediction", NeurIPS; Gibbs & Candès 2021,
+// "Adaptive Conformal Inference Under Distribution Shift", NeurIPS, for the
+// same idea on the level): after each scored event,
+//
+//	q ← q + η (miss − (1 − level)),   miss = 1 if |e| > q, else 0,
+//
+// computed prequentially (|e| is known only after the event was predicted
+// with the interval ± q). With a fixed step η and errors bounded by B its
+// long-run miss rate is within (B + η)/(ηT) of 1 − level after T events,
+// whatever the errors do (the paper's Proposition 1). Here η = γ × the key's
+// recent RMSE before the event (γ = ScoreConfig.ConformalStep), so that the
+// step follows the scale of the errors — the paper's scale-free choice,
+// with the recent RMSE as the scale.
+
+// quantileStep is one update of the tracked quantile.
+func quantileStep(q, score, eta, level float64) float64 {
+	miss := 0.0
+	if score > q {
+		miss = 1
+	}
+	return q + eta*(miss-(1-level))
+}
+
+// normalZ is the two-sided point of the normal distribution for level:
+// Φ⁻¹((1 + level)/2) = √2 · erf⁻¹(level) (1.645 for 0.9, 1.96 for 0.95).
+func normalZ(level float64) float64 { return math.Sqrt2 * math.Erfinv(level) }
 
 // MinIntervalEvents is how many recent errors a key needs before an interval
 // is quoted and its coverage counted.
@@ -132,15 +182,46 @@ func (s *Scorer) pushRecent(e float64) (old float64, evicted bool) {
 	return old, evicted
 }
 
-// Score records one scored event.
-func (s *Scorer) Score(target, prediction float64) {
+// intervalConfig is the intervals' settings with the normal point worked
+// out once.
+type intervalConfig struct{ level, z, step float64 }
+
+func newIntervalConfig(level, step float64) intervalConfig {
+	return intervalConfig{level: level, z: normalZ(level), step: step}
+}
+
+// Score records one scored event; level and step are those of the
+// engine's ScoreConfig.
+func (s *Scorer) Score(target, prediction, level, step float64) {
+	ic := newIntervalConfig(level, step)
+	s.score(target, prediction, &ic)
+}
+
+func (s *Scorer) score(target, prediction float64, ic *intervalConfig) {
+	level, step := ic.level, ic.step
 	e := target - prediction
+	a := math.Abs(e)
+	scale := a // before any recent error, the first one sets the scale
+	if n := s.idx.Len(); n > 0 {
+		scale = math.Sqrt(math.Max(s.recSq.Value(), 0) / float64(n))
+	}
 	if n := s.idx.Len(); n >= MinIntervalEvents {
+		half := ic.z * scale
 		s.intervals++
-		if math.Abs(e) <= IntervalZ*math.Sqrt(math.Max(s.recSq.Value(), 0)/float64(n)) {
+		if a <= half {
 			s.covered++
 		}
+		s.nWidth += 2 * half
+		q := math.Max(s.cq, 0)
+		held := 0.0
+		if a <= q {
+			s.cqCovered++
+			held = 1
+		}
+		s.cqWidth += 2 * q
+		s.cqFading = held + s.alpha*s.cqFading
 	}
+	s.cq = quantileStep(s.cq, a, step*scale, level)
 	s.Scored++
 	s.sumAbs += math.Abs(e)
 	s.sumSq += e * e
@@ -195,12 +276,26 @@ type Metrics struct {
 	Bias     *float64      `json:"bias"`
 	Recent   RecentMetrics `json:"recent"`
 	Fading   Fading        `json:"fading"`
-	// Intervals is how many prediction intervals were quoted (prediction ±
-	// 1.96 × recent RMSE, before the event) and Coverage the share that held
-	// the target: near 0.95 when errors are roughly normal and steady, lower
-	// after a shift.
-	Intervals int64    `json:"intervals"`
-	Coverage  *float64 `json:"interval_coverage"`
+	// Intervals is how many prediction intervals were quoted (before each
+	// event, once a key had MinIntervalEvents recent errors), Coverage the
+	// share of the normal approximation's (prediction ± z × recent RMSE,
+	// z for the level) that held the target — near the level when errors
+	// are roughly normal and steady, lower after a shift — and Width their
+	// mean width. Conformal is the same for the conformal intervals.
+	Intervals int64            `json:"intervals"`
+	Coverage  *float64         `json:"interval_coverage"`
+	Width     *float64         `json:"interval_width"`
+	Conformal ConformalMetrics `json:"conformal"`
+}
+
+// ConformalMetrics are the conformal intervals' figures: nominal level,
+// achieved coverage over all quoted intervals and recently (fading, with
+// the scorer's fading factor), and mean width.
+type ConformalMetrics struct {
+	Level          float64  `json:"level"`
+	Coverage       *float64 `json:"coverage"`
+	RecentCoverage *float64 `json:"recent_coverage"`
+	Width          *float64 `json:"mean_width"`
 }
 
 // RecentMetrics is the error over the recent window of scored events.
@@ -236,6 +331,15 @@ type pooled struct {
 	recAbs, recSq, recErr    float64
 	fadAbs, fadSq, fadWeight float64
 	intervals, covered       int64
+	level                    float64
+	cqCovered                int64
+	nWidth, cqWidth          float64
+	cqFading, cqWeight       float64
+}
+
+// fadingWeight is Σ α^k over n quoted intervals: the weight of cqFading.
+func (s *Scorer) fadingWeight() float64 {
+	return (1 - math.Pow(s.alpha, float64(s.intervals))) / (1 - s.alpha)
 }
 
 func (p *pooled) add(s *Scorer) {
@@ -254,6 +358,11 @@ func (p *pooled) add(s *Scorer) {
 	p.fadWeight += s.fadWeight
 	p.intervals += s.intervals
 	p.covered += s.covered
+	p.cqCovered += s.cqCovered
+	p.nWidth += s.nWidth
+	p.cqWidth += s.cqWidth
+	p.cqFading += s.cqFading
+	p.cqWeight += s.fadingWeight()
 }
 
 // pool is a learner's scorers over all keys, kept as running totals: the
@@ -264,17 +373,20 @@ func (p *pooled) add(s *Scorer) {
 // partitions of a stream interleave, nor on the order keys were added.
 type pool struct {
 	alpha              float64
+	level              float64
 	scored, unscored   int64
 	recN               int64
 	intervals, covered int64
+	cqCovered          int64
 	sums               [poolSums]window.Exact
 }
 
-const poolSums = 9
+const poolSums = 13
 
 // floats lists the scorer's float sums in pool order.
 func (s *Scorer) floats() [poolSums]float64 {
-	return [poolSums]float64{s.sumAbs, s.sumSq, s.sumErr, s.recAbs.Value(), s.recSq.Value(), s.recErr.Value(), s.fadAbs, s.fadSq, s.fadWeight}
+	return [poolSums]float64{s.sumAbs, s.sumSq, s.sumErr, s.recAbs.Value(), s.recSq.Value(), s.recErr.Value(), s.fadAbs, s.fadSq, s.fadWeight,
+		s.nWidth, s.cqWidth, s.cqFading, s.fadingWeight()}
 }
 
 // add puts s into the pool.
@@ -285,6 +397,7 @@ func (p *pool) add(s *Scorer) {
 	p.recN += int64(s.idx.Len())
 	p.intervals += s.intervals
 	p.covered += s.covered
+	p.cqCovered += s.cqCovered
 	for i, v := range s.floats() {
 		p.sums[i].Add(v)
 	}
@@ -297,6 +410,7 @@ func (p *pool) remove(s *Scorer) {
 	p.recN -= int64(s.idx.Len())
 	p.intervals -= s.intervals
 	p.covered -= s.covered
+	p.cqCovered -= s.cqCovered
 	for i, v := range s.floats() {
 		p.sums[i].Sub(v)
 	}
@@ -304,11 +418,13 @@ func (p *pool) remove(s *Scorer) {
 
 // metrics rounds the totals and reports them as a pool of one would.
 func (p *pool) metrics() Metrics {
-	q := pooled{alpha: p.alpha, scored: p.scored, unscored: p.unscored, recN: int(p.recN), intervals: p.intervals, covered: p.covered}
+	q := pooled{alpha: p.alpha, level: p.level, scored: p.scored, unscored: p.unscored, recN: int(p.recN), intervals: p.intervals, covered: p.covered,
+		cqCovered: p.cqCovered}
 	v := func(i int) float64 { return p.sums[i].Value() }
 	q.sumAbs, q.sumSq, q.sumErr = v(0), v(1), v(2)
 	q.recAbs, q.recSq, q.recErr = v(3), v(4), v(5)
 	q.fadAbs, q.fadSq, q.fadWeight = v(6), v(7), v(8)
+	q.nWidth, q.cqWidth, q.cqFading, q.cqWeight = v(9), v(10), v(11), v(12)
 	return q.metrics()
 }
 
@@ -322,9 +438,14 @@ func (p *pool) recent() (n int64, mae, rmse *float64) {
 }
 
 func (p *pooled) metrics() Metrics {
-	m := Metrics{Scored: p.scored, Unscored: p.unscored, Fading: Fading{Alpha: p.alpha}, Intervals: p.intervals}
+	m := Metrics{Scored: p.scored, Unscored: p.unscored, Fading: Fading{Alpha: p.alpha}, Intervals: p.intervals, Conformal: ConformalMetrics{Level: p.level}}
 	if p.intervals > 0 {
-		m.Coverage = ptr(float64(p.covered) / float64(p.intervals))
+		n := float64(p.intervals)
+		m.Coverage, m.Width = ptr(float64(p.covered)/n), ptr(p.nWidth/n)
+		m.Conformal.Coverage, m.Conformal.Width = ptr(float64(p.cqCovered)/n), ptr(p.cqWidth/n)
+		if p.cqWeight > 0 {
+			m.Conformal.RecentCoverage = ptr(p.cqFading / p.cqWeight)
+		}
 	}
 	if p.scored > 0 {
 		n := float64(p.scored)
@@ -361,6 +482,11 @@ func (s *Scorer) encode(w *encoder) {
 	w.f64(s.fadWeight)
 	w.i64(s.intervals)
 	w.i64(s.covered)
+	w.f64(s.nWidth)
+	w.f64(s.cq)
+	w.i64(s.cqCovered)
+	w.f64(s.cqWidth)
+	w.f64(s.cqFading)
 }
 
 func (s *Scorer) decode(r *decoder, version uint32) {
@@ -388,5 +514,8 @@ func (s *Scorer) decode(r *decoder, version uint32) {
 	s.fadAbs, s.fadSq, s.fadWeight = r.f64(), r.f64(), r.f64()
 	if version >= 4 {
 		s.intervals, s.covered = r.i64(), r.i64()
+	}
+	if version >= 8 {
+		s.nWidth, s.cq, s.cqCovered, s.cqWidth, s.cqFading = r.f64(), r.f64(), r.i64(), r.f64(), r.f64()
 	}
 }

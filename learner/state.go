@@ -45,8 +45,10 @@ const (
 	// alarms per partition too, so that a partition's state can move whole
 	// (Split, Merge); before 6 they are given to the lowest partition. 7
 	// keeps each partition's range of event times applied (for checkpoints
-	// to say what they cover); before 7 it is unknown.
-	stateVersion = 7
+	// to say what they cover); before 7 it is unknown. 8 adds the
+	// conformal intervals and the intervals' widths to the scorers; before
+	// 8 they start from nothing.
+	stateVersion = 8
 	maxNames     = MaxFeatures
 	maxSections  = 1 << 20
 )

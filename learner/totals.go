@@ -35,6 +35,7 @@ type LearnerTotals struct {
 	RecentN   int64                  `json:"recent_n"`
 	Intervals int64                  `json:"intervals"`
 	Covered   int64                  `json:"covered"`
+	CqCovered int64                  `json:"conformal_covered"`
 	Sums      [poolSums]window.Exact `json:"sums"`
 	States    [Drift + 1]int64       `json:"states"`
 	Late      int64                  `json:"late"`
@@ -51,7 +52,7 @@ func (e *Engine) Totals() Totals {
 	for i := range e.totals {
 		s := &e.totals[i]
 		lt := LearnerTotals{Alpha: s.pool.alpha, Scored: s.pool.scored, Unscored: s.pool.unscored, RecentN: s.pool.recN,
-			Intervals: s.pool.intervals, Covered: s.pool.covered, Sums: s.pool.sums, States: s.states, Late: s.late, Held: s.held, Alarms: s.alarms}
+			Intervals: s.pool.intervals, Covered: s.pool.covered, CqCovered: s.pool.cqCovered, Sums: s.pool.sums, States: s.states, Late: s.late, Held: s.held, Alarms: s.alarms}
 		if a := s.lastAlarm; a != nil {
 			c := *a
 			lt.LastAlarm, lt.LastTime = &c, a.Time
@@ -90,6 +91,7 @@ func (t *Totals) Add(o Totals) error {
 		a.RecentN += b.RecentN
 		a.Intervals += b.Intervals
 		a.Covered += b.Covered
+		a.CqCovered += b.CqCovered
 		for j := range a.Sums {
 			a.Sums[j].AddExact(&b.Sums[j])
 		}
@@ -125,7 +127,8 @@ func (c Config) ReportOf(t Totals) (Report, error) {
 	e.applied, e.rejected, e.duplicates, e.skipped, e.ignored, e.keyBase = t.Applied, t.Rejected, t.Duplicates, t.Skipped, t.Ignored, t.KeyBytes
 	for i, lt := range t.Learners {
 		s := &e.totals[i]
-		s.pool = pool{alpha: lt.Alpha, scored: lt.Scored, unscored: lt.Unscored, recN: lt.RecentN, intervals: lt.Intervals, covered: lt.Covered, sums: lt.Sums}
+		s.pool = pool{alpha: lt.Alpha, level: c.Score.withDefaults().Level, scored: lt.Scored, unscored: lt.Unscored, recN: lt.RecentN,
+			intervals: lt.Intervals, covered: lt.Covered, cqCovered: lt.CqCovered, sums: lt.Sums}
 		s.states, s.late, s.held, s.alarms = lt.States, lt.Late, lt.Held, lt.Alarms
 		if lt.LastAlarm != nil {
 			a := *lt.LastAlarm

@@ -89,6 +89,11 @@ function render() {
   $("r-partition-label").hidden = !o.settings.group;
   renderChart(o);
   renderLearners(o.learners);
+  if (o.learners.length) {
+    $("interval-hint").textContent = `How often each method's interval held the target (nominal ${pct(o.learners[0].conformal.level)}), ` +
+      `and how wide it was on average${o.settings.units ? " (" + o.settings.units + ")" : ""}; predict quotes the ${o.settings.interval} one. ` +
+      "The conformal interval adapts to the misses it sees; the normal one assumes steady, normal errors.";
+  }
   renderNotes(o);
   renderCheckpoints(o.checkpoints);
   renderVersions(o.checkpoints);
@@ -222,9 +227,15 @@ function renderLearners(ls) {
     const cell = (v, digits) => el("td", { "data-value": v === null || v === undefined ? "" : String(v) }, num(v, digits));
     const tr = el("tr", { class: i === 0 && l.recent.rmse !== null ? "leader" : "", "data-learner": l.name },
       el("th", { scope: "row" }, l.name), cell(l.recent.rmse), cell(l.recent.mae), cell(l.rmse), cell(l.skill, 3),
+      el("td", { "data-value": l.conformal.coverage ?? "" }, `${pct(l.conformal.coverage)} · ${pct(l.interval_coverage)}`),
+      el("td", {}, `${num(l.conformal.mean_width, 3)} · ${num(l.interval_width, 3)}`),
       el("td", {}, String(l.scored)), el("td", { class: l.drift.state }, l.drift.state), el("td", {}, String(l.drift.alarms)));
     return tr;
   }));
+}
+
+function pct(v) {
+  return v === null || v === undefined ? "–" : (100 * v).toFixed(1) + " %";
 }
 
 function renderNotes(o) {

@@ -21,13 +21,15 @@ import (
 
 // engineFlags are the flags that shape the engine, shared by replay and demo.
 type engineFlags struct {
-	learners     multi
-	timeFeatures bool
-	hashBuckets  int
-	maxKeys      int
-	memoryBudget byteSize
-	numeric      string
-	categorical  string
+	learners      multi
+	timeFeatures  bool
+	hashBuckets   int
+	maxKeys       int
+	memoryBudget  byteSize
+	numeric       string
+	categorical   string
+	level         float64
+	conformalStep float64
 }
 
 func (f *engineFlags) register(fs *flag.FlagSet) {
@@ -38,6 +40,8 @@ func (f *engineFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&f.categorical, "categorical", "", "fix the schema's categorical (string) features, comma-separated")
 	fs.IntVar(&f.maxKeys, "max-keys", learner.DefaultMaxKeys, "cap on distinct keys; events for new keys past it are rejected")
 	f.memoryBudget = byteSize(defaultMemoryBudget())
+	fs.Float64Var(&f.level, "interval-level", learner.DefaultLevel, "nominal coverage of the prediction intervals (both methods), in (0, 1)")
+	fs.Float64Var(&f.conformalStep, "conformal-step", learner.DefaultConformalStep, "γ of the conformal intervals: their quantile's step, in recent RMSEs")
 	fs.Var(&f.memoryBudget, "memory-budget", "most the model state may hold (e.g. 8GiB, 512MiB; 0 for none); events of new keys past it are\nrejected, known keys go on learning; the default is half of this machine's memory")
 }
 
@@ -46,6 +50,13 @@ func (f *engineFlags) config() (learner.Config, error) {
 		Features: learner.FeatureConfig{HashBuckets: f.hashBuckets, TimeFeatures: f.timeFeatures,
 			Numeric: splitList(f.numeric), Categorical: splitList(f.categorical)},
 		MaxKeys: f.maxKeys, MemoryBudget: int64(f.memoryBudget),
+		Score: learner.ScoreConfig{Level: f.level, ConformalStep: f.conformalStep},
+	}
+	if !(f.level > 0 && f.level < 1) {
+		return cfg, fmt.Errorf("--interval-level %g: want a coverage between 0 and 1, e.g. 0.9", f.level)
+	}
+	if !(f.conformalStep > 0 && f.conformalStep <= 1) {
+		return cfg, fmt.Errorf("--conformal-step %g: want a step in (0, 1], e.g. %g", f.conformalStep, learner.DefaultConformalStep)
 	}
 	var errs []error
 	for _, text := range f.learners {

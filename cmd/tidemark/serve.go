@@ -34,6 +34,7 @@ type fileConfig struct {
 	Learners           []string `yaml:"learners"`
 	DefaultLearner     string   `yaml:"default_learner"`
 	Units              string   `yaml:"units"`
+	Interval           string   `yaml:"interval"`
 	CheckpointEvery    int64    `yaml:"checkpoint_every"`
 	CheckpointInterval string   `yaml:"checkpoint_interval"`
 	Retain             int      `yaml:"retain"`
@@ -108,6 +109,7 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	every := fs.Int64("checkpoint-every", api.DefaultCheckpointEvery, "events between periodic checkpoints")
 	interval := fs.Duration("checkpoint-interval", api.DefaultCheckpointInterval, "also checkpoint this long after the last one")
 	units := fs.String("units", "", "the target's `UNITS` (e.g. kW), shown on the page")
+	intervalMethod := fs.String("interval", api.IntervalConformal, "the intervals predict quotes: conformal (adapts to the misses it sees) or normal (± z × recent RMSE)")
 	defaultLearner := fs.String("default-learner", "", "the learner `NAME` predict asks when a request names none (default: the first --learner)")
 	minScored := fs.Int64("min-scored", api.DefaultMinScored, "events a learner must be scored on for a key before predict answers (-1: none)")
 	history := fs.String("history", "", "learn from this history `FILE` (NDJSON, plain, .gz or .zst; position = line number) instead of the journal")
@@ -228,6 +230,7 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	cfg.Retain, cfg.BodyLimit, cfg.MaxRows = fc.Retain, fc.BodyLimit, fc.MaxRows
 	cfg.DefaultLearner = pick("default-learner", *defaultLearner, fc.DefaultLearner)
 	cfg.Units = pick("units", *units, fc.Units)
+	cfg.Interval = pick("interval", *intervalMethod, fc.Interval)
 
 	if !set["learner"] {
 		ef.learners = fc.Learners
