@@ -32,10 +32,11 @@ func WriteTable(w io.Writer, r learner.Report) error {
 	})
 	fmt.Fprintf(w, "%d events applied, %d rejected, %d keys\n\n", r.Events, r.Rejected, r.Keys)
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
-	fmt.Fprintln(tw, "learner\tscored\tunscored\tmae\trmse\tbias\trecent mae\trecent rmse\tskill\tdrift\talarms\t")
+	fmt.Fprintln(tw, "learner\tscored\tunscored\tmae\trmse\tbias\trecent mae\trecent rmse\tskill\theld: conformal\tnormal\tdrift\talarms\t")
 	for _, l := range ls {
-		fmt.Fprintf(tw, "%s\t%d\t%d\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%d\t\n", l.Name, l.Scored, l.Unscored,
-			num(l.MAE), num(l.RMSE), num(l.Bias), num(l.Recent.MAE), num(l.Recent.RMSE), num(l.Skill), l.Drift.State, l.Drift.Alarms)
+		fmt.Fprintf(tw, "%s\t%d\t%d\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%d\t\n", l.Name, l.Scored, l.Unscored,
+			num(l.MAE), num(l.RMSE), num(l.Bias), num(l.Recent.MAE), num(l.Recent.RMSE), num(l.Skill),
+			num(l.Conformal.Coverage), num(l.Coverage), l.Drift.State, l.Drift.Alarms)
 	}
 	if err := tw.Flush(); err != nil {
 		return err
@@ -55,8 +56,13 @@ func WriteTable(w io.Writer, r learner.Report) error {
 			return err
 		}
 	}
-	_, err := fmt.Fprintf(w, "\nrecent = the last %d scored events; skill = 1 − rmse/rmse(first mean learner).\n"+
-		"Look at a learner's recent error before acting on its predictions.\n", r.RecentWindow)
+	level := 0.0
+	if len(ls) > 0 {
+		level = ls[0].Conformal.Level
+	}
+	_, err := fmt.Fprintf(w, "\nrecent = the last %d scored events; skill = 1 − rmse/rmse(first mean learner); held = the share of\n"+
+		"intervals (nominal %g) that held the target, conformal and normal approximation.\n"+
+		"Look at a learner's recent error before acting on its predictions.\n", r.RecentWindow, level)
 	return err
 }
 
