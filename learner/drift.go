@@ -74,8 +74,8 @@ type PageHinkley struct {
 	m2      float64
 	cum     float64
 	min     float64
-	since   int64 // events since the last alarm (or since the start)
 	alarms  int64
+	since   int32 // events since the last alarm (or since the start), saturating
 	alarmed bool
 }
 
@@ -100,7 +100,9 @@ func (p *PageHinkley) Add(x float64) bool {
 	d := x - p.mean
 	p.mean += d / float64(p.n)
 	p.m2 += d * (x - p.mean)
-	p.since++
+	if p.since < math.MaxInt32 {
+		p.since++
+	}
 	if !p.cfg.Raw && (p.n < 2 || sd == 0) {
 		return false // no scale yet
 	}
@@ -125,7 +127,7 @@ func (p *PageHinkley) Alarms() int64 { return p.alarms }
 // the statistic is above λ/2, and stable otherwise.
 func (p *PageHinkley) State() DriftState {
 	switch {
-	case p.alarmed && p.since <= int64(p.cfg.MinEvents):
+	case p.alarmed && int64(p.since) <= int64(p.cfg.MinEvents):
 		return Drift
 	case p.Statistic() > p.cfg.Lambda/2:
 		return Warning
@@ -139,12 +141,14 @@ func (p *PageHinkley) encode(w *encoder) {
 	w.f64(p.m2)
 	w.f64(p.cum)
 	w.f64(p.min)
-	w.i64(p.since)
+	w.i64(int64(p.since))
 	w.i64(p.alarms)
 	w.bool(p.alarmed)
 }
 
 func (p *PageHinkley) decode(r *decoder) {
 	p.n, p.mean, p.m2, p.cum, p.min = r.i64(), r.f64(), r.f64(), r.f64(), r.f64()
-	p.since, p.alarms, p.alarmed = r.i64(), r.i64(), r.bool()
+	since := r.i64()
+	p.since = int32(min(max(since, 0), math.MaxInt32))
+	p.alarms, p.alarmed = r.i64(), r.bool()
 }
