@@ -97,7 +97,11 @@ type Scorer struct {
 	cq                 float64 // the tracked quantile of |e|: the conformal half-width
 	cqCovered          int64
 	cqWidth            float64
-	cqFading           float64 // Σ α^k · held over the conformal intervals quoted: recent coverage
+	// The recent coverage of the conformal intervals, fading with the
+	// scorer's α: Σ α^k · held and Σ α^k over the intervals quoted. Single
+	// precision (a figure to read, not to add up exactly), so that a key of
+	// rls + mean stays in its memory size class.
+	cqFading, cqFadW float32
 }
 
 // The conformal intervals track, per key and learner, the level quantile of
@@ -219,7 +223,8 @@ func (s *Scorer) score(target, prediction float64, ic *intervalConfig) {
 			held = 1
 		}
 		s.cqWidth += 2 * q
-		s.cqFading = held + s.alpha*s.cqFading
+		s.cqFading = float32(held) + float32(s.alpha)*s.cqFading
+		s.cqFadW = 1 + float32(s.alpha)*s.cqFadW
 	}
 	s.cq = quantileStep(s.cq, a, step*scale, level)
 	s.Scored++
@@ -337,11 +342,6 @@ type pooled struct {
 	cqFading, cqWeight       float64
 }
 
-// fadingWeight is Σ α^k over n quoted intervals: the weight of cqFading.
-func (s *Scorer) fadingWeight() float64 {
-	return (1 - math.Pow(s.alpha, float64(s.intervals))) / (1 - s.alpha)
-}
-
 func (p *pooled) add(s *Scorer) {
 	p.alpha = s.alpha
 	p.scored += s.Scored
@@ -361,8 +361,8 @@ func (p *pooled) add(s *Scorer) {
 	p.cqCovered += s.cqCovered
 	p.nWidth += s.nWidth
 	p.cqWidth += s.cqWidth
-	p.cqFading += s.cqFading
-	p.cqWeight += s.fadingWeight()
+	p.cqFading += float64(s.cqFading)
+	p.cqWeight += float64(s.cqFadW)
 }
 
 // pool is a learner's scorers over all keys, kept as running totals: the
@@ -386,7 +386,7 @@ const poolSums = 13
 // floats lists the scorer's float sums in pool order.
 func (s *Scorer) floats() [poolSums]float64 {
 	return [poolSums]float64{s.sumAbs, s.sumSq, s.sumErr, s.recAbs.Value(), s.recSq.Value(), s.recErr.Value(), s.fadAbs, s.fadSq, s.fadWeight,
-		s.nWidth, s.cqWidth, s.cqFading, s.fadingWeight()}
+		s.nWidth, s.cqWidth, float64(s.cqFading), float64(s.cqFadW)}
 }
 
 // add puts s into the pool.
@@ -486,7 +486,8 @@ func (s *Scorer) encode(w *encoder) {
 	w.f64(s.cq)
 	w.i64(s.cqCovered)
 	w.f64(s.cqWidth)
-	w.f64(s.cqFading)
+	w.f64(float64(s.cqFading))
+	w.f64(float64(s.cqFadW))
 }
 
 func (s *Scorer) decode(r *decoder, version uint32) {
@@ -516,6 +517,7 @@ func (s *Scorer) decode(r *decoder, version uint32) {
 		s.intervals, s.covered = r.i64(), r.i64()
 	}
 	if version >= 8 {
-		s.nWidth, s.cq, s.cqCovered, s.cqWidth, s.cqFading = r.f64(), r.f64(), r.i64(), r.f64(), r.f64()
+		s.nWidth, s.cq, s.cqCovered, s.cqWidth = r.f64(), r.f64(), r.i64(), r.f64()
+		s.cqFading, s.cqFadW = float32(r.f64()), float32(r.f64())
 	}
 }
