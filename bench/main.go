@@ -61,7 +61,7 @@ func main() {
 	asJSON := flag.Bool("json", false, "print a JSON array of results")
 	flag.BoolVar(&quick, "quick", false, "shorter runs (under a minute)")
 	child := flag.String("replay-child", "", "internal: replay this history and print events/s (the keys case's child process)")
-	only := flag.String("only", "", "run only the named extra: keys, flood, restore, group or intervals")
+	only := flag.String("only", "", "run only the named extra: keys, flood, restore, group, intervals or drift")
 	writeKeys := flag.String("write-keys-history", "", "write the keys case's history (2 M events, 10⁶ keys) to this file and exit")
 	ckDir := flag.String("checkpoint-dir", "", "with -replay-child: then time a checkpoint of the state written there and loaded back")
 	loadChildDir := flag.String("load-child", "", "internal: load the newest checkpoint in this directory and print the seconds it took (the keys case's child process)")
@@ -105,6 +105,9 @@ func main() {
 	case "intervals":
 		fmt.Print(intervalCoverage())
 		return
+	case "drift":
+		fmt.Print(driftDetectors())
+		return
 	}
 	bt := "1s"
 	if quick {
@@ -112,7 +115,7 @@ func main() {
 	}
 	flag.Set("test.benchtime", bt)
 	results := []result{knnPredict(), knnLearn(), rlsUpdate(), slidingUpdate(), replayThroughput(), httpPredict(), kafkaIntake()}
-	extras := []string{growth(), memory(), onlineVsBatch(), keysScale(), rejectFlood(), restoreSkip(), groupScale(), intervalCoverage()}
+	extras := []string{growth(), memory(), onlineVsBatch(), keysScale(), rejectFlood(), restoreSkip(), groupScale(), intervalCoverage(), driftDetectors()}
 	ok := true
 	for i := range results {
 		r := &results[i]

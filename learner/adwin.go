@@ -191,3 +191,50 @@ func (a *ADWIN) State(minEvents int) DriftState {
 	}
 	return Stable
 }
+
+// clone returns a copy that shares nothing with a.
+func (a *ADWIN) clone() *ADWIN {
+	c := *a
+	c.levels = make([][]adwinBucket, len(a.levels))
+	for i, l := range a.levels {
+		c.levels[i] = append(make([]adwinBucket, 0, a.m+1), l...)
+	}
+	return &c
+}
+
+func (a *ADWIN) encode(w *encoder) {
+	w.i64(a.n)
+	w.f64(a.sum)
+	w.f64(a.m2)
+	w.i64(a.alarms)
+	w.i64(int64(a.since))
+	w.bool(a.alarmed)
+	w.int(len(a.levels))
+	for _, l := range a.levels {
+		w.int(len(l))
+		for _, b := range l {
+			w.f64(b.sum)
+			w.f64(b.m2)
+		}
+	}
+}
+
+func (a *ADWIN) decode(r *decoder) {
+	a.n, a.sum, a.m2, a.alarms = r.i64(), r.f64(), r.f64(), r.i64()
+	a.since = int32(min(max(r.i64(), 0), math.MaxInt32))
+	a.alarmed = r.bool()
+	nl := r.count(64, 4)
+	a.levels = make([][]adwinBucket, nl)
+	var held int64
+	for i := range a.levels {
+		nb := r.count(a.m+1, 16)
+		a.levels[i] = make([]adwinBucket, nb, a.m+1)
+		for j := range a.levels[i] {
+			a.levels[i][j] = adwinBucket{sum: r.f64(), m2: r.f64()}
+		}
+		held += int64(nb) << i
+	}
+	if r.err == nil && held != a.n {
+		r.fail("an ADWIN window whose buckets do not hold its length")
+	}
+}

@@ -96,3 +96,55 @@ func TestADWINDetectsAShiftInTime(t *testing.T) {
 	}
 	t.Logf("a rise of %.1f after %.0f values: caught within %d values (guarantee: %d)", shift, n0, worst, bound)
 }
+
+// TestADWINInTheEngine: with ADWIN chosen, the engine's drift watch raises
+// alarms on the partitioned stream's shift; its state survives encoding to
+// the byte (same digest); three engines of two partitions each, merged,
+// hold the state of one engine that applied every event; and a published
+// copy keeps what it showed while the engine goes on (its detectors are
+// copied, not shared).
+func TestADWINInTheEngine(t *testing.T) {
+	cfg := Config{Drift: DriftConfig{Method: DriftADWIN}}
+	evs, pos := partitioned(6000)
+	one := mustEngine(t, cfg, partKinds...)
+	var parts [3]*Engine
+	for i := range parts {
+		parts[i] = mustEngine(t, cfg, partKinds...)
+	}
+	half := len(evs) / 2
+	var pub *Engine
+	var shown string
+	for i, ev := range evs {
+		if i == half {
+			pub = one.Publish()
+			shown = reportJSON(t, pub)
+		}
+		one.Apply(pos[i], ev)
+		parts[pos[i].Partition%3].Apply(pos[i], ev)
+	}
+	if one.Alarms() == 0 {
+		t.Fatal("ADWIN raised no alarm on a stream with a shift")
+	}
+	if reportJSON(t, pub) != shown {
+		t.Error("a published copy changed while the engine went on")
+	}
+	d := mustEngine(t, cfg, partKinds...)
+	if err := d.Decode(one.Encode(nil)); err != nil {
+		t.Fatal(err)
+	}
+	if d.Digest() != one.Digest() || reportJSON(t, d) != reportJSON(t, one) {
+		t.Error("decoded, the ADWIN state differs")
+	}
+	m := parts[0]
+	for _, o := range parts[1:] {
+		if err := m.Merge(o); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if m.Digest() != one.Digest() || reportJSON(t, m) != reportJSON(t, one) {
+		t.Error("merged, the engines differ from one engine")
+	}
+	if mustEngine(t, Config{}, partKinds...).Config().Digest() == one.Config().Digest() {
+		t.Error("the configuration digest does not tell the detectors apart")
+	}
+}

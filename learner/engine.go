@@ -72,6 +72,9 @@ func (c *Config) Validate() error {
 	if _, _, err := NewSchema(c.Features); err != nil {
 		errs = append(errs, err)
 	}
+	if m := c.Drift.Method; m != "" && m != DriftPageHinkley && m != DriftADWIN {
+		errs = append(errs, fmt.Errorf("%w: drift method %q: want %s or %s", ErrInvalidSpec, m, DriftPageHinkley, DriftADWIN))
+	}
 	return errors.Join(errs...)
 }
 
@@ -772,13 +775,13 @@ func (e *Engine) own(ks *keyState) *keyState {
 			s, d := &ks.slots[i], &c.slots[i]
 			d.learner = s.learner.cloneInto(d.learner)
 			s.score.cloneInto(&d.score)
-			d.drift, d.held = s.drift, s.held
+			d.drift, d.held = s.drift.clone(), s.held
 		}
 	} else {
 		c = allocKey(len(ks.slots))
 		for i := range ks.slots {
 			s := &ks.slots[i]
-			c.slots[i] = slot{learner: s.learner.clone(), score: s.score.clone(), drift: s.drift, held: s.held}
+			c.slots[i] = slot{learner: s.learner.clone(), score: s.score.clone(), drift: s.drift.clone(), held: s.held}
 		}
 	}
 	c.key, c.partition, c.hash, c.epoch, c.idx = ks.key, ks.partition, ks.hash, e.epoch, ks.idx
@@ -825,6 +828,9 @@ func (c Config) digest(withCap bool, maxKeys int) string {
 	}
 	fmt.Fprintf(h, "score %d %g\ndrift %g %g %d %t\n", c.Score.Recent, c.Score.Fading,
 		c.Drift.Delta, c.Drift.Lambda, c.Drift.MinEvents, c.Drift.Raw)
+	if c.Drift.Method != DriftPageHinkley {
+		fmt.Fprintf(h, "drift method %s %g\n", c.Drift.Method, c.Drift.ADWINDelta)
+	}
 	if c.Score.Level != DefaultLevel || c.Score.ConformalStep != DefaultConformalStep {
 		// Only other than the defaults, so that checkpoints from before
 		// the intervals had settings still load.

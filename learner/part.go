@@ -162,7 +162,7 @@ func (e *Engine) moveFrom(o *Engine, take func(int32) bool) {
 		c.hash = maphash.String(e.seed, ks.key)
 		for i := range ks.slots {
 			s := &ks.slots[i]
-			c.slots[i] = slot{learner: s.learner.clone(), score: s.score.clone(), drift: s.drift, held: s.held}
+			c.slots[i] = slot{learner: s.learner.clone(), score: s.score.clone(), drift: s.drift.clone(), held: s.held}
 			c.slots[i].learner.rebind(&e.scratch[i])
 			c.slots[i].drift.cfg = e.drift
 		}

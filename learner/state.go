@@ -47,8 +47,9 @@ const (
 	// keeps each partition's range of event times applied (for checkpoints
 	// to say what they cover); before 7 it is unknown. 8 adds the
 	// conformal intervals and the intervals' widths to the scorers; before
-	// 8 they start from nothing.
-	stateVersion = 8
+	// 8 they start from nothing. 9 adds the ADWIN detector, when the
+	// configuration chooses it.
+	stateVersion = 9
 	maxNames     = MaxFeatures
 	maxSections  = 1 << 20
 )

@@ -30,6 +30,7 @@ type engineFlags struct {
 	categorical   string
 	level         float64
 	conformalStep float64
+	drift         string
 }
 
 func (f *engineFlags) register(fs *flag.FlagSet) {
@@ -40,6 +41,7 @@ func (f *engineFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&f.categorical, "categorical", "", "fix the schema's categorical (string) features, comma-separated")
 	fs.IntVar(&f.maxKeys, "max-keys", learner.DefaultMaxKeys, "cap on distinct keys; events for new keys past it are rejected")
 	f.memoryBudget = byteSize(defaultMemoryBudget())
+	fs.StringVar(&f.drift, "drift", learner.DriftPageHinkley, "drift detector on each learner's error per key: page-hinkley or adwin (Bifet & Gavaldà 2007; costlier)")
 	fs.Float64Var(&f.level, "interval-level", learner.DefaultLevel, "nominal coverage of the prediction intervals (both methods), in (0, 1)")
 	fs.Float64Var(&f.conformalStep, "conformal-step", learner.DefaultConformalStep, "γ of the conformal intervals: their quantile's step, in recent RMSEs")
 	fs.Var(&f.memoryBudget, "memory-budget", "most the model state may hold (e.g. 8GiB, 512MiB; 0 for none); events of new keys past it are\nrejected, known keys go on learning; the default is half of this machine's memory")
@@ -51,6 +53,7 @@ func (f *engineFlags) config() (learner.Config, error) {
 			Numeric: splitList(f.numeric), Categorical: splitList(f.categorical)},
 		MaxKeys: f.maxKeys, MemoryBudget: int64(f.memoryBudget),
 		Score: learner.ScoreConfig{Level: f.level, ConformalStep: f.conformalStep},
+		Drift: learner.DriftConfig{Method: f.drift},
 	}
 	if !(f.level > 0 && f.level < 1) {
 		return cfg, fmt.Errorf("--interval-level %g: want a coverage between 0 and 1, e.g. 0.9", f.level)

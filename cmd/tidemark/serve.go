@@ -35,6 +35,7 @@ type fileConfig struct {
 	DefaultLearner     string   `yaml:"default_learner"`
 	Units              string   `yaml:"units"`
 	Interval           string   `yaml:"interval"`
+	Drift              string   `yaml:"drift"`
 	CheckpointEvery    int64    `yaml:"checkpoint_every"`
 	CheckpointInterval string   `yaml:"checkpoint_interval"`
 	Retain             int      `yaml:"retain"`
@@ -237,6 +238,9 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	}
 	if !set["time-features"] {
 		ef.timeFeatures = ef.timeFeatures || fc.Features.TimeFeatures
+	}
+	if !set["drift"] && fc.Drift != "" {
+		ef.drift = fc.Drift
 	}
 	if !set["hash-buckets"] && fc.Features.HashBuckets != 0 {
 		ef.hashBuckets = fc.Features.HashBuckets
