@@ -194,7 +194,10 @@ type Interval struct {
 
 // PredictAnswer is the answer for one row.
 type PredictAnswer struct {
-	Key        string    `json:"key"`
+	Key string `json:"key"`
+	// AnsweredBy names the learner that answered when the request asked
+	// for the key's leader ("learner":"leader").
+	AnsweredBy string    `json:"answered_by,omitempty"`
 	Prediction float64   `json:"prediction"`
 	Interval   *Interval `json:"interval,omitempty"`
 	RecentRMSE *float64  `json:"recent_rmse"`
@@ -251,8 +254,11 @@ func (s *Service) handlePredict(c echo.Context) error {
 		return httpErr(http.StatusRequestEntityTooLarge, "%d rows, more than the limit of %d rows per request (--max-rows); send fewer per request", len(rows), s.cfg.MaxRows)
 	}
 	name, chosen := req.Learner, "request"
-	if name == "" {
+	switch name {
+	case "":
 		name, chosen = s.cfg.DefaultLearner, "default"
+	case learner.LeaderName:
+		chosen = "leader"
 	}
 	snap := s.holdState()
 	defer snap.state.eng.Release()
@@ -302,6 +308,9 @@ func (s *Service) predictRows(snap *snapshot, name string, rows []json.RawMessag
 				where, name, p.Scored, ev.Key, s.cfg.MinScored)
 		}
 		a := PredictAnswer{Key: ev.Key, Prediction: p.Value, RecentRMSE: p.RecentRMSE, Trained: p.Trained, Scored: p.Scored}
+		if name == learner.LeaderName {
+			a.AnsweredBy = p.Learner
+		}
 		half := p.Conformal
 		if s.cfg.Interval == IntervalNormal {
 			half = p.Normal

@@ -840,3 +840,40 @@ func TestPredictQuotesTheIntervalAsked(t *testing.T) {
 		}
 	}
 }
+
+// TestPredictAsksTheLeader: with a per-key leader kept, a predict that asks
+// for "leader" is answered by the learner leading on the key, named in the
+// answer, equal to an engine replayed over the same events; without a
+// leader kept the request is refused and says why.
+func TestPredictAsksTheLeader(t *testing.T) {
+	lines := scenario(t, 1)[:400]
+	ecfg := engineConfig(t, serviceSpecs...)
+	ecfg.Leader.On = true
+	ref, _ := learner.NewEngine(ecfg)
+	replay.Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(append(bytes.Join(lines, []byte("\n")), '\n'))), ref, replay.ReplayConfig{})
+	lead, ok := ref.Leader("room-a")
+	if !ok {
+		t.Fatal("no leader on room-a in the reference")
+	}
+	row := `{"key":"room-a","time":"2026-03-01T20:00:00Z","features":{"outdoor_c":6.5,"door_min":0,"shift":"night"}}`
+	var ev learner.Event
+	learner.DecodeRow([]byte(row), &ev)
+	want, _ := ref.Predict("room-a", lead, &ev)
+	cfg := testConfig(t, t.TempDir())
+	cfg.Engine = ecfg
+	r := start(t, cfg)
+	r.post(t, "", lines)
+	r.waitCovered(t, int64(len(lines)))
+	code, b := r.call(t, "POST", "/v1/predict", "", []byte(`{"learner":"leader",`+row[1:]))
+	var resp PredictResponse
+	if code != 200 || json.Unmarshal(b, &resp) != nil || resp.PredictAnswer == nil || resp.LearnerChosen != "leader" ||
+		resp.PredictAnswer.AnsweredBy != lead || resp.Prediction != want.Value {
+		t.Errorf("predict the leader: %d %s; want %s's %v", code, b, lead, want.Value)
+	}
+	r2 := start(t, testConfig(t, t.TempDir()))
+	r2.post(t, "", lines[:50])
+	r2.waitCovered(t, 50)
+	if code, b := r2.call(t, "POST", "/v1/predict", "", []byte(`{"learner":"leader",`+row[1:])); code != 404 || !strings.Contains(string(b), "--leader") {
+		t.Errorf("the leader without one kept: %d %s", code, b)
+	}
+}

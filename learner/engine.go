@@ -45,6 +45,7 @@ type Config struct {
 	MemoryBudget int64
 	Score        ScoreConfig
 	Drift        DriftConfig
+	Leader       LeaderConfig
 }
 
 // Validate reports every problem with c at once. It changes nothing.
@@ -144,6 +145,7 @@ type Engine struct {
 	stateVer uint32 // while decoding: the version of the state being read
 
 	intervals intervalConfig // the prediction intervals' settings (Scorer)
+	lead      leadTotals     // the keys' leaders (Config.Leader)
 
 	lastPred []float64 // each learner's prediction for the last applied event
 	lastOK   []bool    // whether it predicted (was ready)
@@ -194,6 +196,7 @@ func (a Alarm) later(b Alarm) bool {
 }
 
 type keyState struct {
+	lead      *leader // the key's leader (Config.Leader); nil without one
 	key       string
 	partition int32
 	slots     []slot // one per learner, in configuration order
@@ -221,8 +224,9 @@ func NewEngine(cfg Config) (*Engine, error) {
 	}
 	cfg.Score = cfg.Score.withDefaults()
 	cfg.Drift = cfg.Drift.withDefaults()
+	cfg.Leader = cfg.Leader.withDefaults()
 	e := &Engine{cfg: cfg, baseline: -1, keys: newKeyIndex(0), parts: map[int32]*part{}, seed: maphash.MakeSeed(),
-		intervals: newIntervalConfig(cfg.Score.Level, cfg.Score.ConformalStep)}
+		intervals: newIntervalConfig(cfg.Score.Level, cfg.Score.ConformalStep), lead: leadTotals{pool: pool{alpha: cfg.Score.Fading, level: cfg.Score.Level}}}
 	e.drift = &e.cfg.Drift
 	e.schema, _, _ = NewSchema(cfg.Features)
 	for i := range cfg.Learners {
@@ -420,6 +424,9 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 		t.held += held - ks.slots[i].held
 		ks.slots[i].held = held
 	}
+	if e.cfg.Leader.On {
+		e.stepLeader(ks, y)
+	}
 	e.applied++
 	p.applied++
 	if ev.HasTime {
@@ -481,6 +488,7 @@ func allocWith[A any](slots func(*A) []slot) *keyState {
 
 // Prediction is the answer of one learner for one row.
 type Prediction struct {
+	Learner string // the learner that answered (the key's leader's name when LeaderName was asked)
 	Value   float64
 	Trained int64 // events this learner has trained on for the key
 	Scored  int64 // of those, events it was scored on (prequentially)
@@ -500,11 +508,21 @@ type Prediction struct {
 // is changing (a published copy). The row's features are matched against
 // the schema as in Apply (the target is ignored).
 func (e *Engine) Predict(key, learner string, ev *Event) (Prediction, error) {
+	ks := e.lookup(key)
+	if learner == LeaderName && e.cfg.Leader.On {
+		if ks == nil || ks.lead == nil || ks.lead.current < 0 {
+			return Prediction{}, fmt.Errorf("%w: no learner has %d recent errors on key %q yet, so none leads", ErrNotReady, MinIntervalEvents, key)
+		}
+		learner = e.cfg.Learners[ks.lead.current].Name
+	}
 	i := slices.IndexFunc(e.cfg.Learners, func(s Spec) bool { return s.Name == learner })
 	if i < 0 {
-		return Prediction{}, fmt.Errorf("%w: %q (configured: %s)", ErrUnknownLearner, learner, e.cfg.Names())
+		hint := ""
+		if learner == LeaderName {
+			hint = "; the per-key leader is kept only when the engine is told to (--leader)"
+		}
+		return Prediction{}, fmt.Errorf("%w: %q (configured: %s)%s", ErrUnknownLearner, learner, e.cfg.Names(), hint)
 	}
-	ks := e.lookup(key)
 	if ks == nil || e.schema == nil {
 		return Prediction{}, fmt.Errorf("%w: key %q has no events yet", ErrUnknownKey, key)
 	}
@@ -514,7 +532,7 @@ func (e *Engine) Predict(key, learner string, ev *Event) (Prediction, error) {
 	}
 	l := ks.slots[i].learner
 	m := ks.slots[i].score.Metrics()
-	p := Prediction{Trained: l.Trained(), Scored: m.Scored, RecentRMSE: m.Recent.RMSE, Level: e.cfg.Score.Level}
+	p := Prediction{Learner: learner, Trained: l.Trained(), Scored: m.Scored, RecentRMSE: m.Recent.RMSE, Level: e.cfg.Score.Level}
 	if sc := &ks.slots[i].score; sc.idx.Len() >= MinIntervalEvents && m.Recent.RMSE != nil {
 		p.Normal, p.Conformal = ptr(normalZ(e.cfg.Score.Level)**m.Recent.RMSE), ptr(math.Max(sc.cq, 0))
 	}
@@ -572,6 +590,7 @@ func (e *Engine) addKey(ks *keyState) {
 	for i := range e.totals {
 		e.totals[i].count(ks, i, 1)
 	}
+	e.countLead(ks, 1)
 }
 
 // keyBase estimates the bytes of a key apart from its learners: its state's
@@ -785,6 +804,7 @@ func (e *Engine) own(ks *keyState) *keyState {
 		}
 	}
 	c.key, c.partition, c.hash, c.epoch, c.idx = ks.key, ks.partition, ks.hash, e.epoch, ks.idx
+	c.lead = ks.lead.clone()
 	e.keys.set(c)
 	e.byName[c.idx] = c
 	e.root = e.root.with(c, 0, e.epoch, e.nodes)
@@ -817,6 +837,7 @@ const legacyMaxKeys = 10_000
 func (c Config) digest(withCap bool, maxKeys int) string {
 	c.Score = c.Score.withDefaults()
 	c.Drift = c.Drift.withDefaults()
+	c.Leader = c.Leader.withDefaults()
 	h := sha256.New()
 	for _, s := range c.Learners {
 		fmt.Fprintf(h, "learner %q %s\n", s.Name, s.Canonical())
@@ -828,6 +849,9 @@ func (c Config) digest(withCap bool, maxKeys int) string {
 	}
 	fmt.Fprintf(h, "score %d %g\ndrift %g %g %d %t\n", c.Score.Recent, c.Score.Fading,
 		c.Drift.Delta, c.Drift.Lambda, c.Drift.MinEvents, c.Drift.Raw)
+	if c.Leader.On {
+		fmt.Fprintf(h, "leader %g\n", c.Leader.Margin)
+	}
 	if c.Drift.Method != DriftPageHinkley {
 		fmt.Fprintf(h, "drift method %s %g\n", c.Drift.Method, c.Drift.ADWINDelta)
 	}

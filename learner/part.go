@@ -157,8 +157,10 @@ func (e *Engine) moveFrom(o *Engine, take func(int32) bool) {
 		for i := range o.totals {
 			o.totals[i].count(ks, i, -1)
 		}
+		o.countLead(ks, -1)
 		c := allocKey(len(ks.slots))
 		c.key, c.partition, c.epoch = ks.key, ks.partition, e.epoch
+		c.lead = ks.lead.clone()
 		c.hash = maphash.String(e.seed, ks.key)
 		for i := range ks.slots {
 			s := &ks.slots[i]

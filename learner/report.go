@@ -17,6 +17,8 @@ type Report struct {
 	RecentWindow int             `json:"recent_window"` // scored events per key in the "recent" metrics
 	Positions    []Position      `json:"positions"`
 	Learners     []LearnerReport `json:"learners"`
+	// Leader is the per-key leader's figures, when the engine keeps one.
+	Leader *LeaderReport `json:"leader,omitempty"`
 }
 
 // LearnerReport is one learner's metrics, overall and (optionally) per key.
@@ -105,6 +107,10 @@ func (e *Engine) report(withKeys bool, numKeys int, positions []Position) Report
 			}
 		}
 		r.Learners = append(r.Learners, lr)
+	}
+	if e.cfg.Leader.On {
+		m := e.lead.pool.metrics()
+		r.Leader = &LeaderReport{Metrics: m, Margin: e.cfg.Leader.Margin, Switches: e.lead.switches}
 	}
 	return r
 }

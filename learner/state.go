@@ -48,8 +48,9 @@ const (
 	// to say what they cover); before 7 it is unknown. 8 adds the
 	// conformal intervals and the intervals' widths to the scorers; before
 	// 8 they start from nothing. 9 adds the ADWIN detector, when the
-	// configuration chooses it.
-	stateVersion = 9
+	// configuration chooses it. 10 adds each key's leader, when the
+	// configuration keeps one.
+	stateVersion = 10
 	maxNames     = MaxFeatures
 	maxSections  = 1 << 20
 )
@@ -127,6 +128,12 @@ func (e *Engine) EncodePartitions(sink SectionSink, ps []int32) error {
 				s.learner.encode(w)
 				s.score.encode(w)
 				s.drift.encode(w)
+			}
+			if e.cfg.Leader.On {
+				w.bool(ks.lead != nil)
+				if ks.lead != nil {
+					ks.lead.encode(w)
+				}
 			}
 			if len(w.b) >= sinkFlush {
 				if _, err := sink.Write(w.b); err != nil {
@@ -477,6 +484,10 @@ func (e *Engine) decodePartition(sp int32, r *decoder) error {
 			}
 			ks.slots[j].score.decode(r, e.stateVer)
 			ks.slots[j].drift.decode(r)
+		}
+		if e.cfg.Leader.On && e.stateVer >= 10 && r.bool() {
+			ks.lead = &leader{score: newScorer(e.cfg.Score.Recent, e.cfg.Score.Fading)}
+			ks.lead.decode(r, e.stateVer, len(ks.slots))
 		}
 		e.addKey(ks)
 	}

@@ -25,6 +25,7 @@ type Totals struct {
 	KeyBytes   int64           `json:"key_bytes"`
 	Positions  []Position      `json:"positions"`
 	Learners   []LearnerTotals `json:"learners"`
+	Leader     *LearnerTotals  `json:"leader,omitempty"` // the keys' leaders, when kept (Switches in Alarms)
 }
 
 // LearnerTotals are one learner's totals over an engine's keys.
@@ -59,6 +60,11 @@ func (e *Engine) Totals() Totals {
 		}
 		t.Learners = append(t.Learners, lt)
 	}
+	if e.cfg.Leader.On {
+		p := &e.lead.pool
+		t.Leader = &LearnerTotals{Alpha: p.alpha, Scored: p.scored, Unscored: p.unscored, RecentN: p.recN, Intervals: p.intervals,
+			Covered: p.covered, CqCovered: p.cqCovered, Sums: p.sums, Alarms: e.lead.switches}
+	}
 	return t
 }
 
@@ -81,6 +87,22 @@ func (t *Totals) Add(o Totals) error {
 	t.KeyBytes += o.KeyBytes
 	t.Positions = append(t.Positions, o.Positions...)
 	slices.SortFunc(t.Positions, func(a, b Position) int { return int(a.Partition - b.Partition) })
+	if (t.Leader == nil) != (o.Leader == nil) {
+		return fmt.Errorf("%w: totals with and without a leader cannot be added", ErrInvalidSpec)
+	}
+	if t.Leader != nil {
+		a, b := t.Leader, o.Leader
+		a.Scored += b.Scored
+		a.Unscored += b.Unscored
+		a.RecentN += b.RecentN
+		a.Intervals += b.Intervals
+		a.Covered += b.Covered
+		a.CqCovered += b.CqCovered
+		a.Alarms += b.Alarms
+		for j := range a.Sums {
+			a.Sums[j].AddExact(&b.Sums[j])
+		}
+	}
 	for i := range t.Learners {
 		a, b := &t.Learners[i], &o.Learners[i]
 		if a.Scored+a.Unscored == 0 {
@@ -135,6 +157,10 @@ func (c Config) ReportOf(t Totals) (Report, error) {
 			a.Time = lt.LastTime
 			s.lastAlarm = &a
 		}
+	}
+	if lt := t.Leader; lt != nil && c.Leader.On {
+		e.lead = leadTotals{pool: pool{alpha: lt.Alpha, level: e.cfg.Score.Level, scored: lt.Scored, unscored: lt.Unscored, recN: lt.RecentN,
+			intervals: lt.Intervals, covered: lt.Covered, cqCovered: lt.CqCovered, sums: lt.Sums}, switches: lt.Alarms}
 	}
 	return e.report(false, int(t.Keys), t.Positions), nil
 }

@@ -22,8 +22,8 @@ func ReplayParallel(ctx context.Context, h *intake.History, cfg learner.Config, 
 		workers = runtime.NumCPU()
 	}
 	workers = min(workers, len(cfg.Learners))
-	if rc.Checkpoints != nil || rc.Resume || rc.Observe != nil {
-		return learner.Report{}, fmt.Errorf("replay: a parallel replay cannot take checkpoints, resume or observers")
+	if rc.Checkpoints != nil || rc.Resume || rc.Observe != nil || cfg.Leader.On {
+		return learner.Report{}, fmt.Errorf("replay: a parallel replay cannot take checkpoints, resume, observers or a leader (which compares every learner of a key)")
 	}
 	groups := splitLearners(cfg.Learners, max(workers, 1))
 	engines := make([]*learner.Engine, len(groups))

@@ -38,6 +38,11 @@ func WriteTable(w io.Writer, r learner.Report) error {
 			num(l.MAE), num(l.RMSE), num(l.Bias), num(l.Recent.MAE), num(l.Recent.RMSE), num(l.Skill),
 			num(l.Conformal.Coverage), num(l.Coverage), l.Drift.State, l.Drift.Alarms)
 	}
+	if ld := r.Leader; ld != nil {
+		fmt.Fprintf(tw, "%s\t%d\t%d\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%d\t\n", "leader (per key)", ld.Scored, ld.Unscored,
+			num(ld.MAE), num(ld.RMSE), num(ld.Bias), num(ld.Recent.MAE), num(ld.Recent.RMSE), "–",
+			num(ld.Conformal.Coverage), num(ld.Coverage), fmt.Sprintf("%d switches", ld.Switches), 0)
+	}
 	if err := tw.Flush(); err != nil {
 		return err
 	}

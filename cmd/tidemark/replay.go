@@ -31,6 +31,7 @@ type engineFlags struct {
 	level         float64
 	conformalStep float64
 	drift         string
+	leader        bool
 }
 
 func (f *engineFlags) register(fs *flag.FlagSet) {
@@ -41,6 +42,7 @@ func (f *engineFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&f.categorical, "categorical", "", "fix the schema's categorical (string) features, comma-separated")
 	fs.IntVar(&f.maxKeys, "max-keys", learner.DefaultMaxKeys, "cap on distinct keys; events for new keys past it are rejected")
 	f.memoryBudget = byteSize(defaultMemoryBudget())
+	fs.BoolVar(&f.leader, "leader", false, "keep a per-key leader (the learner of lowest recent RMSE, switched with 5 % hysteresis), scored like a learner;\npredict answers for it with \"learner\":\"leader\"")
 	fs.StringVar(&f.drift, "drift", learner.DriftPageHinkley, "drift detector on each learner's error per key: page-hinkley or adwin (Bifet & Gavaldà 2007; costlier)")
 	fs.Float64Var(&f.level, "interval-level", learner.DefaultLevel, "nominal coverage of the prediction intervals (both methods), in (0, 1)")
 	fs.Float64Var(&f.conformalStep, "conformal-step", learner.DefaultConformalStep, "γ of the conformal intervals: their quantile's step, in recent RMSEs")
@@ -52,8 +54,9 @@ func (f *engineFlags) config() (learner.Config, error) {
 		Features: learner.FeatureConfig{HashBuckets: f.hashBuckets, TimeFeatures: f.timeFeatures,
 			Numeric: splitList(f.numeric), Categorical: splitList(f.categorical)},
 		MaxKeys: f.maxKeys, MemoryBudget: int64(f.memoryBudget),
-		Score: learner.ScoreConfig{Level: f.level, ConformalStep: f.conformalStep},
-		Drift: learner.DriftConfig{Method: f.drift},
+		Score:  learner.ScoreConfig{Level: f.level, ConformalStep: f.conformalStep},
+		Drift:  learner.DriftConfig{Method: f.drift},
+		Leader: learner.LeaderConfig{On: f.leader},
 	}
 	if !(f.level > 0 && f.level < 1) {
 		return cfg, fmt.Errorf("--interval-level %g: want a coverage between 0 and 1, e.g. 0.9", f.level)
@@ -113,7 +116,7 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 	units := fs.String("units", "", "the target's units, for the plot's axes (e.g. kW)")
 	quiet := fs.Bool("quiet", false, "no progress bar")
 	sequential := fs.Bool("sequential", false, "decode on the learning goroutine instead of a second one (same results; for measuring)")
-	workers := fs.Int("workers", 0, "spread the learners over this many goroutines (0: one per CPU; same results;\nnot with --checkpoints, --curve or --plot, which use one)")
+	workers := fs.Int("workers", 0, "spread the learners over this many goroutines (0: one per CPU; same results;\nnot with --checkpoints, --curve, --plot or --leader, which use one)")
 	pos, err := parse(fs, args)
 	if err != nil {
 		return err
@@ -185,7 +188,7 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 		rc.Progress = bar.update
 		rc.Log = bar.writer()
 	}
-	parallel := *workers != 1 && store == nil && rec == nil && !*sequential && len(cfg.Learners) > 1
+	parallel := *workers != 1 && store == nil && rec == nil && !*sequential && len(cfg.Learners) > 1 && !cfg.Leader.On // the leader compares every learner of a key
 	var report learner.Report
 	if parallel {
 		report, err = replay.ReplayParallel(ctx, h, cfg, *workers, rc)

@@ -36,6 +36,7 @@ type fileConfig struct {
 	Units              string   `yaml:"units"`
 	Interval           string   `yaml:"interval"`
 	Drift              string   `yaml:"drift"`
+	Leader             bool     `yaml:"leader"`
 	CheckpointEvery    int64    `yaml:"checkpoint_every"`
 	CheckpointInterval string   `yaml:"checkpoint_interval"`
 	Retain             int      `yaml:"retain"`
@@ -242,6 +243,7 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	if !set["drift"] && fc.Drift != "" {
 		ef.drift = fc.Drift
 	}
+	ef.leader = ef.leader || fc.Leader
 	if !set["hash-buckets"] && fc.Features.HashBuckets != 0 {
 		ef.hashBuckets = fc.Features.HashBuckets
 	}
