@@ -49,13 +49,14 @@ func (s *Service) handlePage(c echo.Context) error {
 
 // Overview is everything the page shows, in one answer.
 type Overview struct {
-	Status      OverviewStatus    `json:"status"`
-	Learners    []OverviewLearner `json:"learners"` // by recent RMSE, best first; those without one last
-	Alarms      []AlarmNote       `json:"alarms"`   // the latest drift alarms, oldest first
-	Checkpoints []checkpoint.Info `json:"checkpoints"`
-	Rejections  []RejectionNote   `json:"rejections"` // the latest refused events, oldest first
-	Settings    OverviewSettings  `json:"settings"`
-	Caution     string            `json:"caution"`
+	Status      OverviewStatus        `json:"status"`
+	Learners    []OverviewLearner     `json:"learners"`         // by recent RMSE, best first; those without one last
+	Leader      *learner.LeaderReport `json:"leader,omitempty"` // the per-key leader's figures, when kept
+	Alarms      []AlarmNote           `json:"alarms"`           // the latest drift alarms, oldest first
+	Checkpoints []checkpoint.Info     `json:"checkpoints"`
+	Rejections  []RejectionNote       `json:"rejections"` // the latest refused events, oldest first
+	Settings    OverviewSettings      `json:"settings"`
+	Caution     string                `json:"caution"`
 }
 
 // OverviewStatus is the intake's and the state's status.
@@ -112,6 +113,7 @@ func (s *Service) handleOverview(c echo.Context) error {
 	}
 	out := Overview{Status: st, Caution: caution + " Recent error is each key's last " + strconv.Itoa(r.RecentWindow) + " scored events, pooled.",
 		Settings: OverviewSettings{TokenRequired: s.cfg.Token != "", DefaultLearner: s.cfg.DefaultLearner, Units: s.cfg.Units, Interval: s.cfg.Interval, CurveEvery: s.cfg.CurveEvery, Group: s.kafka != nil}}
+	out.Leader = r.Leader
 	for _, l := range r.Learners {
 		pts, _ := s.curves.get(l.Name)
 		out.Learners = append(out.Learners, OverviewLearner{LearnerReport: l, Curve: pts})

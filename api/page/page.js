@@ -89,6 +89,11 @@ function render() {
   $("r-partition-label").hidden = !o.settings.group;
   renderChart(o);
   renderLearners(o.learners);
+  $("leader").hidden = !o.leader;
+  if (o.leader) {
+    $("leader").textContent = `Per-key leader (the learner of lowest recent error on each key, switched when another is ${Math.round(100 * o.leader.margin)} % better): ` +
+      `recent rmse ${num(o.leader.recent.rmse)}, rmse ${num(o.leader.rmse)}, ${o.leader.switches} switches. Ask predict for "learner":"leader".`;
+  }
   if (o.learners.length) {
     $("interval-hint").textContent = `How often each method's interval held the target (nominal ${pct(o.learners[0].conformal.level)}), ` +
       `and how wide it was on average${o.settings.units ? " (" + o.settings.units + ")" : ""}; predict quotes the ${o.settings.interval} one. ` +
