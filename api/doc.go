@@ -4,9 +4,12 @@
 // checkpoints on cadence through the persistence room (api/persist),
 // restores on request and publishes snapshots. The service (service.go)
 // owns the lifecycle and the HTTP layer (http.go, guard.go, metrics.go,
-// dashboard.go): handlers read only published snapshots and reach the loop
-// only by commands, whose errors (errors.go) are mapped to statuses in one
-// place. It holds no model math (package learner) and no replay
+// overview.go and the page in page/): handlers read only published
+// snapshots and reach the loop only by commands, whose errors (errors.go)
+// are mapped to statuses in one place. With Kafka intake the service is an
+// instance of a consumer group (group.go, route.go, grouprestore.go): it
+// owns some partitions and forwards what concerns the others to their
+// owners. It holds no model math (package learner) and no replay
 // (api/replay, which the service does not import).
 //
 // Delivery: every event comes from an intake.Source with its position; the
