@@ -103,3 +103,37 @@ func TestLeaderFollowsItsRule(t *testing.T) {
 		t.Errorf("split and merged back, the leader state differs (%v)", err)
 	}
 }
+
+// TestLeaderTotalsAddUp: the leader's figures of three engines of two
+// partitions each, added through their totals, are those of one engine that
+// applied every event (as TestTotalsAddUpToOneEngine for the learners).
+func TestLeaderTotalsAddUp(t *testing.T) {
+	cfg := Config{Leader: LeaderConfig{On: true}}
+	evs, pos := partitioned(6000)
+	one := mustEngine(t, cfg, partKinds...)
+	var parts [3]*Engine
+	for i := range parts {
+		parts[i] = mustEngine(t, cfg, partKinds...)
+	}
+	for i, ev := range evs {
+		one.Apply(pos[i], ev)
+		parts[pos[i].Partition%3].Apply(pos[i], ev)
+	}
+	sum := parts[0].Totals()
+	for _, p := range parts[1:] {
+		if err := sum.Add(p.Totals()); err != nil {
+			t.Fatal(err)
+		}
+	}
+	r, err := one.Config().ReportOf(sum)
+	if err != nil {
+		t.Fatal(err)
+	}
+	got, want := r.Leader, one.Report(false).Leader
+	if got == nil || want == nil || got.Switches != want.Switches || got.Scored != want.Scored || *got.RMSE != *want.RMSE || want.Switches == 0 {
+		t.Errorf("added: %+v\nwant %+v", got, want)
+	}
+	if err := sum.Add(mustEngine(t, Config{}, partKinds...).Totals()); err == nil {
+		t.Error("totals without a leader were added to totals with one")
+	}
+}

@@ -78,6 +78,9 @@ func (t *Totals) Add(o Totals) error {
 			return fmt.Errorf("learner: partition %d is in both totals", p.Partition)
 		}
 	}
+	if (t.Leader == nil) != (o.Leader == nil) {
+		return fmt.Errorf("%w: totals with and without a leader cannot be added", ErrInvalidSpec)
+	}
 	t.Applied += o.Applied
 	t.Rejected += o.Rejected
 	t.Duplicates += o.Duplicates
@@ -87,42 +90,17 @@ func (t *Totals) Add(o Totals) error {
 	t.KeyBytes += o.KeyBytes
 	t.Positions = append(t.Positions, o.Positions...)
 	slices.SortFunc(t.Positions, func(a, b Position) int { return int(a.Partition - b.Partition) })
-	if (t.Leader == nil) != (o.Leader == nil) {
-		return fmt.Errorf("%w: totals with and without a leader cannot be added", ErrInvalidSpec)
-	}
 	if t.Leader != nil {
-		a, b := t.Leader, o.Leader
-		a.Scored += b.Scored
-		a.Unscored += b.Unscored
-		a.RecentN += b.RecentN
-		a.Intervals += b.Intervals
-		a.Covered += b.Covered
-		a.CqCovered += b.CqCovered
-		a.Alarms += b.Alarms
-		for j := range a.Sums {
-			a.Sums[j].AddExact(&b.Sums[j])
-		}
+		t.Leader.addScores(o.Leader) // the leader's switches ride in Alarms
 	}
 	for i := range t.Learners {
 		a, b := &t.Learners[i], &o.Learners[i]
-		if a.Scored+a.Unscored == 0 {
-			a.Alpha = b.Alpha
-		}
-		a.Scored += b.Scored
-		a.Unscored += b.Unscored
-		a.RecentN += b.RecentN
-		a.Intervals += b.Intervals
-		a.Covered += b.Covered
-		a.CqCovered += b.CqCovered
-		for j := range a.Sums {
-			a.Sums[j].AddExact(&b.Sums[j])
-		}
+		a.addScores(b)
 		for j := range a.States {
 			a.States[j] += b.States[j]
 		}
 		a.Late += b.Late
 		a.Held += b.Held
-		a.Alarms += b.Alarms
 		if b.LastAlarm != nil {
 			x := *b.LastAlarm
 			x.Time = b.LastTime
@@ -134,6 +112,23 @@ func (t *Totals) Add(o Totals) error {
 		}
 	}
 	return nil
+}
+
+// addScores adds b's pooled scores and alarm count to a.
+func (a *LearnerTotals) addScores(b *LearnerTotals) {
+	if a.Scored+a.Unscored == 0 {
+		a.Alpha = b.Alpha
+	}
+	a.Scored += b.Scored
+	a.Unscored += b.Unscored
+	a.RecentN += b.RecentN
+	a.Intervals += b.Intervals
+	a.Covered += b.Covered
+	a.CqCovered += b.CqCovered
+	a.Alarms += b.Alarms
+	for j := range a.Sums {
+		a.Sums[j].AddExact(&b.Sums[j])
+	}
 }
 
 // ReportOf makes the report of totals t, taken under c, without per-key

@@ -44,18 +44,9 @@ function headers(json) {
   return h;
 }
 
+// refresh reads the overview every two seconds.
 async function refresh() {
-  try {
-    const r = await fetch("/v1/overview", { headers: headers(false), cache: "no-store" });
-    if (r.ok) {
-      overview = await r.json();
-      render();
-    } else {
-      streamLine(`the service answered ${r.status}: ${await message(r)}`, true);
-    }
-  } catch (e) {
-    streamLine("the service does not answer (" + e.message + "); retrying", true);
-  }
+  await refresh1();
   setTimeout(refresh, 2000);
 }
 
@@ -350,16 +341,18 @@ async function restore(ev, dry) {
   refresh1();
 }
 
-// refresh1 reads the overview once, outside the two-second round.
+// refresh1 reads the overview once and draws it, or says what went wrong.
 async function refresh1() {
   try {
     const r = await fetch("/v1/overview", { headers: headers(false), cache: "no-store" });
     if (r.ok) {
       overview = await r.json();
       render();
+    } else {
+      streamLine(`the service answered ${r.status}: ${await message(r)}`, true);
     }
-  } catch {
-    // the next round says it
+  } catch (e) {
+    streamLine("the service does not answer (" + e.message + "); retrying", true);
   }
 }
 
