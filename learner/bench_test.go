@@ -130,9 +130,18 @@ func keysEngine(nk int, meanSpec string, cfg Config) (*Engine, []string, *Event)
 // depend on how many keys the state holds. Keys are visited in a scattered
 // order, as a real stream would; the first visit of a key creates it.
 func BenchmarkApplyKeys(b *testing.B) {
-	for _, nk := range []int{1, 1_000_000} {
-		b.Run("keys="+strconv.Itoa(nk), func(b *testing.B) {
-			e, keys, ev := keysEngine(nk, "mean:window=100", Config{})
+	type run struct {
+		name string
+		nk   int
+		cfg  Config
+	}
+	runs := []run{{"keys=1", 1, Config{}}, {"keys=1000000", 1_000_000, Config{}},
+		// what the per-key leader and ADWIN cost beside the run of keys=1
+		{"keys=1/leader", 1, Config{Leader: LeaderConfig{On: true}}}, {"keys=1/adwin", 1, Config{Drift: DriftConfig{Method: DriftADWIN}}}}
+	for _, r := range runs {
+		nk := r.nk
+		b.Run(r.name, func(b *testing.B) {
+			e, keys, ev := keysEngine(nk, "mean:window=100", r.cfg)
 			rng := rand.New(rand.NewPCG(1, 2))
 			b.ReportAllocs()
 			b.ResetTimer()
