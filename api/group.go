@@ -48,7 +48,6 @@ type group struct {
 type partSt struct {
 	store *checkpoint.Store
 	last  checkpoint.Info // the newest checkpoint written or adopted here (zero: none)
-	saved int64           // the partition's high-water offset at the last checkpoint (-1: none)
 	skip  *skipRule       // a restore's skip rule while it applies to this partition
 }
 
@@ -163,7 +162,7 @@ func (l *loop) loadPartition(p int32) (*partSt, error) {
 	if err != nil {
 		return nil, err
 	}
-	ps := &partSt{store: store, saved: -1}
+	ps := &partSt{store: store}
 	start := time.Now()
 	st, err := persist.AdoptPartition(store, l.eng, adoptHint)
 	if err != nil {
@@ -188,7 +187,6 @@ func (l *loop) loadPartition(p int32) (*partSt, error) {
 	}
 	if st != nil {
 		ps.last = st.Info
-		ps.saved = st.Manifest.Positions[0].Offset
 		var src serviceSource
 		if json.Unmarshal(st.Manifest.Source, &src) == nil && src.Skip != nil && !src.Skip.done(l.eng) {
 			ps.skip = src.Skip // a restore's catch-up goes on here
@@ -235,6 +233,15 @@ func (l *loop) dropPartition(p int32, ps *partSt) {
 	ps.store.Close()
 }
 
+// saved is the partition's high-water offset at its last checkpoint (-1:
+// none).
+func (ps *partSt) saved() int64 {
+	if len(ps.last.Position) == 0 {
+		return -1
+	}
+	return ps.last.Position[0].Offset
+}
+
 // stillNewest reports whether the store's newest checkpoint is still the
 // one this instance last wrote or loaded: no one owned the partition and
 // wrote since, so the state held here may go on.
@@ -269,9 +276,6 @@ func (l *loop) savePartition(p int32, ps *partSt, reason checkpoint.Reason) (che
 		return info, err
 	}
 	ps.last = info
-	if len(info.Position) > 0 {
-		ps.saved = info.Position[0].Offset
-	}
 	l.lastCk = info
 	l.cfg.Log.Info("checkpoint", "partition", p, "version", info.Version, "reason", reason, "events", info.Events, "bytes", info.Bytes)
 	return info, nil
@@ -282,7 +286,7 @@ func (l *loop) savePartition(p int32, ps *partSt, reason checkpoint.Reason) (che
 func (l *loop) changedSince(p int32, ps *partSt) bool {
 	for _, pos := range l.eng.Positions() {
 		if pos.Partition == p {
-			return pos.Offset != ps.saved
+			return pos.Offset != ps.saved()
 		}
 	}
 	return false // no event of it yet
@@ -408,27 +412,13 @@ func (l *loop) restoreOne(p int32, v uint64, req RestoreRequest) cmdResult {
 	if err != nil {
 		return cmdResult{err: cmdErr(ErrInvalidRequest, "%v", err)}
 	}
-	st, err := ps.store.Stream(v)
-	if errors.Is(err, checkpoint.ErrNotFound) {
-		return cmdResult{err: cmdErr(ErrNoCheckpoint, "partition %d has no checkpoint %d; GET /v1/checkpoints lists them", p, v)}
-	}
-	if err != nil {
+	failed := func(err error) cmdResult {
 		return cmdResult{err: cmdErr(ErrConflict, "checkpoint %d of partition %d fails its checks and cannot be restored: %v", v, p, err).withCause(err)}
 	}
-	list, _ := ps.store.List()
-	if err := skipReaches(st.Manifest, rule, list); err != nil {
-		st.Close()
-		return cmdResult{err: err}
-	}
-	restored, err := learner.NewEngine(l.eng.Config())
-	if err != nil {
-		st.Close()
-		return cmdResult{err: err}
-	}
-	if err := persist.AdoptStream(restored, st, adoptHint); errors.Is(err, checkpoint.ErrCorrupt) {
-		return cmdResult{err: cmdErr(ErrConflict, "checkpoint %d of partition %d fails its checks and cannot be restored: %v", v, p, err).withCause(err)}
-	} else if err != nil {
-		return cmdResult{err: err}
+	restored, res := l.readForRestore(ps.store, v, rule,
+		cmdErr(ErrNoCheckpoint, "partition %d has no checkpoint %d; GET /v1/checkpoints lists them", p, v), failed)
+	if restored == nil {
+		return res
 	}
 	if _, _, ok := restored.PartitionCounts(p); !ok {
 		return cmdResult{err: cmdErr(ErrConflict, "checkpoint %d does not hold partition %d", v, p)}
@@ -437,7 +427,7 @@ func (l *loop) restoreOne(p int32, v uint64, req RestoreRequest) cmdResult {
 		restored.CoverUpTo(live)
 	}
 	// Recorded first: a restore happens as a whole or not at all.
-	rps := &partSt{store: ps.store, last: ps.last, saved: -1}
+	rps := &partSt{store: ps.store, last: ps.last}
 	if mode == ResumeSkip {
 		rps.skip = rule
 	}
@@ -447,7 +437,7 @@ func (l *loop) restoreOne(p int32, v uint64, req RestoreRequest) cmdResult {
 		return cmdResult{err: cmdErr(ErrNotStored, "restore of checkpoint %d of partition %d not done: the checkpoint recording it could not be written (%v); "+
 			"the partition goes on from its state before this request", v, p, err).withCause(err)}
 	}
-	rps.last, rps.saved = info, info.Position[0].Offset
+	rps.last = info
 	l.eng.Split([]int32{p})
 	if err := l.eng.Merge(restored); err != nil {
 		panic(fmt.Sprintf("api: a restored partition does not merge back: %v", err)) // same configuration, partition just taken out

@@ -592,32 +592,13 @@ func (l *loop) restore(v uint64, req RestoreRequest) cmdResult {
 		}
 		return cmdResult{err: cmdErr(ErrConflict, "%s", msg).withCause(err)}
 	}
-	// Read once, as it decodes; its CRC-32C and state digest are known at
-	// the end, before the state is kept.
-	st, err := l.store.Stream(v)
-	if errors.Is(err, checkpoint.ErrNotFound) {
-		return cmdResult{err: cmdErr(ErrNoCheckpoint, "checkpoint %d does not exist; GET /v1/checkpoints lists them", v)}
-	}
-	if err != nil {
-		return failsChecks(err)
-	}
-	list, _ := l.store.List()
-	if err := skipReaches(st.Manifest, rule, list); err != nil {
-		st.Close()
-		return cmdResult{err: err}
-	}
 	// The restored state is built beside the live one and becomes live only
 	// once the checkpoint recording it is durable: a restore happens as a
 	// whole or not at all.
-	eng, err := learner.NewEngine(l.eng.Config())
-	if err != nil {
-		st.Close()
-		return cmdResult{err: err}
-	}
-	if err := persist.AdoptStream(eng, st, adoptHint); errors.Is(err, checkpoint.ErrCorrupt) {
-		return failsChecks(err)
-	} else if err != nil {
-		return cmdResult{err: err}
+	eng, res := l.readForRestore(l.store, v, rule,
+		cmdErr(ErrNoCheckpoint, "checkpoint %d does not exist; GET /v1/checkpoints lists them", v), failsChecks)
+	if eng == nil {
+		return res
 	}
 	if mode == ResumeFromNow {
 		eng.CoverUpTo(live)
@@ -640,6 +621,38 @@ func (l *loop) restore(v uint64, req RestoreRequest) cmdResult {
 	l.startSource()
 	l.publish()
 	return cmdResult{info: info}
+}
+
+// readForRestore reads version v of store into a new engine, as it
+// decodes (the file's CRC-32C and state digest are known at its end, before
+// the state is kept), after refusing a skip whose range the checkpoint
+// already holds (skipReaches). On failure the engine is nil and the result
+// says why: missing when there is no such version, failed(err) when the
+// file fails its checks.
+func (l *loop) readForRestore(store *checkpoint.Store, v uint64, rule *skipRule, missing *cmdError, failed func(error) cmdResult) (*learner.Engine, cmdResult) {
+	st, err := store.Stream(v)
+	if errors.Is(err, checkpoint.ErrNotFound) {
+		return nil, cmdResult{err: missing}
+	}
+	if err != nil {
+		return nil, failed(err)
+	}
+	list, _ := store.List()
+	if err := skipReaches(st.Manifest, rule, list); err != nil {
+		st.Close()
+		return nil, cmdResult{err: err}
+	}
+	eng, err := learner.NewEngine(l.eng.Config())
+	if err != nil {
+		st.Close()
+		return nil, cmdResult{err: err}
+	}
+	if err := persist.AdoptStream(eng, st, adoptHint); errors.Is(err, checkpoint.ErrCorrupt) {
+		return nil, failed(err)
+	} else if err != nil {
+		return nil, cmdResult{err: err}
+	}
+	return eng, cmdResult{}
 }
 
 // setFault records f unless a fault already holds; it logs and counts it.

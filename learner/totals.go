@@ -52,8 +52,8 @@ func (e *Engine) Totals() Totals {
 		Ignored: e.ignored, Keys: int64(e.numKeys()), KeyBytes: e.keyBase, Positions: e.Positions()}
 	for i := range e.totals {
 		s := &e.totals[i]
-		lt := LearnerTotals{Alpha: s.pool.alpha, Scored: s.pool.scored, Unscored: s.pool.unscored, RecentN: s.pool.recN,
-			Intervals: s.pool.intervals, Covered: s.pool.covered, CqCovered: s.pool.cqCovered, Sums: s.pool.sums, States: s.states, Late: s.late, Held: s.held, Alarms: s.alarms}
+		lt := s.pool.totals()
+		lt.States, lt.Late, lt.Held, lt.Alarms = s.states, s.late, s.held, s.alarms
 		if a := s.lastAlarm; a != nil {
 			c := *a
 			lt.LastAlarm, lt.LastTime = &c, a.Time
@@ -61,11 +61,23 @@ func (e *Engine) Totals() Totals {
 		t.Learners = append(t.Learners, lt)
 	}
 	if e.cfg.Leader.On {
-		p := &e.lead.pool
-		t.Leader = &LearnerTotals{Alpha: p.alpha, Scored: p.scored, Unscored: p.unscored, RecentN: p.recN, Intervals: p.intervals,
-			Covered: p.covered, CqCovered: p.cqCovered, Sums: p.sums, Alarms: e.lead.switches}
+		lt := e.lead.pool.totals()
+		lt.Alarms = e.lead.switches
+		t.Leader = &lt
 	}
 	return t
+}
+
+// totals is the pool as LearnerTotals carry it.
+func (p *pool) totals() LearnerTotals {
+	return LearnerTotals{Alpha: p.alpha, Scored: p.scored, Unscored: p.unscored, RecentN: p.recN,
+		Intervals: p.intervals, Covered: p.covered, CqCovered: p.cqCovered, Sums: p.sums}
+}
+
+// pool is the pool lt carries, at the intervals' level.
+func (lt *LearnerTotals) pool(level float64) pool {
+	return pool{alpha: lt.Alpha, level: level, scored: lt.Scored, unscored: lt.Unscored, recN: lt.RecentN,
+		intervals: lt.Intervals, covered: lt.Covered, cqCovered: lt.CqCovered, sums: lt.Sums}
 }
 
 // Add adds o, the totals of an engine holding other partitions, to t.
@@ -144,8 +156,7 @@ func (c Config) ReportOf(t Totals) (Report, error) {
 	e.applied, e.rejected, e.duplicates, e.skipped, e.ignored, e.keyBase = t.Applied, t.Rejected, t.Duplicates, t.Skipped, t.Ignored, t.KeyBytes
 	for i, lt := range t.Learners {
 		s := &e.totals[i]
-		s.pool = pool{alpha: lt.Alpha, level: c.Score.withDefaults().Level, scored: lt.Scored, unscored: lt.Unscored, recN: lt.RecentN,
-			intervals: lt.Intervals, covered: lt.Covered, cqCovered: lt.CqCovered, sums: lt.Sums}
+		s.pool = lt.pool(e.cfg.Score.Level)
 		s.states, s.late, s.held, s.alarms = lt.States, lt.Late, lt.Held, lt.Alarms
 		if lt.LastAlarm != nil {
 			a := *lt.LastAlarm
@@ -154,8 +165,7 @@ func (c Config) ReportOf(t Totals) (Report, error) {
 		}
 	}
 	if lt := t.Leader; lt != nil && c.Leader.On {
-		e.lead = leadTotals{pool: pool{alpha: lt.Alpha, level: e.cfg.Score.Level, scored: lt.Scored, unscored: lt.Unscored, recN: lt.RecentN,
-			intervals: lt.Intervals, covered: lt.Covered, cqCovered: lt.CqCovered, sums: lt.Sums}, switches: lt.Alarms}
+		e.lead = leadTotals{pool: lt.pool(e.cfg.Score.Level), switches: lt.Alarms}
 	}
 	return e.report(false, int(t.Keys), t.Positions), nil
 }
