@@ -46,6 +46,7 @@ type Config struct {
 	Score        ScoreConfig
 	Drift        DriftConfig
 	Leader       LeaderConfig
+	Served       ServedConfig
 }
 
 // Validate reports every problem with c at once. It changes nothing.
@@ -146,6 +147,8 @@ type Engine struct {
 
 	intervals intervalConfig // the prediction intervals' settings (Scorer)
 	lead      leadTotals     // the keys' leaders (Config.Leader)
+	served    ServedConfig   // e.cfg.Served with its defaults
+	waiting   map[int32][]*Answer // served answers of partitions not held yet (Serve)
 
 	lastPred []float64 // each learner's prediction for the last applied event
 	lastOK   []bool    // whether it predicted (was ready)
@@ -228,6 +231,7 @@ func NewEngine(cfg Config) (*Engine, error) {
 	e := &Engine{cfg: cfg, baseline: -1, keys: newKeyIndex(0), parts: map[int32]*part{}, seed: maphash.MakeSeed(),
 		intervals: newIntervalConfig(cfg.Score.Level, cfg.Score.ConformalStep), lead: leadTotals{pool: pool{alpha: cfg.Score.Fading, level: cfg.Score.Level}}}
 	e.drift = &e.cfg.Drift
+	e.served = cfg.Served.withDefaults()
 	e.schema, _, _ = NewSchema(cfg.Features)
 	for i := range cfg.Learners {
 		s := &cfg.Learners[i]
@@ -289,6 +293,8 @@ func (e *Engine) at(pos Position) *part {
 	if p == nil {
 		p = newPart(len(e.cfg.Learners))
 		e.parts[pos.Partition] = p
+		p.hwm = pos.Offset - 1 // answers kept for it register before or after this event
+		e.adoptWaiting(pos.Partition, p)
 	}
 	p.hwm = pos.Offset
 	return p
@@ -311,7 +317,9 @@ func (e *Engine) Skip(pos Position) {
 	if e.Covers(pos) {
 		return
 	}
-	e.at(pos).rejected++
+	p := e.at(pos)
+	e.beforeEvent(p, pos.Offset)
+	p.rejected++
 	e.rejected++
 }
 
@@ -338,6 +346,12 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 		p = e.at(pos)
 	}
 	p.hwm = pos.Offset
+	e.beforeEvent(p, pos.Offset)
+	if ev.LabelOnly {
+		e.book(p).labelOnly++
+		e.servedEvent(p, ev, true)
+		return true, nil
+	}
 	schema := e.schema
 	if schema == nil {
 		schema = SchemaOf(ev, e.cfg.Features)
@@ -431,6 +445,9 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 	p.applied++
 	if ev.HasTime {
 		p.times.add(ev.Time)
+	}
+	if p.served != nil || ev.AnswerID != "" {
+		e.servedEvent(p, ev, true)
 	}
 	return true, nil
 }
@@ -562,7 +579,9 @@ func (e *Engine) Pass(pos Position) {
 	if e.Covers(pos) {
 		return
 	}
-	e.at(pos).skipped++
+	p := e.at(pos)
+	e.beforeEvent(p, pos.Offset)
+	p.skipped++
 	e.skipped++
 }
 
@@ -572,7 +591,7 @@ func (e *Engine) Pass(pos Position) {
 func (e *Engine) CoverUpTo(ps []Position) {
 	for _, p := range ps {
 		if !e.Covers(p) {
-			e.at(p)
+			e.beforeEvent(e.at(p), p.Offset+1)
 		}
 	}
 }

@@ -20,6 +20,7 @@ const (
 	MaxKeyBytes      = 256     // bytes of the key
 	MaxNameBytes     = 256     // bytes of a feature name
 	MaxStringBytes   = 1024    // bytes of a categorical value
+	MaxAnswerIDBytes = 128     // bytes of an answer id (ServedAnswer)
 	MaxAbsValue      = 1e50    // magnitude of any number; beyond it squares overflow the learners
 	maxTimeTextBytes = 64
 )
@@ -35,12 +36,20 @@ type Feature struct {
 
 // Event is one labelled observation. Features are sorted by name, names
 // unique. Time is Unix nanoseconds, meaningful only when HasTime is set.
+//
+// AnswerID names a prediction the service served (a predict answer's
+// answer_id): the event is that answer's label, and the answer is scored
+// against its target (served.go). LabelOnly marks an event that names an
+// answer and has no "features" member at all: it labels the answer and
+// trains nothing.
 type Event struct {
-	Time     int64
-	HasTime  bool
-	Key      string
-	Features []Feature
-	Target   float64
+	Time      int64
+	HasTime   bool
+	Key       string
+	Features  []Feature
+	Target    float64
+	AnswerID  string
+	LabelOnly bool
 }
 
 type wireEvent struct {
@@ -48,6 +57,7 @@ type wireEvent struct {
 	Key      json.RawMessage            `json:"key"`
 	Features map[string]json.RawMessage `json:"features"`
 	Target   json.RawMessage            `json:"target"`
+	AnswerID json.RawMessage            `json:"answer_id"`
 }
 
 // DecodeEvent parses one JSON event (DESIGN.md, "Event") into ev, reusing
@@ -117,6 +127,16 @@ func decodeSlow(data []byte, ev *Event, needTarget bool) error {
 		}
 		ev.Key = k
 	}
+	if !isAbsent(w.AnswerID) {
+		var id string
+		if err := json.Unmarshal(w.AnswerID, &id); err != nil {
+			return invalid("answer_id must be a string")
+		}
+		if err := checkAnswerID(id); err != nil {
+			return err
+		}
+		ev.AnswerID, ev.LabelOnly = id, w.Features == nil
+	}
 	if !isAbsent(w.Time) {
 		var s string
 		if err := json.Unmarshal(w.Time, &s); err != nil || len(s) > maxTimeTextBytes {
@@ -165,6 +185,20 @@ func decodeSlow(data []byte, ev *Event, needTarget bool) error {
 	return nil
 }
 
+// checkAnswerID refuses an answer id that is empty, too long or holds
+// U+FFFD.
+func checkAnswerID(id string) error {
+	switch {
+	case id == "":
+		return invalid("answer_id is empty")
+	case len(id) > MaxAnswerIDBytes:
+		return invalid("answer_id is %d bytes, more than the limit of %d", len(id), MaxAnswerIDBytes)
+	case strings.ContainsRune(id, utf8.RuneError):
+		return invalid("answer_id %q contains U+FFFD (an invalid escape or text that was not UTF-8)", truncate(id))
+	}
+	return nil
+}
+
 // ValidateEvent checks an event built in code (not decoded) against the same
 // rules as DecodeEvent, and sorts its features.
 func ValidateEvent(ev *Event) error {
@@ -176,6 +210,11 @@ func ValidateEvent(ev *Event) error {
 	}
 	if len(ev.Features) > MaxFeatures {
 		return invalid("%d features, more than the limit of %d", len(ev.Features), MaxFeatures)
+	}
+	if ev.AnswerID != "" {
+		if err := checkAnswerID(ev.AnswerID); err != nil {
+			return err
+		}
 	}
 	sort.Slice(ev.Features, func(i, j int) bool { return ev.Features[i].Name < ev.Features[j].Name })
 	for i, f := range ev.Features {

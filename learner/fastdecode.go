@@ -7,7 +7,8 @@ import (
 )
 
 // decodeFast decodes the canonical event shape — one flat object with
-// "time", "key", "features" (numbers and plain strings) and "target", in any
+// "time", "key", "features" (numbers and plain strings), "target" and
+// "answer_id", in any
 // order — without reflection and without allocating beyond the feature
 // names and values. It returns ok = false, having changed nothing that
 // matters, whenever the input steps outside that shape (escapes, non-ASCII
@@ -22,8 +23,8 @@ func decodeFast(data []byte, ev *Event, needTarget bool) (ok bool, err error) {
 		return false, nil
 	}
 	feats := ev.Features[:0]
-	var hasTime, hasKey, hasTarget, hasFeatures bool
-	var timeText, key []byte
+	var hasTime, hasKey, hasTarget, hasFeatures, hasAnswer bool
+	var timeText, key, answer []byte
 	var target float64
 	var targetErr error
 	p.ws()
@@ -52,6 +53,14 @@ func decodeFast(data []byte, ev *Event, needTarget bool) (ok bool, err error) {
 				return false, nil
 			}
 			hasKey = true
+		case "answer_id":
+			if hasAnswer || p.null() {
+				return false, nil
+			}
+			if answer, ok = p.str(); !ok {
+				return false, nil
+			}
+			hasAnswer = true
 		case "target":
 			if hasTarget || p.null() {
 				return false, nil
@@ -125,7 +134,8 @@ done:
 			return false, nil
 		}
 	}
-	if (needTarget && !hasTarget) || (hasTarget && targetErr != nil) || len(key) > MaxKeyBytes || len(timeText) > maxTimeTextBytes {
+	if (needTarget && !hasTarget) || (hasTarget && targetErr != nil) || len(key) > MaxKeyBytes || len(timeText) > maxTimeTextBytes ||
+		(hasAnswer && (len(answer) == 0 || len(answer) > MaxAnswerIDBytes)) {
 		return false, nil
 	}
 	var t time.Time
@@ -141,6 +151,9 @@ done:
 	}
 	if hasTime {
 		ev.Time, ev.HasTime = t.UnixNano(), true
+	}
+	if hasAnswer {
+		ev.AnswerID, ev.LabelOnly = string(answer), !hasFeatures
 	}
 	return true, nil
 }

@@ -31,6 +31,7 @@ func FuzzDecodeEvent(f *testing.F) {
 		`{"target":1,"features":{"a":1,"a":2}}`, `{"Target":1}`, `{"target":1e999}`, `{"target":01}`, `{"target":"1"}`,
 		`{"target":1,"features":{"é":1}}`, `{"target":1,"key":"a\"b"}`, `{"target":1,"time":null}`, `{"target":1} x`,
 		` {"target": 1 , "features" : { } } `, `{"target":1,"extra":[1,2]}`, `{"target":-}`, `{"target":1.}`, `{"target":1e}`,
+		`{"answer_id":"a-1","target":2}`, `{"answer_id":"","target":1}`, `{"answer_id":"x","target":1,"features":{}}`, `{"answer_id":7,"target":1}`,
 	} {
 		f.Add([]byte(s))
 	}

@@ -15,8 +15,9 @@ type part struct {
 	hwm int64
 	counts
 	times         timeRange // event times of the events applied
-	learnerAlarms []int64   // per learner
-	last          []*Alarm  // per learner, its latest alarm here (nil: none)
+	learnerAlarms []int64     // per learner
+	last          []*Alarm    // per learner, its latest alarm here (nil: none)
+	served        *servedBook // its served answers (served.go); nil before any
 }
 
 // timeRange is the earliest and latest event time (Unix ns) of the events
@@ -61,6 +62,7 @@ func newPart(learners int) *part {
 
 func (p *part) clone() *part {
 	c := *p
+	c.served = p.served.clone()
 	c.learnerAlarms = append([]int64(nil), p.learnerAlarms...)
 	c.last = make([]*Alarm, len(p.last))
 	for i, a := range p.last {
@@ -133,6 +135,15 @@ func (e *Engine) Merge(o *Engine) error {
 // moveFrom moves the partitions of o that take says to e, copying their keys
 // into e's working space and, when e publishes, its trie.
 func (e *Engine) moveFrom(o *Engine, take func(int32) bool) {
+	for p, w := range o.waiting {
+		if take(p) {
+			delete(o.waiting, p)
+			if e.waiting == nil {
+				e.waiting = map[int32][]*Answer{}
+			}
+			e.waiting[p] = w
+		}
+	}
 	for p, pt := range o.parts {
 		if !take(p) {
 			continue

@@ -19,6 +19,9 @@ type Report struct {
 	Learners     []LearnerReport `json:"learners"`
 	// Leader is the per-key leader's figures, when the engine keeps one.
 	Leader *LeaderReport `json:"leader,omitempty"`
+	// Served scores the answers a service gave against their labels, once
+	// any was served (served.go).
+	Served *ServedReport `json:"served,omitempty"`
 }
 
 // LearnerReport is one learner's metrics, overall and (optionally) per key.
@@ -68,11 +71,13 @@ type AlarmReport struct {
 
 // Report builds the report from the running totals, in time independent of
 // the number of keys; withKeys adds per-key metrics (a visit of every key).
-func (e *Engine) Report(withKeys bool) Report { return e.report(withKeys, e.numKeys(), e.Positions()) }
+func (e *Engine) Report(withKeys bool) Report {
+	return e.report(withKeys, e.numKeys(), e.Positions(), e.servedTotals())
+}
 
-func (e *Engine) report(withKeys bool, numKeys int, positions []Position) Report {
+func (e *Engine) report(withKeys bool, numKeys int, positions []Position, served *ServedTotals) Report {
 	r := Report{Events: e.applied, Rejected: e.rejected, Duplicates: e.duplicates, Skipped: e.skipped, IgnoredFeatures: e.ignored,
-		Keys: numKeys, StateBytes: e.StateBytes(), RecentWindow: e.cfg.Score.Recent, Positions: positions}
+		Keys: numKeys, StateBytes: e.StateBytes(), RecentWindow: e.cfg.Score.Recent, Positions: positions, Served: served.report(&e.cfg)}
 	var keys []*keyState
 	if withKeys {
 		// Keys by name alone, not by partition.

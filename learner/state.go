@@ -49,8 +49,9 @@ const (
 	// conformal intervals and the intervals' widths to the scorers; before
 	// 8 they start from nothing. 9 adds the ADWIN detector, when the
 	// configuration chooses it. 10 adds each key's leader, when the
-	// configuration keeps one.
-	stateVersion = 10
+	// configuration keeps one. 11 adds each partition's served answers
+	// and their scores (served.go).
+	stateVersion = 11
 	maxNames     = MaxFeatures
 	maxSections  = 1 << 20
 )
@@ -118,6 +119,10 @@ func (e *Engine) EncodePartitions(sink SectionSink, ps []int32) error {
 		if pt.times.set {
 			w.i64(pt.times.first)
 			w.i64(pt.times.last)
+		}
+		w.bool(pt.served != nil)
+		if pt.served != nil {
+			pt.served.encode(w)
 		}
 		w.int(len(keys))
 		for i, ks := range keys {
@@ -456,6 +461,9 @@ func (e *Engine) decodePartition(sp int32, r *decoder) error {
 		if pt.times.set {
 			pt.times.first, pt.times.last = r.i64(), r.i64()
 		}
+	}
+	if r.ver >= 11 && r.bool() {
+		pt.served = e.decodeBook(r)
 	}
 	nk := r.count(e.cfg.MaxKeys-e.keys.len(), 8)
 	if nk > 0 && e.schema == nil {

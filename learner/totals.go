@@ -26,6 +26,7 @@ type Totals struct {
 	Positions  []Position      `json:"positions"`
 	Learners   []LearnerTotals `json:"learners"`
 	Leader     *LearnerTotals  `json:"leader,omitempty"` // the keys' leaders, when kept (Switches in Alarms)
+	Served     *ServedTotals   `json:"served,omitempty"` // the served answers' scores, once any was served
 }
 
 // LearnerTotals are one learner's totals over an engine's keys.
@@ -49,7 +50,7 @@ type LearnerTotals struct {
 // Totals returns the engine's totals.
 func (e *Engine) Totals() Totals {
 	t := Totals{Config: e.cfg.Digest(), Applied: e.applied, Rejected: e.rejected, Duplicates: e.duplicates, Skipped: e.skipped,
-		Ignored: e.ignored, Keys: int64(e.numKeys()), KeyBytes: e.keyBase, Positions: e.Positions()}
+		Ignored: e.ignored, Keys: int64(e.numKeys()), KeyBytes: e.keyBase, Positions: e.Positions(), Served: e.servedTotals()}
 	for i := range e.totals {
 		s := &e.totals[i]
 		lt := s.pool.totals()
@@ -104,6 +105,17 @@ func (t *Totals) Add(o Totals) error {
 	slices.SortFunc(t.Positions, func(a, b Position) int { return int(a.Partition - b.Partition) })
 	if t.Leader != nil {
 		t.Leader.addScores(o.Leader) // the leader's switches ride in Alarms
+	}
+	switch {
+	case o.Served == nil:
+	case t.Served == nil:
+		c := *o.Served
+		c.Rows = slices.Clone(o.Served.Rows)
+		t.Served = &c
+	case len(t.Served.Rows) != len(o.Served.Rows):
+		return fmt.Errorf("%w: served totals of other learners cannot be added", ErrInvalidSpec)
+	default:
+		t.Served.add(o.Served)
 	}
 	for i := range t.Learners {
 		a, b := &t.Learners[i], &o.Learners[i]
@@ -167,5 +179,8 @@ func (c Config) ReportOf(t Totals) (Report, error) {
 	if lt := t.Leader; lt != nil && c.Leader.On {
 		e.lead = leadTotals{pool: lt.pool(e.cfg.Score.Level), switches: lt.Alarms}
 	}
-	return e.report(false, int(t.Keys), t.Positions), nil
+	if t.Served != nil && len(t.Served.Rows) != len(c.Learners)+1 {
+		return Report{}, fmt.Errorf("%w: the served totals were taken under another configuration", ErrInvalidSpec)
+	}
+	return e.report(false, int(t.Keys), t.Positions, t.Served), nil
 }
