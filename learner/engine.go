@@ -145,9 +145,9 @@ type Engine struct {
 
 	stateVer uint32 // while decoding: the version of the state being read
 
-	intervals intervalConfig // the prediction intervals' settings (Scorer)
-	lead      leadTotals     // the keys' leaders (Config.Leader)
-	served    ServedConfig   // e.cfg.Served with its defaults
+	intervals intervalConfig      // the prediction intervals' settings (Scorer)
+	lead      leadTotals          // the keys' leaders (Config.Leader)
+	served    ServedConfig        // e.cfg.Served with its defaults
 	waiting   map[int32][]*Answer // served answers of partitions not held yet (Serve)
 
 	lastPred []float64 // each learner's prediction for the last applied event

@@ -14,7 +14,7 @@ import (
 type part struct {
 	hwm int64
 	counts
-	times         timeRange // event times of the events applied
+	times         timeRange   // event times of the events applied
 	learnerAlarms []int64     // per learner
 	last          []*Alarm    // per learner, its latest alarm here (nil: none)
 	served        *servedBook // its served answers (served.go); nil before any

@@ -102,14 +102,14 @@ type servedStats struct {
 // registration order), those registered after offsets not yet applied
 // (sorted by After, Log, Seq), the logs read into the state, the scores.
 type servedBook struct {
-	pending map[string]*Answer
-	queue   []*Answer // waiting, in registration order; done ones are skipped
-	head    int
-	due     int       // waiting answers (not done, in queue)
-	sched   []*Answer // registered after an offset the partition has not reached
-	logs    map[string]int64
-	now     int64 // the latest time a label brought (Engine.Label), beyond the partition's events
-	stats   []servedStats
+	pending                                map[string]*Answer
+	queue                                  []*Answer // waiting, in registration order; done ones are skipped
+	head                                   int
+	due                                    int       // waiting answers (not done, in queue)
+	sched                                  []*Answer // registered after an offset the partition has not reached
+	logs                                   map[string]int64
+	now                                    int64 // the latest time a label brought (Engine.Label), beyond the partition's events
+	stats                                  []servedStats
 	expired, evicted, unmatched, labelOnly int64
 }
 
@@ -479,9 +479,9 @@ type ServedTotals struct {
 // ServedRowTotals is one row of ServedTotals.
 type ServedRowTotals struct {
 	Answers, Labelled, Intervals, Covered, DelayN int64
-	Sums                                         [8]window.Exact // abs, sq, err, width, fading abs, fading sq, fading weight, delay
-	DelayMax                                     float64
-	Buckets                                      [len(delayBuckets) + 1]int64
+	Sums                                          [8]window.Exact // abs, sq, err, width, fading abs, fading sq, fading weight, delay
+	DelayMax                                      float64
+	Buckets                                       [len(delayBuckets) + 1]int64
 }
 
 // servedTotals sums the partitions' books; nil when nothing was served.
