@@ -121,6 +121,10 @@ type Config struct {
 	// group (a predict for a key it owns, its part of a group-wide view).
 	// Default: DefaultForwardTimeout.
 	ForwardTimeout time.Duration
+	// NoAnswerLog turns served scoring off: predict answers carry no
+	// answer_id and nothing is written per answer. Default: false (every
+	// answer is registered and logged before it is returned).
+	NoAnswerLog bool
 	// History, when set, is a history file (NDJSON, plain, .gz or
 	// .zst) to learn from instead of the local journal: each line's position
 	// is its line number. Default: none (the journal).

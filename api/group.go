@@ -169,6 +169,11 @@ func (l *loop) loadPartition(p int32) (*partSt, error) {
 		store.Close()
 		return nil, err
 	}
+	defer func() {
+		if err := l.replayAnswers(l.eng, []int32{p}); err != nil {
+			l.cfg.Log.Error("consumer group: the answers served for a partition cannot be read back; they are not scored", "partition", p, "error", err)
+		}
+	}()
 	if st == nil && l.group.whole != nil {
 		if _, _, ok := l.group.whole.PartitionCounts(p); ok {
 			// The partition's state so far is in the whole-state checkpoint
@@ -228,6 +233,7 @@ func (l *loop) adoptWholeState(dir string) error {
 
 // dropPartition takes p's state out of the engine and closes its store.
 func (l *loop) dropPartition(p int32, ps *partSt) {
+	l.closeAnswerLog(p)
 	l.eng.Split([]int32{p}) // the split-off engine is garbage
 	l.lastAlarms = l.eng.Alarms()
 	ps.store.Close()
@@ -425,6 +431,9 @@ func (l *loop) restoreOne(p int32, v uint64, req RestoreRequest) cmdResult {
 	}
 	if mode == ResumeFromNow {
 		restored.CoverUpTo(live)
+	}
+	if err := l.replayAnswers(restored, []int32{p}); err != nil {
+		return cmdResult{err: cmdErr(ErrNotStored, "restore of checkpoint %d of partition %d not done: the answers served since cannot be read back (%v)", v, p, err).withCause(err)}
 	}
 	// Recorded first: a restore happens as a whole or not at all.
 	rps := &partSt{store: ps.store, last: ps.last}

@@ -12,6 +12,7 @@ import (
 	"math"
 	"net/http"
 	"path/filepath"
+	"slices"
 	"strconv"
 	"strings"
 	"time"
@@ -195,6 +196,11 @@ type Interval struct {
 // PredictAnswer is the answer for one row.
 type PredictAnswer struct {
 	Key string `json:"key"`
+	// AnswerID names this answer: send it as an event's "answer_id" (with
+	// the event, or alone with the target) once the truth is known, and
+	// the answer is scored as served (GET /v1/learners, "served"). The
+	// row's own answer_id when it gave one.
+	AnswerID string `json:"answer_id,omitempty"`
 	// AnsweredBy names the learner that answered when the request asked
 	// for the key's leader ("learner":"leader").
 	AnsweredBy string    `json:"answered_by,omitempty"`
@@ -221,7 +227,11 @@ type PredictResponse struct {
 	Events        int64           `json:"events_applied"`
 	Predictions   []PredictAnswer `json:"predictions,omitempty"`
 	*PredictAnswer
-	Caution string `json:"caution"`
+	// AnswersNotRecorded says why the answers carry no answer_id: they
+	// could not be recorded (the answer log failed; the key moved), so
+	// their labels cannot be matched. The predictions themselves stand.
+	AnswersNotRecorded string `json:"answers_not_recorded,omitempty"`
+	Caution            string `json:"caution"`
 }
 
 const caution = "A prediction is only as good as the learner's recent error on this key: check recent_rmse before acting. tidemark is not a safety system."
@@ -265,17 +275,60 @@ func (s *Service) handlePredict(c echo.Context) error {
 	if routed, err := s.routePredict(c, snap, body, name, chosen, rows); routed {
 		return err
 	}
-	resp, err := s.predictRows(snap, name, rows, single)
+	resp, answers, err := s.predictRows(snap, name, rows, single)
 	if err != nil {
+		return err
+	}
+	if err := s.recordAnswers(&resp, answers); err != nil {
 		return err
 	}
 	resp.LearnerChosen = chosen
 	return c.JSON(http.StatusOK, resp)
 }
 
-// predictRows answers rows from the published state.
-func (s *Service) predictRows(snap *snapshot, name string, rows []json.RawMessage, single bool) (PredictResponse, error) {
+// recordAnswers registers the answers of resp with the loop and waits until
+// their log has them on stable storage; then it gives each its id. An id
+// already waiting for its label is refused (409); when the answers cannot
+// be recorded the predictions go out without ids, saying why.
+func (s *Service) recordAnswers(resp *PredictResponse, answers []learner.Answer) error {
+	if s.cfg.NoAnswerLog {
+		return nil
+	}
+	var ws []written
+	var err error
+	s.loop.do(func(l *loop) cmdResult { ws, err = l.serveAnswers(answers); return cmdResult{} })
+	for _, w := range ws {
+		if err == nil {
+			err = w.log.Sync(w.seq)
+		}
+	}
+	switch {
+	case errors.Is(err, learner.ErrDuplicateAnswer):
+		return httpErr(http.StatusConflict, "%v: give each answer an id of its own, or none (one is made)", err)
+	case err != nil:
+		s.cfg.Log.Error("answers could not be recorded; served without ids", "error", err)
+		resp.AnswersNotRecorded = Plain(fmt.Sprintf("the answers could not be recorded (%v); their labels cannot be matched", err))
+		return nil
+	}
+	set := func(a *PredictAnswer, i int) { a.AnswerID = answers[i].ID }
+	if resp.PredictAnswer != nil {
+		set(resp.PredictAnswer, 0)
+	}
+	for i := range resp.Predictions {
+		set(&resp.Predictions[i], i)
+	}
+	return nil
+}
+
+// predictRows answers rows from the published state, and returns what was
+// answered as learner.Answers for recordAnswers.
+func (s *Service) predictRows(snap *snapshot, name string, rows []json.RawMessage, single bool) (PredictResponse, []learner.Answer, error) {
 	resp := PredictResponse{Learner: name, Checkpoint: snap.state.ckVersion, Events: snap.state.applied, Caution: caution}
+	learnerRow := len(s.cfg.Engine.Learners) // the leader's
+	if i := slices.IndexFunc(s.cfg.Engine.Learners, func(sp learner.Spec) bool { return sp.Name == name }); i >= 0 {
+		learnerRow = i
+	}
+	answers := make([]learner.Answer, 0, len(rows))
 	var ev learner.Event
 	for i, row := range rows {
 		where := ""
@@ -283,28 +336,28 @@ func (s *Service) predictRows(snap *snapshot, name string, rows []json.RawMessag
 			where = fmt.Sprintf("row %d: ", i)
 		}
 		if err := learner.DecodeRow(row, &ev); err != nil {
-			return resp, httpErr(http.StatusBadRequest, "%s%v", where, err)
+			return resp, nil, httpErr(http.StatusBadRequest, "%s%v", where, err)
 		}
 		if s.kafka != nil {
 			if p, ok := s.partitionOf(ev.Key); ok && !snap.owns(p) {
-				return resp, httpErr(http.StatusServiceUnavailable, "%skey %q is in partition %d, which instance %s does not own (it moved); retry shortly", where, ev.Key, p, snap.group.Instance)
+				return resp, nil, httpErr(http.StatusServiceUnavailable, "%skey %q is in partition %d, which instance %s does not own (it moved); retry shortly", where, ev.Key, p, snap.group.Instance)
 			}
 		}
 		p, err := snap.state.predict(ev.Key, name, &ev)
 		switch {
 		case errors.Is(err, learner.ErrUnknownLearner):
-			return resp, httpErr(http.StatusNotFound, "%s%v", where, err)
+			return resp, nil, httpErr(http.StatusNotFound, "%s%v", where, err)
 		case errors.Is(err, learner.ErrUnknownKey):
-			return resp, httpErr(http.StatusNotFound, "%s%v; a key gets learners with its first event", where, err)
+			return resp, nil, httpErr(http.StatusNotFound, "%s%v; a key gets learners with its first event", where, err)
 		case errors.Is(err, learner.ErrRejected):
-			return resp, httpErr(http.StatusBadRequest, "%s%v", where, err)
+			return resp, nil, httpErr(http.StatusBadRequest, "%s%v", where, err)
 		case errors.Is(err, learner.ErrNotReady):
-			return resp, httpErr(http.StatusConflict, "%s%v; it needs more events before it predicts", where, err)
+			return resp, nil, httpErr(http.StatusConflict, "%s%v; it needs more events before it predicts", where, err)
 		case err != nil:
-			return resp, err
+			return resp, nil, err
 		}
 		if s.cfg.MinScored > 0 && p.Scored < s.cfg.MinScored {
-			return resp, httpErr(http.StatusConflict, "%slearner %q has been scored on %d events of key %q; it answers after %d, so that its recent error can be checked first",
+			return resp, nil, httpErr(http.StatusConflict, "%slearner %q has been scored on %d events of key %q; it answers after %d, so that its recent error can be checked first",
 				where, name, p.Scored, ev.Key, s.cfg.MinScored)
 		}
 		a := PredictAnswer{Key: ev.Key, Prediction: p.Value, RecentRMSE: p.RecentRMSE, Trained: p.Trained, Scored: p.Scored}
@@ -315,16 +368,22 @@ func (s *Service) predictRows(snap *snapshot, name string, rows []json.RawMessag
 		if s.cfg.Interval == IntervalNormal {
 			half = p.Normal
 		}
+		ans := learner.Answer{ID: ev.AnswerID, Key: ev.Key, Learner: learnerRow, Value: p.Value}
+		if ans.ID == "" {
+			ans.ID = newAnswerID()
+		}
 		if half != nil && !math.IsNaN(*half) {
 			a.Interval = &Interval{Low: p.Value - *half, High: p.Value + *half, Method: s.cfg.Interval, Level: p.Level}
+			ans.Low, ans.High, ans.HasInterval = a.Interval.Low, a.Interval.High, true
 		}
+		answers = append(answers, ans)
 		if single {
 			resp.PredictAnswer = &a
 		} else {
 			resp.Predictions = append(resp.Predictions, a)
 		}
 	}
-	return resp, nil
+	return resp, answers, nil
 }
 
 // EventsResponse answers POST /v1/events.

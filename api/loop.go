@@ -56,6 +56,7 @@ type loop struct {
 	handled     atomic.Int64                  // events handled (applied, rejected or passed) since start
 	group       *group                        // the partitions owned in a consumer group (group.go); nil but with Kafka intake
 	alarmCounts []int64                       // each learner's alarms when the page was last told (noteAlarms)
+	answers     answerLogs                    // the logs of the answers served (answers.go)
 }
 
 // item is one event handed from a source to the loop, decoded by the
@@ -120,9 +121,12 @@ func (l *loop) restoreLatest() error {
 		l.cfg.Log.Info("no checkpoint yet; starting from the beginning of the stream")
 		l.lastCkTime = time.Now()
 		l.setCatchUp()
-		return nil
+		return l.replayAnswers(l.eng, nil)
 	}
 	if err != nil {
+		return err
+	}
+	if err := l.replayAnswers(l.eng, nil); err != nil {
 		return err
 	}
 	l.lastAlarms = l.eng.Alarms()
@@ -602,6 +606,10 @@ func (l *loop) restore(v uint64, req RestoreRequest) cmdResult {
 	}
 	if mode == ResumeFromNow {
 		eng.CoverUpTo(live)
+	}
+	if err := l.replayAnswers(eng, nil); err != nil {
+		return cmdResult{err: cmdErr(ErrNotStored, "restore of checkpoint %d not done: the answers served since cannot be read back (%v); "+
+			"the service goes on from its state before this request", v, err).withCause(err)}
 	}
 	prevEng, prevSkip, prevAlarms, prevCurveAt := l.eng, l.skip, l.lastAlarms, l.curveAt
 	l.eng, l.skip, l.lastAlarms, l.curveAt = eng, nil, eng.Alarms(), eng.Applied()

@@ -272,11 +272,15 @@ func (s *Service) routePredict(c echo.Context, snap *snapshot, body []byte, name
 		for j, i := range local {
 			sub[j] = rows[i]
 		}
-		mine, err := s.predictRows(snap, name, sub, false)
+		mine, answers, err := s.predictRows(snap, name, sub, false)
+		if err == nil {
+			err = s.recordAnswers(&mine, answers)
+		}
 		if err != nil {
 			wg.Wait()
 			return true, err
 		}
+		resp.AnswersNotRecorded = mine.AnswersNotRecorded
 		for j, i := range local {
 			resp.Predictions[i] = mine.Predictions[j]
 		}
@@ -291,6 +295,9 @@ func (s *Service) routePredict(c echo.Context, snap *snapshot, body []byte, name
 		}
 		for j, i := range pt.idx {
 			resp.Predictions[i] = pt.resp.Predictions[j]
+		}
+		if pt.resp.AnswersNotRecorded != "" {
+			resp.AnswersNotRecorded = pt.resp.AnswersNotRecorded
 		}
 	}
 	return true, c.JSON(http.StatusOK, resp)

@@ -176,6 +176,7 @@ func privateDir(dir string, log *slog.Logger) error {
 
 func (s *Service) close() {
 	l := s.loop
+	l.closeAnswerLogs()
 	for _, ps := range l.group.all() {
 		ps.store.Close()
 	}

@@ -35,6 +35,7 @@ type stateView struct {
 	ck        checkpoint.Info
 	ckVersion uint64
 	applied   int64
+	served    int64 // the engine's ServedChanges
 	positions string
 }
 
@@ -46,12 +47,12 @@ func newStateView(eng *learner.Engine, ck checkpoint.Info) *stateView {
 	eng.RecycleReleased()
 	pub := eng.Publish()
 	return &stateView{eng: pub, report: pub.Report(false), ck: ck, ckVersion: ck.Version, applied: eng.Applied(),
-		positions: positionsKey(eng)}
+		positions: positionsKey(eng), served: eng.ServedChanges()}
 }
 
 // current reports whether v still shows eng and ck.
 func (v *stateView) current(eng *learner.Engine, ck checkpoint.Info) bool {
-	return v != nil && v.applied == eng.Applied() && v.positions == positionsKey(eng) && v.ckVersion == ck.Version
+	return v != nil && v.applied == eng.Applied() && v.positions == positionsKey(eng) && v.ckVersion == ck.Version && v.served == eng.ServedChanges()
 }
 
 func positionsKey(eng *learner.Engine) string {

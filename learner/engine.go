@@ -145,10 +145,11 @@ type Engine struct {
 
 	stateVer uint32 // while decoding: the version of the state being read
 
-	intervals intervalConfig      // the prediction intervals' settings (Scorer)
-	lead      leadTotals          // the keys' leaders (Config.Leader)
-	served    ServedConfig        // e.cfg.Served with its defaults
-	waiting   map[int32][]*Answer // served answers of partitions not held yet (Serve)
+	intervals     intervalConfig      // the prediction intervals' settings (Scorer)
+	lead          leadTotals          // the keys' leaders (Config.Leader)
+	served        ServedConfig        // e.cfg.Served with its defaults
+	waiting       map[int32][]*Answer // served answers of partitions not held yet (Serve)
+	servedChanges int64               // answers registered and labels seen (ServedChanges)
 
 	lastPred []float64 // each learner's prediction for the last applied event
 	lastOK   []bool    // whether it predicted (was ready)
@@ -777,7 +778,7 @@ func (e *Engine) Publish() *Engine {
 	}
 	v := &Engine{cfg: e.cfg, schema: e.schema, needTime: e.needTime, baseline: e.baseline,
 		applied: e.applied, rejected: e.rejected, duplicates: e.duplicates, ignored: e.ignored, alarms: e.alarms, skipped: e.skipped,
-		totals: slices.Clone(e.totals), parts: cloneParts(e.parts), lastPred: slices.Clone(e.lastPred), lastOK: slices.Clone(e.lastOK),
+		servedChanges: e.servedChanges, totals: slices.Clone(e.totals), parts: cloneParts(e.parts), lastPred: slices.Clone(e.lastPred), lastOK: slices.Clone(e.lastOK),
 		scratch: make([]*scratch, len(e.scratch)), drift: e.drift,
 		seed: e.seed, root: e.root, frozen: true, nkeys: e.keys.len(), keyBase: e.keyBase}
 	for i := range v.totals {

@@ -77,8 +77,7 @@ type Answer struct {
 	Log         string // the served log that holds it (see Engine.Serve), and its offset there
 	Seq         int64
 
-	done  bool // labelled, expired or evicted (still in the queue)
-	sched bool // registered after an offset not applied yet
+	done bool // labelled, expired or evicted (still in the queue)
 }
 
 // delayBuckets are the upper bounds, in seconds, of the label delay
@@ -176,8 +175,8 @@ func (e *Engine) Serve(a Answer) error {
 			e.waiting = map[int32][]*Answer{}
 		}
 		w := e.waiting[a.Partition]
-		if slices.ContainsFunc(w, func(b *Answer) bool { return b.ID == a.ID || (a.Log != "" && b.Log == a.Log && b.Seq == a.Seq) }) {
-			return fmt.Errorf("%w: %q", ErrDuplicateAnswer, truncate(a.ID))
+		if a.Log != "" && slices.ContainsFunc(w, func(b *Answer) bool { return b.Log == a.Log && b.Seq == a.Seq }) {
+			return nil
 		}
 		e.waiting[a.Partition] = insertSched(w, &a)
 		return nil
@@ -189,18 +188,19 @@ func (e *Engine) Serve(a Answer) error {
 		}
 		b.logs[a.Log] = a.Seq // the highest: they come in order
 	}
+	e.servedChanges++
+	c := a
+	if a.After > p.hwm {
+		// Registered after events not applied yet: it waits for them, and
+		// its id is checked then, against the answers waiting at that
+		// point, as it was when it was served.
+		b.sched = insertSched(b.sched, &c)
+		return nil
+	}
 	if b.pending[a.ID] != nil {
 		return fmt.Errorf("%w: %q", ErrDuplicateAnswer, truncate(a.ID))
 	}
-	c := a
-	b.pending[a.ID] = &c
-	b.stats[a.Learner].answers++
-	if a.After <= p.hwm {
-		e.enqueue(b, &c)
-	} else {
-		c.sched = true
-		b.sched = insertSched(b.sched, &c)
-	}
+	e.enqueue(b, &c)
 	return nil
 }
 
@@ -233,6 +233,8 @@ func cmpInt(a, b int64) int {
 // enqueue makes a wait for its label, dropping the oldest waiting answer
 // while more than the cap wait.
 func (e *Engine) enqueue(b *servedBook, a *Answer) {
+	b.pending[a.ID] = a
+	b.stats[a.Learner].answers++
 	b.queue = append(b.queue, a)
 	b.due++
 	for b.due > e.served.Pending {
@@ -273,8 +275,9 @@ func (b *servedBook) compact() {
 func (e *Engine) promote(b *servedBook, q int64) {
 	n := 0
 	for n < len(b.sched) && b.sched[n].After < q {
-		b.sched[n].sched = false
-		e.enqueue(b, b.sched[n])
+		if a := b.sched[n]; b.pending[a.ID] == nil {
+			e.enqueue(b, a)
+		} // else refused when it was served: it was never answered
 		n++
 	}
 	if n > 0 {
@@ -308,9 +311,10 @@ func (e *Engine) expire(b *servedBook, p *part) {
 
 // label scores the answer id against target y at the partition's clock.
 func (e *Engine) label(p *part, id string, y float64) {
+	e.servedChanges++
 	b := e.book(p)
 	a := b.pending[id]
-	if a == nil || a.done || a.sched {
+	if a == nil || a.done {
 		b.unmatched++ // none such waits: unknown, labelled already, dropped, or served after this event
 		return
 	}
@@ -395,6 +399,11 @@ func (e *Engine) adoptWaiting(n int32, _ *part) {
 		e.Serve(*a) // cannot fail: ids were checked among themselves, the book is new
 	}
 }
+
+// ServedChanges counts the answers registered and labels seen: a reader
+// that publishes copies of the state compares it to know whether the served
+// figures changed (events alone do not tell: answers come between them).
+func (e *Engine) ServedChanges() int64 { return e.servedChanges }
 
 // ServedLogs returns, for each served log the state has read, the highest
 // offset it holds of it, over the partitions given (all when none): where a
@@ -646,11 +655,9 @@ func (e *Engine) decodeBook(r *decoder) *servedBook {
 	b.due = len(b.queue)
 	n = r.count(1<<30, 40)
 	for i := 0; i < n && r.err == nil; i++ {
-		a := decodeAnswer(r)
-		b.pending[a.ID] = a
-		b.sched = append(b.sched, a)
+		b.sched = append(b.sched, decodeAnswer(r))
 	}
-	if r.err == nil && len(b.pending) != b.due+len(b.sched) {
+	if r.err == nil && len(b.pending) != b.due {
 		r.fail("served answers repeated")
 	}
 	n = r.count(1<<20, 12)

@@ -407,9 +407,18 @@ func (j *Journal) Append(payloads [][]byte) (first, last int64, err error) {
 	j.size += int64(len(j.buf))
 	j.next += int64(len(payloads))
 	last = j.next - 1
+	if err := j.syncTo(last); err != nil {
+		return 0, 0, err
+	}
+	return first, last, nil
+}
+
+// syncTo returns once every record up to last is on stable storage, sharing
+// one fsync among concurrent callers (group commit). j.mu is held.
+func (j *Journal) syncTo(last int64) error {
 	for j.durable < last {
 		if err := j.usable(); err != nil {
-			return 0, 0, err
+			return err
 		}
 		if j.syncing {
 			j.cond.Wait()
@@ -423,12 +432,12 @@ func (j *Journal) Append(payloads [][]byte) (first, last int64, err error) {
 		j.syncing = false
 		j.cond.Broadcast()
 		if serr != nil {
-			return 0, 0, j.fail(fmt.Errorf("intake: journal: fsync: %w", serr))
+			return j.fail(fmt.Errorf("intake: journal: fsync: %w", serr))
 		}
 		// Synced into a file that is no longer in the directory is not
 		// durable: neither acknowledge nor show it to readers, now or later.
 		if err := j.linked(); err != nil {
-			return 0, 0, j.fail(err)
+			return j.fail(err)
 		}
 		if target > j.durable {
 			j.durable = target
@@ -436,7 +445,105 @@ func (j *Journal) Append(payloads [][]byte) (first, last int64, err error) {
 			j.notify = make(chan struct{})
 		}
 	}
-	return first, last, nil
+	return nil
+}
+
+// Write stores payloads as consecutive records without waiting for them to
+// reach stable storage, and returns their offsets; Sync waits for that. A
+// writer that must not wait for a disk flush (the service's loop, logging
+// the answers it serves) writes, and whoever acknowledges syncs.
+func (j *Journal) Write(payloads [][]byte) (first, last int64, err error) {
+	if len(payloads) == 0 {
+		return 0, 0, errors.New("intake: journal: empty write")
+	}
+	j.mu.Lock()
+	defer j.mu.Unlock()
+	if err := j.usable(); err != nil {
+		return 0, 0, err
+	}
+	if j.size >= j.segmentBytes {
+		for j.syncing { // a rollover must not race a sync of the old file
+			j.cond.Wait()
+		}
+		if err := j.f.Sync(); err != nil {
+			return 0, 0, j.fail(fmt.Errorf("intake: journal: %w", err))
+		}
+		j.f.Close()
+		if err := j.createSegment(j.next); err != nil {
+			return 0, 0, j.fail(err)
+		}
+	}
+	first = j.next
+	j.buf = j.buf[:0]
+	for i, p := range payloads {
+		if len(p) > MaxRecordBytes {
+			return 0, 0, fmt.Errorf("intake: journal: record of %d bytes, more than %d", len(p), MaxRecordBytes)
+		}
+		off := first + int64(i)
+		j.buf = binary.LittleEndian.AppendUint32(j.buf, uint32(len(p)))
+		j.buf = binary.LittleEndian.AppendUint32(j.buf, recordCRC(off, p))
+		j.buf = binary.LittleEndian.AppendUint64(j.buf, uint64(off))
+		j.buf = append(j.buf, p...)
+	}
+	if _, werr := j.f.Write(j.buf); werr != nil {
+		if terr := j.f.Truncate(j.size); terr != nil {
+			return 0, 0, j.fail(fmt.Errorf("intake: journal: write failed (%v) and could not be undone: %w", werr, terr))
+		}
+		if _, serr := j.f.Seek(j.size, io.SeekStart); serr != nil {
+			return 0, 0, j.fail(fmt.Errorf("intake: journal: %w", serr))
+		}
+		return 0, 0, fmt.Errorf("intake: journal: write: %w", werr)
+	}
+	j.size += int64(len(j.buf))
+	j.next += int64(len(payloads))
+	return first, j.next - 1, nil
+}
+
+// Sync returns once every record up to offset last is on stable storage.
+func (j *Journal) Sync(last int64) error {
+	j.mu.Lock()
+	defer j.mu.Unlock()
+	return j.syncTo(last)
+}
+
+// ReadJournal calls each, in order, with every valid record of offset from
+// or later in the journal directory dir, reading its files without opening
+// the journal: a torn tail ends the reading, damage is passed over (its
+// records are not read). It stops at each's first error and returns it.
+func ReadJournal(dir string, from int64, each func(off int64, payload []byte) error) error {
+	segs, err := (&Journal{dir: dir}).segments()
+	if err != nil {
+		return err
+	}
+	for i, sg := range segs {
+		if i+1 < len(segs) && segs[i+1].start <= from {
+			continue // every record of it precedes from
+		}
+		b, err := os.ReadFile(sg.path)
+		if err != nil {
+			return fmt.Errorf("intake: journal: %w", err)
+		}
+		pos, want := int64(0), sg.start
+		for pos < int64(len(b)) {
+			n, off, ok := validAt(b, pos, want)
+			if !ok {
+				q, o, found := resync(b, pos+1, want)
+				if !found {
+					break
+				}
+				pos, want = q, o
+				continue
+			}
+			if off >= from {
+				if err := each(off, b[pos+recordHeader:pos+recordHeader+n]); err != nil {
+					return err
+				}
+			}
+			pos += recordHeader + n
+			want = off + 1
+		}
+	}
+	return nil
 }
 
 func (j *Journal) usable() error {
