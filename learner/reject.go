@@ -74,6 +74,9 @@ func (e *Engine) NewValidator() *Validator {
 // ev must have passed DecodeEvent or ValidateEvent. A passed event counts
 // towards the schema and the key cap of the events checked after it.
 func (v *Validator) Check(ev *Event) error {
+	if ev.LabelOnly {
+		return nil // labels an answer; trains nothing (served.go)
+	}
 	schema := v.schema
 	if schema == nil {
 		schema = SchemaOf(ev, v.e.cfg.Features)
