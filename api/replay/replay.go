@@ -11,6 +11,7 @@ import (
 	"hash"
 	"io"
 	"sync"
+	"time"
 
 	"tidemark/api/intake"
 	"tidemark/api/persist"
@@ -63,6 +64,17 @@ type ReplayConfig struct {
 	// taken under another configuration or over a history this one does not
 	// extend. With no checkpoint at all the replay starts from the beginning.
 	Resume bool
+	// LabelDelay, when positive, replays the history as a service that
+	// serves predictions and gets each label this much event time later
+	// (served.go): at each event's time every learner (and the leader)
+	// answers for it from the state as it is then, and the event — its
+	// label — is applied and scores those answers once the stream's
+	// clock has passed its time + LabelDelay. The prequential figures are
+	// those of a replay without it (the events are applied in the same
+	// order); the served ones are what answers given that much before
+	// their labels scored. Events need times. Not with Helpers,
+	// Checkpoints or Resume.
+	LabelDelay time.Duration
 }
 
 // historySource is the manifest's record of a replay's position in its
@@ -89,6 +101,7 @@ type replayer struct {
 	resume      *historySource // the checkpoint resumed from, until its prefix is verified
 	logged      int
 	rejects     int
+	waiting     []lateEvent // asked, label not yet due (LabelDelay)
 }
 
 // Replay runs every line of h through eng, test-then-train, in order. Each
@@ -102,6 +115,9 @@ func Replay(ctx context.Context, h *intake.History, eng *learner.Engine, cfg Rep
 	r := &replayer{cfg: cfg, eng: eng, prefix: sha256.New()}
 	if len(cfg.Helpers) > 0 && (cfg.Checkpoints != nil || cfg.Resume || cfg.Sequential) {
 		return errors.New("replay: helper engines cannot be combined with checkpoints, resume or a sequential run")
+	}
+	if cfg.LabelDelay > 0 && (len(cfg.Helpers) > 0 || cfg.Checkpoints != nil || cfg.Resume) {
+		return errors.New("replay: a label delay cannot be combined with parallel learners, checkpoints or resume")
 	}
 	if cfg.Resume {
 		if cfg.Checkpoints == nil {
@@ -344,7 +360,7 @@ func (r *replayer) step(it *lineItem) error {
 		return it.readErr
 	}
 	if it.kind == lineEOF {
-		return nil
+		return r.flushLate()
 	}
 	no := it.no
 	pos := learner.Position{Partition: 0, Offset: no}
@@ -363,6 +379,8 @@ func (r *replayer) step(it *lineItem) error {
 	var err error
 	switch {
 	case r.eng.Covers(pos):
+	case (it.kind == lineTooLong || it.kind == lineBad) && r.cfg.LabelDelay > 0:
+		r.lateSkip(no, it.err) // in line order with the events waiting
 	case it.kind == lineTooLong:
 		r.eng.Skip(pos)
 		err = r.reject(no, it.err)
@@ -371,18 +389,27 @@ func (r *replayer) step(it *lineItem) error {
 	case it.kind == lineBad:
 		r.eng.Skip(pos)
 		err = r.reject(no, it.err)
+	case r.cfg.LabelDelay > 0:
+		err = r.late(no, &it.ev)
 	default:
-		if _, aerr := r.eng.Apply(pos, &it.ev); aerr != nil {
-			err = r.reject(no, aerr)
-		} else if r.cfg.Observe != nil {
-			r.cfg.Observe(no, &it.ev, r.eng)
-		}
+		err = r.apply(no, &it.ev)
 	}
 	if err != nil {
 		return err
 	}
 	if r.cfg.Checkpoints != nil && r.cfg.Every > 0 && no%r.cfg.Every == 0 {
 		return r.checkpoint(checkpoint.Periodic)
+	}
+	return nil
+}
+
+// apply applies the event of line no.
+func (r *replayer) apply(no int64, ev *learner.Event) error {
+	if _, err := r.eng.Apply(learner.Position{Partition: 0, Offset: no}, ev); err != nil {
+		return r.reject(no, err)
+	}
+	if r.cfg.Observe != nil {
+		r.cfg.Observe(no, ev, r.eng)
 	}
 	return nil
 }

@@ -6,6 +6,7 @@ import (
 	"math"
 	"slices"
 	"text/tabwriter"
+	"time"
 
 	"tidemark/learner"
 )
@@ -61,6 +62,9 @@ func WriteTable(w io.Writer, r learner.Report) error {
 			return err
 		}
 	}
+	if err := writeServed(w, r); err != nil {
+		return err
+	}
 	level := 0.0
 	if len(ls) > 0 {
 		level = ls[0].Conformal.Level
@@ -69,6 +73,40 @@ func WriteTable(w io.Writer, r learner.Report) error {
 		"intervals (nominal %g) that held the target, conformal and normal approximation.\n"+
 		"Look at a learner's recent error before acting on its predictions.\n", r.RecentWindow, level)
 	return err
+}
+
+// writeServed prints the served answers' scores beside the prequential
+// ones, when any answer was served.
+func writeServed(w io.Writer, r learner.Report) error {
+	s := r.Served
+	if s == nil {
+		return nil
+	}
+	fmt.Fprintf(w, "\nanswers as served, scored when their labels came (%d still waiting, %d expired, %d dropped for room)\n",
+		s.Pending, s.Expired, s.Evicted)
+	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
+	fmt.Fprintln(tw, "learner	answers	labelled	served rmse	prequential rmse	served mae	held	mean delay	")
+	rows := slices.Clone(s.Learners)
+	if s.Leader != nil {
+		rows = append(rows, *s.Leader)
+	}
+	for _, m := range rows {
+		pre := "–"
+		for _, l := range r.Learners {
+			if l.Name == m.Name {
+				pre = num(l.RMSE)
+			}
+		}
+		if m.Name == learner.LeaderName && r.Leader != nil {
+			pre = num(r.Leader.RMSE)
+		}
+		delay := "–"
+		if m.Delay.MeanSeconds != nil {
+			delay = time.Duration(*m.Delay.MeanSeconds * float64(time.Second)).Round(time.Second).String()
+		}
+		fmt.Fprintf(tw, "%s\t%d\t%d\t%s\t%s\t%s\t%s\t%s\t\n", m.Name, m.Answers, m.Labelled, num(m.RMSE), pre, num(m.MAE), num(m.Coverage), delay)
+	}
+	return tw.Flush()
 }
 
 func num(p *float64) string {

@@ -117,6 +117,7 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 	quiet := fs.Bool("quiet", false, "no progress bar")
 	sequential := fs.Bool("sequential", false, "decode on the learning goroutine instead of a second one (same results; for measuring)")
 	workers := fs.Int("workers", 0, "spread the learners over this many goroutines (0: one per CPU; same results;\nnot with --checkpoints, --curve, --plot or --leader, which use one)")
+	labelDelay := fs.Duration("label-delay", 0, "replay as a service whose labels come this much event time after the question (e.g. 2h):\nevery learner answers each event at its time and is scored on those answers when the label\narrives (\"served\" in the report), beside its prequential score; not with --checkpoints")
 	pos, err := parse(fs, args)
 	if err != nil {
 		return err
@@ -141,6 +142,12 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 	}
 	if *workers < 0 {
 		return usagef("--workers %d: want 0 (one per CPU) or a positive number of goroutines", *workers)
+	}
+	if *labelDelay < 0 {
+		return usagef("--label-delay %v: want a positive duration of event time, e.g. 2h", *labelDelay)
+	}
+	if *labelDelay > 0 && *ckDir != "" {
+		return usagef("--label-delay cannot be combined with --checkpoints")
 	}
 	if *curveEvery < 1 {
 		return usagef("--curve-every %d: want a positive number of events per row", *curveEvery)
@@ -177,7 +184,7 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 	}
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
 	defer stop()
-	rc := replay.ReplayConfig{Strict: *strict, Log: plainWriter{stderr}, Checkpoints: store, Every: *every, Resume: *resume, Sequential: *sequential}
+	rc := replay.ReplayConfig{Strict: *strict, Log: plainWriter{stderr}, Checkpoints: store, Every: *every, Resume: *resume, Sequential: *sequential, LabelDelay: *labelDelay}
 	var rec *chart.Recorder
 	if *curvePath != "" || *plotPath != "" {
 		rec = chart.NewRecorder(eng, *curveEvery, *plotKey)
@@ -188,7 +195,8 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 		rc.Progress = bar.update
 		rc.Log = bar.writer()
 	}
-	parallel := *workers != 1 && store == nil && rec == nil && !*sequential && len(cfg.Learners) > 1 && !cfg.Leader.On // the leader compares every learner of a key
+	parallel := *workers != 1 && store == nil && rec == nil && !*sequential && len(cfg.Learners) > 1 && !cfg.Leader.On && // the leader compares every learner of a key
+		*labelDelay == 0 // the answers served are scored on one engine
 	var report learner.Report
 	if parallel {
 		report, err = replay.ReplayParallel(ctx, h, cfg, *workers, rc)
