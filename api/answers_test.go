@@ -221,6 +221,18 @@ func TestServedScoresSurviveRestartsAndRestores(t *testing.T) {
 	}
 	rep := r.report(t)
 	check("after a restart and a restore", rep)
+	_, metrics := r.call(t, "GET", "/metrics", "", nil)
+	for row, name := range names {
+		want := fmt.Sprintf("tidemark_answers_labelled_total{learner=%q} %d", name, ref.n[row])
+		if !bytes.Contains(metrics, []byte(want)) {
+			t.Errorf("/metrics lacks %s", want)
+		}
+	}
+	for _, want := range []string{"tidemark_answer_rmse{learner=", "tidemark_answers_pending ", "tidemark_answer_label_delay_seconds_bucket{learner="} {
+		if !bytes.Contains(metrics, []byte(want)) {
+			t.Errorf("/metrics lacks %s", want)
+		}
+	}
 	for _, m := range rep.Served.Learners {
 		pre := 0.0
 		for _, l := range rep.Learners {

@@ -80,13 +80,20 @@ var (
 	descPartCk   = prometheus.NewDesc("tidemark_partition_checkpoint_age_seconds", "Consumer group: seconds since the newest checkpoint of an owned partition was created.", []string{"partition"}, nil)
 	descPartVer  = prometheus.NewDesc("tidemark_partition_checkpoint_version", "Consumer group: the newest checkpoint version of an owned partition (its store's own numbering).", []string{"partition"}, nil)
 	descGen      = prometheus.NewDesc("tidemark_group_generation", "Consumer group: the generation this instance is in (it grows with every rebalance).", nil, nil)
+	descAnswers  = prometheus.NewDesc("tidemark_answers_served_total", "Predict answers registered for served scoring, per learner asked (or leader).", []string{"learner"}, nil)
+	descLabelled = prometheus.NewDesc("tidemark_answers_labelled_total", "Answers scored against their labels.", []string{"learner"}, nil)
+	descServedE  = prometheus.NewDesc("tidemark_answer_rmse", "RMSE of the answers as served, against their labels: over all labelled answers, or fading (the prequential fading factor). Compare with tidemark_learner_rmse.", []string{"learner", "window"}, nil)
+	descPending  = prometheus.NewDesc("tidemark_answers_pending", "Answers waiting for their labels.", nil, nil)
+	descDropped  = prometheus.NewDesc("tidemark_answers_dropped_total", "Answers dropped before a label came: expired (waited longer than --answer-ttl of event time) or evicted (--answer-pending reached).", []string{"reason"}, nil)
+	descUnmatch  = prometheus.NewDesc("tidemark_answer_labels_unmatched_total", "Labels naming no waiting answer (unknown, labelled already, dropped).", nil, nil)
+	descDelay    = prometheus.NewDesc("tidemark_answer_label_delay_seconds", "Label delay of the answers labelled, in event time.", []string{"learner"}, nil)
 	descStopped  = prometheus.NewDesc("tidemark_intake_stopped", "1 while a fault of the data directory stops intake (see /readyz for what and why).", nil, nil)
 )
 
 func (c *snapshotCollector) Describe(ch chan<- *prometheus.Desc) {
 	for _, d := range []*prometheus.Desc{descApplied, descRejected, descSkipped, descDead, descRMSE, descMAE, descSkill,
 		descScored, descDrift, descAlarms, descCkVer, descCkAge, descCkBytes, descLag, descReady, descConn, descStopped, descState, descBudget, descKeys,
-		descOwned, descPartCk, descPartVer, descGen} {
+		descOwned, descPartCk, descPartVer, descGen, descAnswers, descLabelled, descServedE, descPending, descDropped, descUnmatch, descDelay} {
 		ch <- d
 	}
 }
@@ -126,6 +133,35 @@ func (c *snapshotCollector) Collect(ch chan<- prometheus.Metric) {
 		state := map[string]float64{"stable": 0, "warning": 1, "drift": 2}[l.Drift.State]
 		gauge(descDrift, state, l.Name)
 		counter(descAlarms, float64(l.Drift.Alarms), l.Name)
+	}
+	if sv := r.Served; sv != nil {
+		rows := sv.Learners
+		if sv.Leader != nil {
+			rows = append(rows[:len(rows):len(rows)], *sv.Leader)
+		}
+		for _, m := range rows {
+			counter(descAnswers, float64(m.Answers), m.Name)
+			counter(descLabelled, float64(m.Labelled), m.Name)
+			if m.RMSE != nil {
+				gauge(descServedE, *m.RMSE, m.Name, "all")
+			}
+			if m.FadingRMSE != nil {
+				gauge(descServedE, *m.FadingRMSE, m.Name, "fading")
+			}
+			if m.Delay.N > 0 {
+				buckets := map[float64]uint64{}
+				var cum uint64
+				for i, b := range m.Delay.BoundsSeconds {
+					cum += uint64(m.Delay.Buckets[i])
+					buckets[b] = cum
+				}
+				ch <- prometheus.MustNewConstHistogram(descDelay, uint64(m.Delay.N), *m.Delay.MeanSeconds*float64(m.Delay.N), buckets, m.Name)
+			}
+		}
+		gauge(descPending, float64(sv.Pending))
+		counter(descDropped, float64(sv.Expired), "expired")
+		counter(descDropped, float64(sv.Evicted), "evicted")
+		counter(descUnmatch, float64(sv.Unmatched))
 	}
 	if ck := snap.state.ck; ck.Version > 0 {
 		gauge(descCkVer, float64(ck.Version))

@@ -17,6 +17,7 @@ import (
 
 	"tidemark/api"
 	"tidemark/api/intake"
+	"tidemark/learner"
 )
 
 // fileConfig is the YAML configuration file of `tidemark serve --config`.
@@ -45,7 +46,12 @@ type fileConfig struct {
 	MaxRows            int      `yaml:"max_rows"`
 	MaxKeys            int      `yaml:"max_keys"`
 	MemoryBudget       string   `yaml:"memory_budget"`
-	Features           struct {
+	Answers            struct {
+		Log     *bool  `yaml:"log"`
+		Pending int    `yaml:"pending"`
+		TTL     string `yaml:"ttl"`
+	} `yaml:"answers"`
+	Features struct {
 		Numeric      []string `yaml:"numeric"`
 		Categorical  []string `yaml:"categorical"`
 		HashBuckets  int      `yaml:"hash_buckets"`
@@ -127,6 +133,9 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	logLevel := fs.String("log-level", "info", "log level: debug, info, warn, error")
 	tlsCert := fs.String("tls-cert", "", "serve HTTPS with this certificate `FILE` (PEM), with --tls-key")
 	tlsKey := fs.String("tls-key", "", "the certificate's private key `FILE` (PEM)")
+	answerLog := fs.Bool("answer-log", true, "give every predict answer an answer_id and log it, so that events naming it score the answer as served;\n--answer-log=false serves without ids")
+	answerPending := fs.Int("answer-pending", learner.DefaultServedPending, "answers waiting for their labels at once, per partition; past it the oldest is dropped")
+	answerTTL := fs.Duration("answer-ttl", learner.DefaultServedTTL, "how long an answer waits for its label, in event time; then it is dropped")
 	var ef engineFlags
 	ef.register(fs)
 	pos, err := parse(fs, args)
@@ -286,6 +295,22 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 		return d
 	}
 	cfg.ForwardTimeout = duration("forward-timeout", "kafka.forward_timeout", *forwardTimeout, fc.Kafka.ForwardTimeout)
+	cfg.NoAnswerLog = !*answerLog
+	if !set["answer-log"] && fc.Answers.Log != nil {
+		cfg.NoAnswerLog = !*fc.Answers.Log
+	}
+	cfg.Engine.Served.Pending = *answerPending
+	if !set["answer-pending"] && fc.Answers.Pending != 0 {
+		cfg.Engine.Served.Pending = fc.Answers.Pending
+	}
+	cfg.Engine.Served.TTL = duration("answer-ttl", "answers.ttl", *answerTTL, fc.Answers.TTL)
+	if cfg.Engine.Served.Pending < 1 {
+		problems = append(problems, fmt.Errorf("--answer-pending %d: want a positive number of answers", cfg.Engine.Served.Pending))
+	}
+	if cfg.Engine.Served.TTL <= 0 {
+		problems = append(problems, fmt.Errorf("--answer-ttl %v: want a positive duration of event time", cfg.Engine.Served.TTL))
+	}
+
 	kb := pick("kafka-brokers", *brokers, strings.Join(fc.Kafka.Brokers, ","))
 	kt := pick("kafka-topic", *topic, fc.Kafka.Topic)
 	if kb != "" || kt != "" {
