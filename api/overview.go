@@ -52,6 +52,7 @@ type Overview struct {
 	Status      OverviewStatus        `json:"status"`
 	Learners    []OverviewLearner     `json:"learners"`         // by recent RMSE, best first; those without one last
 	Leader      *learner.LeaderReport `json:"leader,omitempty"` // the per-key leader's figures, when kept
+	Served      *learner.ServedReport `json:"served,omitempty"` // the answers served, scored against their labels, once any was served
 	Alarms      []AlarmNote           `json:"alarms"`           // the latest drift alarms, oldest first
 	Checkpoints []checkpoint.Info     `json:"checkpoints"`
 	Rejections  []RejectionNote       `json:"rejections"` // the latest refused events, oldest first
@@ -113,7 +114,7 @@ func (s *Service) handleOverview(c echo.Context) error {
 	}
 	out := Overview{Status: st, Caution: caution + " Recent error is each key's last " + strconv.Itoa(r.RecentWindow) + " scored events, pooled.",
 		Settings: OverviewSettings{TokenRequired: s.cfg.Token != "", DefaultLearner: s.cfg.DefaultLearner, Units: s.cfg.Units, Interval: s.cfg.Interval, CurveEvery: s.cfg.CurveEvery, Group: s.kafka != nil}}
-	out.Leader = r.Leader
+	out.Leader, out.Served = r.Leader, r.Served
 	for _, l := range r.Learners {
 		pts, _ := s.curves.get(l.Name)
 		out.Learners = append(out.Learners, OverviewLearner{LearnerReport: l, Curve: pts})

@@ -3,6 +3,7 @@ package api
 import (
 	"context"
 	"encoding/json"
+	"fmt"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -65,6 +66,16 @@ func TestPageInABrowser(t *testing.T) {
 	}
 	var ck struct{ Version uint64 }
 	json.Unmarshal(b, &ck)
+	// Answers served for the next 40 events, which come as their labels.
+	for i := range 40 {
+		l := after[i]
+		id := fmt.Sprintf("page-%d", i)
+		code, b := r.call(t, "POST", "/v1/predict", "", fmt.Appendf(nil, `{"learner":%q,"answer_id":%q,%s`, serviceSpecs[i%len(serviceSpecs)], id, l[1:]))
+		if code != 200 {
+			t.Fatalf("predict: %d %s", code, b)
+		}
+		after[i] = fmt.Appendf(nil, `{"answer_id":%q,%s`, id, l[1:])
+	}
 	r.post(t, tok, after)
 	rep := r.waitCovered(t, int64(len(lines)))
 
@@ -105,8 +116,9 @@ func TestPageInABrowser(t *testing.T) {
 	type row struct {
 		Learner string `json:"learner"`
 		RMSE    string `json:"rmse"`
+		Served  string `json:"served"`
 	}
-	table, err := chromedp.Run(ctx, chromedp.Evaluate[[]row](`[...document.querySelectorAll("#learners tbody tr")].map(tr => ({learner: tr.dataset.learner, rmse: tr.children[1].dataset.value}))`))
+	table, err := chromedp.Run(ctx, chromedp.Evaluate[[]row](`[...document.querySelectorAll("#learners tbody tr")].map(tr => ({learner: tr.dataset.learner, rmse: tr.children[1].dataset.value, served: tr.querySelector("td.served").dataset.value}))`))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -124,6 +136,14 @@ func TestPageInABrowser(t *testing.T) {
 				got, err := strconv.ParseFloat(row.RMSE, 64)
 				if l.Recent.RMSE == nil || err != nil || got != *l.Recent.RMSE {
 					t.Errorf("%s: the page shows recent rmse %q, GET /v1/learners %v", row.Learner, row.RMSE, l.Recent.RMSE)
+				}
+				for _, m := range rep.Served.Learners {
+					if m.Name == l.Name {
+						got, err := strconv.ParseFloat(row.Served, 64)
+						if m.RMSE == nil || m.Labelled != 10 || err != nil || got != *m.RMSE {
+							t.Errorf("%s: the page shows served rmse %q, GET /v1/learners %v over %d answers (want 10)", row.Learner, row.Served, m.RMSE, m.Labelled)
+						}
+					}
 				}
 			}
 		}

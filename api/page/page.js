@@ -79,7 +79,8 @@ function render() {
   $("r-token-label").hidden = !o.settings.token_required;
   $("r-partition-label").hidden = !o.settings.group;
   renderChart(o);
-  renderLearners(o.learners);
+  renderLearners(o.learners, o.served);
+  renderServed(o.served);
   $("leader").hidden = !o.leader;
   if (o.leader) {
     $("leader").textContent = `Per-key leader (the learner of lowest recent error on each key, switched when another is ${Math.round(100 * o.leader.margin)} % better): ` +
@@ -217,17 +218,44 @@ function renderChart(o) {
   strip.replaceChildren(ts);
 }
 
-function renderLearners(ls) {
+function renderLearners(ls, served) {
   const body = $("learners").tBodies[0];
+  const servedOf = (name) => ((served && served.learners) || []).find((m) => m.name === name);
   body.replaceChildren(...ls.map((l, i) => {
     const cell = (v, digits) => el("td", { "data-value": v === null || v === undefined ? "" : String(v) }, num(v, digits));
+    const sv = servedOf(l.name);
     const tr = el("tr", { class: i === 0 && l.recent.rmse !== null ? "leader" : "", "data-learner": l.name },
-      el("th", { scope: "row" }, l.name), cell(l.recent.rmse), cell(l.recent.mae), cell(l.rmse), cell(l.skill, 3),
+      el("th", { scope: "row" }, l.name), cell(l.recent.rmse), cell(l.recent.mae), cell(l.rmse),
+      el("td", { class: "served", "data-value": sv && sv.rmse !== null ? String(sv.rmse) : "" }, sv ? `${num(sv.rmse)} · ${sv.labelled}` : "–"),
+      cell(l.skill, 3),
       el("td", { "data-value": l.conformal.coverage ?? "" }, `${pct(l.conformal.coverage)} · ${pct(l.interval_coverage)}`),
       el("td", {}, `${num(l.conformal.mean_width, 3)} · ${num(l.interval_width, 3)}`),
       el("td", {}, String(l.scored)), el("td", { class: l.drift.state }, l.drift.state), el("td", {}, String(l.drift.alarms)));
     return tr;
   }));
+}
+
+// renderServed says what became of the answers served: the figure to watch
+// once predictions steer decisions.
+function renderServed(s) {
+  const p = $("served");
+  p.hidden = !s;
+  if (!s) return;
+  const labelled = s.learners.concat(s.leader ? [s.leader] : []).reduce((n, m) => n + m.labelled, 0);
+  const delays = s.learners.concat(s.leader ? [s.leader] : []).filter((m) => m.label_delay.n > 0);
+  const n = delays.reduce((k, m) => k + m.label_delay.n, 0);
+  const mean = n ? delays.reduce((t, m) => t + m.label_delay.mean_seconds * m.label_delay.n, 0) / n : null;
+  const lead = s.leader && s.leader.labelled ? ` The leader's answers: served rmse ${num(s.leader.rmse)} over ${s.leader.labelled}.` : "";
+  p.textContent = `Served rmse scores the answers predict gave, as given, once an event naming their answer_id brings the truth ` +
+    `(the prequential rmse scores each event just before training on it). ${labelled} answers labelled` +
+    (mean === null ? "" : `, ${duration(mean)} after they were given on average (event time)`) +
+    `; ${s.pending} waiting, ${s.expired} expired, ${s.evicted} dropped for room, ${s.unmatched_labels} labels named no waiting answer.` + lead;
+}
+
+function duration(seconds) {
+  if (seconds < 120) return `${Math.round(seconds)} s`;
+  if (seconds < 7200) return `${Math.round(seconds / 60)} min`;
+  return `${(seconds / 3600).toFixed(1)} h`;
 }
 
 function pct(v) {
