@@ -13,6 +13,7 @@ import (
 
 	"tidemark/api/intake"
 	"tidemark/api/persist"
+	"tidemark/checkpoint"
 	"tidemark/learner"
 )
 
@@ -31,8 +32,9 @@ import (
 // one per owner and generation, beside the partition's checkpoints, so that
 // the partition's next owner reads what its last owner served.
 
-// answerLogBytes is the segment size of an answer log.
-const answerLogBytes = 16 << 20
+// answerLogBytes is the segment size of an answer log (a variable for the
+// tests, which make segments small to see them go).
+var answerLogBytes int64 = 16 << 20
 
 // answerRecord is one line of an answer log.
 type answerRecord struct {
@@ -56,7 +58,8 @@ type answerLog struct {
 // answerLogs are the loop's answer logs, by partition. The loop alone uses
 // it, but for Sync, which handlers call.
 type answerLogs struct {
-	open map[int32]*answerLog
+	open    map[int32]*answerLog
+	covered map[string]map[string]int64 // per checkpoint (store directory and version), its serviceSource.Answers (trimAnswerLogs)
 }
 
 // answersRoot is the directory of partition p's answer logs.
@@ -247,6 +250,81 @@ func (l *loop) replayAnswers(eng *learner.Engine, parts []int32) error {
 		l.cfg.Log.Info("answers served before read back from their logs", "answers", n)
 	}
 	return nil
+}
+
+// answerCoverage is, per answer log of partitions parts (all when nil),
+// the last offset eng's state holds: a checkpoint's record of it.
+func answerCoverage(eng *learner.Engine, parts []int32) map[string]int64 {
+	out := map[string]int64{}
+	for _, pos := range eng.Positions() {
+		if parts != nil && !slices.Contains(parts, pos.Partition) {
+			continue
+		}
+		for name, seq := range eng.ServedLogs(pos.Partition) {
+			out[logKey(pos.Partition, name)] = seq
+		}
+	}
+	if len(out) == 0 {
+		return nil
+	}
+	return out
+}
+
+func logKey(p int32, name string) string { return fmt.Sprintf("partition-%05d/%s", p, name) }
+
+// trimAnswerLogs lets each log this instance writes for partitions parts (all
+// when nil) forget the answers every checkpoint retained in store holds: a
+// restore to any of them reads the log from there on.
+func (l *loop) trimAnswerLogs(store *checkpoint.Store, parts []int32) {
+	if len(l.answers.open) == 0 {
+		return
+	}
+	vs, err := store.Versions()
+	if err != nil {
+		return
+	}
+	if l.answers.covered == nil {
+		l.answers.covered = map[string]map[string]int64{}
+	}
+	ck := func(v uint64) string { return fmt.Sprintf("%s#%d", store.Dir(), v) }
+	var held []map[string]int64
+	kept := map[string]bool{}
+	for _, v := range vs {
+		kept[ck(v)] = true
+		c, ok := l.answers.covered[ck(v)]
+		if !ok {
+			m, err := store.ReadManifest(v)
+			if err != nil {
+				continue // a corrupt file protects nothing
+			}
+			var src serviceSource
+			json.Unmarshal(m.Source, &src)
+			c = src.Answers
+			l.answers.covered[ck(v)] = c
+		}
+		held = append(held, c)
+	}
+	for k := range l.answers.covered {
+		if strings.HasPrefix(k, store.Dir()+"#") && !kept[k] {
+			delete(l.answers.covered, k)
+		}
+	}
+	for p, a := range l.answers.open {
+		if parts != nil && !slices.Contains(parts, p) {
+			continue
+		}
+		low := int64(-1)
+		for _, c := range held {
+			if s := c[logKey(p, a.name)]; low < 0 || s < low { // a checkpoint without it holds none of it
+				low = s
+			}
+		}
+		if low > 0 {
+			if err := a.j.DeleteBefore(low + 1); err != nil {
+				l.cfg.Log.Warn("an answer log could not forget what every checkpoint holds", "log", a.name, "error", err)
+			}
+		}
+	}
 }
 
 // newAnswerID makes an id for an answer whose request gave none.

@@ -72,7 +72,11 @@ func (r *servedRef) label(id string, y float64) {
 func TestServedScoresSurviveRestartsAndRestores(t *testing.T) {
 	lines := scenario(t, 2)
 	dir := t.TempDir()
-	r := start(t, testConfig(t, dir))
+	defer func(n int64) { answerLogBytes = n }(answerLogBytes)
+	answerLogBytes = 1024 // small segments, so that the log forgets some
+	cfg := testConfig(t, dir)
+	cfg.Retain = 3
+	r := start(t, cfg)
 	const warm = 600
 	r.post(t, "", lines[:warm])
 	posted := int64(warm)
@@ -153,12 +157,15 @@ func TestServedScoresSurviveRestartsAndRestores(t *testing.T) {
 			var info struct{ Version uint64 }
 			json.Unmarshal(b, &info)
 			restoreTo = info.Version
+			if code, b := r.call(t, "POST", fmt.Sprintf("/v1/checkpoints/%d/pin", restoreTo), "", []byte(`{"pinned":true}`)); code != 200 {
+				t.Fatalf("pin: %d %s", code, b)
+			}
 		case 10:
 			// A restart in the middle.
 			if err := r.stop(); err != nil {
 				t.Fatal(err)
 			}
-			r = start(t, testConfig(t, dir))
+			r = start(t, cfg)
 			r.waitCovered(t, posted)
 		case 15:
 			// Back to round 5's checkpoint: the events since are replayed,
@@ -170,6 +177,8 @@ func TestServedScoresSurviveRestartsAndRestores(t *testing.T) {
 			r.waitCovered(t, posted)
 		}
 	}
+	var code int
+	var b []byte
 	// An id that waits for its label already is refused.
 	var waiting string
 	for id, a := range ref.answers {
@@ -181,12 +190,35 @@ func TestServedScoresSurviveRestartsAndRestores(t *testing.T) {
 	if waiting == "" {
 		t.Fatal("every answer was labelled; the test wants one waiting")
 	}
-	code, b := r.call(t, "POST", "/v1/predict", "", []byte(fmt.Sprintf(`{"answer_id":%q,%s`, waiting, bytes.TrimPrefix(lines[0], []byte("{")))))
+	code, b = r.call(t, "POST", "/v1/predict", "", []byte(fmt.Sprintf(`{"answer_id":%q,%s`, waiting, bytes.TrimPrefix(lines[0], []byte("{")))))
 	if code != 409 {
 		t.Errorf("an answer_id already waiting: %d %s, want 409", code, b)
 	}
-	if logs, _ := filepath.Glob(filepath.Join(dir, "answers", "partition-00000", "local", "seg-*.wal")); len(logs) == 0 {
-		t.Error("no answer log in DATA/answers/partition-00000/local")
+	// Checkpoints pinned before drift alarms hold none of the answers (a
+	// restore to one reads the whole log again); unpinned, and with one
+	// more checkpoint, only round 5's pinned one and the newest 3 remain.
+	_, b = r.call(t, "GET", "/v1/checkpoints", "", nil)
+	var infos []checkpoint.Info
+	json.Unmarshal(b, &infos)
+	for _, in := range infos {
+		if in.Pinned && in.Version != restoreTo {
+			if code, b := r.call(t, "POST", fmt.Sprintf("/v1/checkpoints/%d/pin", in.Version), "", []byte(`{"pinned":false}`)); code != 200 {
+				t.Fatalf("unpin: %d %s", code, b)
+			}
+		}
+	}
+	if code, b := r.call(t, "POST", "/v1/checkpoints", "", nil); code != 201 {
+		t.Fatalf("POST /v1/checkpoints: %d %s", code, b)
+	}
+	logs, _ := filepath.Glob(filepath.Join(dir, "answers", "partition-00000", "local", "seg-*.wal"))
+	if len(logs) == 0 {
+		t.Fatal("no answer log in DATA/answers/partition-00000/local")
+	}
+	// The log forgot the answers every retained checkpoint holds (its
+	// first segments), and no more: the restarts below still read what
+	// they need.
+	if first := filepath.Base(logs[0]); first == "seg-00000000000000000001.wal" {
+		t.Errorf("the answer log kept its first segment (%d segments) although every retained checkpoint holds its answers", len(logs))
 	}
 
 	check := func(what string, rep learner.Report) {
@@ -260,7 +292,7 @@ func TestServedScoresSurviveRestartsAndRestores(t *testing.T) {
 			}
 		}
 	}
-	r = start(t, testConfig(t, dir))
+	r = start(t, cfg)
 	r.waitCovered(t, posted)
 	check("after a restart from round 5's checkpoint", r.report(t))
 }

@@ -266,7 +266,8 @@ func (ps *partSt) stillNewest() bool {
 // owner gives the partition up at once.
 func (l *loop) savePartition(p int32, ps *partSt, reason checkpoint.Reason) (checkpoint.Info, error) {
 	g := l.group
-	info, err := persist.SavePartition(ps.store, l.eng, p, reason, ps.last.Version, int64(g.gen.ID), g.instance, serviceSource{Kind: "service", Skip: ps.skip})
+	info, err := persist.SavePartition(ps.store, l.eng, p, reason, ps.last.Version, int64(g.gen.ID), g.instance,
+		serviceSource{Kind: "service", Skip: ps.skip, Answers: answerCoverage(l.eng, []int32{p})})
 	if errors.Is(err, checkpoint.ErrFenced) {
 		l.cfg.Log.Warn("consumer group: another instance owns the partition now; giving it up", "partition", p, "error", err)
 		delete(g.owned, p)
@@ -283,6 +284,7 @@ func (l *loop) savePartition(p int32, ps *partSt, reason checkpoint.Reason) (che
 	}
 	ps.last = info
 	l.lastCk = info
+	l.trimAnswerLogs(ps.store, []int32{p})
 	l.cfg.Log.Info("checkpoint", "partition", p, "version", info.Version, "reason", reason, "events", info.Events, "bytes", info.Bytes)
 	return info, nil
 }
@@ -440,7 +442,8 @@ func (l *loop) restoreOne(p int32, v uint64, req RestoreRequest) cmdResult {
 	if mode == ResumeSkip {
 		rps.skip = rule
 	}
-	info, err := persist.SavePartition(ps.store, restored, p, checkpoint.Restore, v, int64(l.group.gen.ID), l.group.instance, serviceSource{Kind: "service", Skip: rps.skip})
+	info, err := persist.SavePartition(ps.store, restored, p, checkpoint.Restore, v, int64(l.group.gen.ID), l.group.instance,
+		serviceSource{Kind: "service", Skip: rps.skip, Answers: answerCoverage(restored, []int32{p})})
 	if err != nil {
 		l.cfg.Log.Error("restore not done: the checkpoint recording it could not be written; the state is unchanged", "partition", p, "version", v, "error", err)
 		return cmdResult{err: cmdErr(ErrNotStored, "restore of checkpoint %d of partition %d not done: the checkpoint recording it could not be written (%v); "+

@@ -77,6 +77,10 @@ var eventPool = sync.Pool{New: func() any { return new(learner.Event) }}
 type serviceSource struct {
 	Kind string    `json:"kind"` // "service"
 	Skip *skipRule `json:"skip,omitempty"`
+	// Answers is, per answer log ("partition-NNNNN/NAME"), the last
+	// offset the state holds: what the log may forget once no retained
+	// checkpoint needs it (answers.go).
+	Answers map[string]int64 `json:"answers,omitempty"`
 }
 
 // command is work the loop does for an HTTP handler.
@@ -442,7 +446,7 @@ func (l *loop) checkpoint(reason checkpoint.Reason, parent uint64) error {
 	if parent == 0 {
 		parent = l.lastCk.Version
 	}
-	info, err := persist.Save(l.store, l.eng, reason, parent, serviceSource{Kind: "service", Skip: l.skip})
+	info, err := persist.Save(l.store, l.eng, reason, parent, serviceSource{Kind: "service", Skip: l.skip, Answers: answerCoverage(l.eng, nil)})
 	if err != nil {
 		l.metrics.checkpointFailures.Inc()
 		return err
@@ -467,6 +471,7 @@ func (l *loop) afterCheckpoint() {
 	if err := l.dead.flush(); err != nil {
 		l.cfg.Log.Error("dead letters: flush failed", "error", err)
 	}
+	l.trimAnswerLogs(l.store, nil)
 	l.src.Checkpointed(l.eng.Positions(), l.oldestRetained())
 }
 
