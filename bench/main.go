@@ -10,7 +10,8 @@
 //	rls-update          one update, d = 8                        a plain covariance-form rank-one update of the same size                   2.0, 0 allocs
 //	sliding-rls-update  update + downdate, W = 500, d = 8        the rls-update floor                                                        4.0
 //	replay-throughput   per event, replay of synthetic events, one rls learner   decoding the same NDJSON with encoding/json              3.0
-//	http-predict        per request, POST /v1/predict, loopback, keep-alive      the same echo setup answering a constant body            2.0
+//	http-predict        per request, POST /v1/predict, loopback, keep-alive,     the same echo setup answering a constant body            2.0
+//	                    without the answer log (-only answers times it)
 //	kafka-intake        per event, in-process broker → intake → engine, one rls  plain kafka-go partition readers draining the topic      1.5
 package main
 
@@ -61,7 +62,7 @@ func main() {
 	asJSON := flag.Bool("json", false, "print a JSON array of results")
 	flag.BoolVar(&quick, "quick", false, "shorter runs (under a minute)")
 	child := flag.String("replay-child", "", "internal: replay this history and print events/s (the keys case's child process)")
-	only := flag.String("only", "", "run only the named extra: keys, flood, restore, group, intervals or drift")
+	only := flag.String("only", "", "run only the named extra: keys, flood, restore, group, intervals, drift or answers")
 	writeKeys := flag.String("write-keys-history", "", "write the keys case's history (2 M events, 10⁶ keys) to this file and exit")
 	ckDir := flag.String("checkpoint-dir", "", "with -replay-child: then time a checkpoint of the state written there and loaded back")
 	loadChildDir := flag.String("load-child", "", "internal: load the newest checkpoint in this directory and print the seconds it took (the keys case's child process)")
@@ -108,6 +109,9 @@ func main() {
 	case "drift":
 		fmt.Print(driftDetectors())
 		return
+	case "answers":
+		fmt.Print(answerCost())
+		return
 	}
 	bt := "1s"
 	if quick {
@@ -115,7 +119,7 @@ func main() {
 	}
 	flag.Set("test.benchtime", bt)
 	results := []result{knnPredict(), knnLearn(), rlsUpdate(), slidingUpdate(), replayThroughput(), httpPredict(), kafkaIntake()}
-	extras := []string{growth(), memory(), onlineVsBatch(), keysScale(), rejectFlood(), restoreSkip(), groupScale(), intervalCoverage(), driftDetectors()}
+	extras := []string{growth(), memory(), onlineVsBatch(), keysScale(), rejectFlood(), restoreSkip(), groupScale(), intervalCoverage(), driftDetectors(), answerCost()}
 	ok := true
 	for i := range results {
 		r := &results[i]
@@ -360,7 +364,10 @@ func replayThroughput() result {
 }
 
 func httpPredict() result {
-	svc, stop := runService(api.Config{MinScored: -1})
+	// The answering path itself; what logging each answer for served
+	// scoring adds (an fsync per call, shared by concurrent calls) is the
+	// answers extra's figure.
+	svc, stop := runService(api.Config{MinScored: -1, NoAnswerLog: true})
 	base := "http://" + svc.Addr()
 	client := &http.Client{Transport: &http.Transport{MaxIdleConnsPerHost: 4}}
 	resp, err := client.Post(base+"/v1/events", "application/x-ndjson", bytes.NewReader(scenarioLines(2000)))

@@ -3,6 +3,7 @@ package learner
 import (
 	"math/rand/v2"
 	"strconv"
+	"strings"
 	"testing"
 )
 
@@ -137,15 +138,39 @@ func BenchmarkApplyKeys(b *testing.B) {
 	}
 	runs := []run{{"keys=1", 1, Config{}}, {"keys=1000000", 1_000_000, Config{}},
 		// what the per-key leader and ADWIN cost beside the run of keys=1
-		{"keys=1/leader", 1, Config{Leader: LeaderConfig{On: true}}}, {"keys=1/adwin", 1, Config{Drift: DriftConfig{Method: DriftADWIN}}}}
+		{"keys=1/leader", 1, Config{Leader: LeaderConfig{On: true}}}, {"keys=1/adwin", 1, Config{Drift: DriftConfig{Method: DriftADWIN}}},
+		// served scoring: every event is the label of an answer served
+		// 100 events before it (registered, waiting, matched, scored)
+		{"keys=1/served", 1, Config{}}}
 	for _, r := range runs {
 		nk := r.nk
 		b.Run(r.name, func(b *testing.B) {
 			e, keys, ev := keysEngine(nk, "mean:window=100", r.cfg)
 			rng := rand.New(rand.NewPCG(1, 2))
+			served := strings.HasSuffix(r.name, "/served")
+			const lag = 100
+			var ids []string
+			if served {
+				for i := range b.N + lag {
+					ids = append(ids, "a-"+strconv.Itoa(i))
+				}
+				ev.Key = keys[0]
+				e.Apply(Position{Offset: -1}, ev) // the key exists
+				for i := range lag {
+					a := Answer{ID: ids[i], Key: keys[0], Value: 1}
+					e.PrepareAnswer(&a)
+					e.Serve(a)
+				}
+			}
 			b.ReportAllocs()
 			b.ResetTimer()
 			for i := 0; i < b.N; i++ {
+				if served {
+					a := Answer{ID: ids[i+lag], Key: keys[0], Value: 1}
+					e.PrepareAnswer(&a)
+					e.Serve(a)
+					ev.AnswerID = ids[i]
+				}
 				ev.Key = keys[(uint64(i)*0x9E3779B97F4A7C15>>20)%uint64(nk)]
 				s := 0.0
 				for j := range ev.Features {
