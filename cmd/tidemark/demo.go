@@ -161,7 +161,8 @@ func printDemoIntro(dc demoConfig, base string) {
 	w := dc.Out
 	fmt.Fprintf(w, "tidemark demo: %d days of a fictional cold-storage warehouse (invented data; `tidemark synth --help` gives its equations).\n", dc.Days)
 	fmt.Fprintf(w, "Three rooms report compressor power (kW) every five minutes; room-b's insulation fails at %s,\n", fault.Format(time.RFC3339))
-	fmt.Fprintf(w, "and the outdoor sensor is stuck from %s to %s. The first %s goes in at once, then a day\nevery %s of wall time.\n\n",
+	fmt.Fprintf(w, "and the outdoor sensor is stuck from %s to %s. The first %s goes in at once, then a day\nevery %s of wall time. "+
+		"A dispatcher asks rls-forget for each reading two hours ahead; each reading names the answer it\nlabels, so the service scores the answers it gave (\"served\") beside the prequential score.\n\n",
 		stuckFrom.Format(time.RFC3339), stuckTo.Format(time.RFC3339), plural(dc.Warmup, "day"), (time.Duration(float64(24*time.Hour) / dc.Speed)).Round(time.Second))
 	fmt.Fprintf(w, "  service     %s   (data in %s)\n", base, dc.DataDir)
 	fmt.Fprintf(w, "  page        %s/   (open it: the learners race, alarms, checkpoints; restore from there)\n", base)
@@ -301,8 +302,21 @@ func feedDemo(ctx context.Context, dc demoConfig, c *client, hist []byte) error 
 	board := time.NewTicker(dc.Every)
 	defer board.Stop()
 	next := time.Now()
+	// The dispatcher asks for each reading two hours (24 ticks) ahead, with
+	// the weather forecast for then; the reading, when it comes, names the
+	// answer it labels, so that the service scores what it told the
+	// dispatcher (served scoring) beside its prequential score.
+	asked := map[int][]string{}
 	for ; i < len(ticks); i++ {
-		if err := c.post(ticks[i].lines); err != nil {
+		if j := i + demoAhead; j < len(ticks) {
+			asked[j] = c.askAhead(ticks[j].lines)
+		}
+		lines := ticks[i].lines
+		if ids := asked[i]; ids != nil {
+			lines = withAnswers(lines, ids)
+			delete(asked, i)
+		}
+		if err := c.post(lines); err != nil {
 			return err
 		}
 		next = next.Add(step)
@@ -318,6 +332,58 @@ func feedDemo(ctx context.Context, dc demoConfig, c *client, hist []byte) error 
 	scoreboard(dc.Out, c, ticks[len(ticks)-1].at, dc.Days)
 	fmt.Fprintf(dc.Out, "the scenario is played out.\n")
 	return nil
+}
+
+// demoAhead is how many five-minute ticks ahead the demo's dispatcher asks,
+// and demoAsks the learner it asks.
+const (
+	demoAhead = 24
+	demoAsks  = "rls-forget"
+)
+
+// askAhead asks the service for the readings of lines (one request, a row
+// each) and returns each line's answer_id ("" for a line not asked: one that
+// does not decode). Nothing is asked while the service cannot answer yet.
+func (c *client) askAhead(lines [][]byte) []string {
+	var rows []json.RawMessage
+	var at []int
+	var ev learner.Event
+	for k, l := range lines {
+		if learner.DecodeEvent(l, &ev) == nil {
+			rows = append(rows, l)
+			at = append(at, k)
+		}
+	}
+	if len(rows) == 0 {
+		return nil
+	}
+	body, _ := json.Marshal(map[string]any{"learner": demoAsks, "rows": rows})
+	resp, err := c.http.Post(c.base+"/v1/predict", "application/json", bytes.NewReader(body))
+	if err != nil {
+		return nil
+	}
+	defer resp.Body.Close()
+	var out api.PredictResponse
+	if resp.StatusCode != http.StatusOK || json.NewDecoder(resp.Body).Decode(&out) != nil || len(out.Predictions) != len(rows) {
+		return nil // not ready for every room yet
+	}
+	ids := make([]string, len(lines))
+	for n, k := range at {
+		ids[k] = out.Predictions[n].AnswerID
+	}
+	return ids
+}
+
+// withAnswers returns lines with each one's answer_id added, where it has one.
+func withAnswers(lines [][]byte, ids []string) [][]byte {
+	out := make([][]byte, len(lines))
+	for k, l := range lines {
+		out[k] = l
+		if k < len(ids) && ids[k] != "" && bytes.HasPrefix(l, []byte("{")) {
+			out[k] = fmt.Appendf(nil, `{"answer_id":%q,%s`, ids[k], l[1:])
+		}
+	}
+	return out
 }
 
 // scoreboard prints one line per learner: recent error, skill, drift, from
@@ -338,6 +404,14 @@ func scoreboard(w io.Writer, c *client, at time.Time, days int) {
 	sort.SliceStable(ls, func(i, j int) bool { return val(ls[i].Recent.RMSE) < val(ls[j].Recent.RMSE) })
 	for _, l := range ls {
 		fmt.Fprintf(w, "    %-16s recent rmse %6s kW   skill %6s   drift %-7s alarms %d\n", l.Name, f3(l.Recent.RMSE), f3(l.Skill), l.Drift.State, l.Drift.Alarms)
+	}
+	if r.Served == nil {
+		return
+	}
+	for _, m := range r.Served.Learners {
+		if m.Labelled > 0 {
+			fmt.Fprintf(w, "    answers given 2 h ahead by %s: served rmse %s kW over %d labelled (%d waiting)\n", m.Name, f3(m.RMSE), m.Labelled, r.Served.Pending)
+		}
 	}
 }
 
