@@ -49,6 +49,9 @@ type result struct {
 	Ours   float64 `json:"ours_ns"`
 	Floor  float64 `json:"floor_ns"`
 	Ratio  float64 `json:"ratio"`
+	Lo     float64 `json:"ratio_p10,omitempty"` // the ratio's spread over the paired rounds
+	Hi     float64 `json:"ratio_p90,omitempty"`
+	Note   string  `json:"note,omitempty"` // other floors' ratios
 	Allocs float64 `json:"allocs_per_op"`
 	Target float64 `json:"target_ratio,omitempty"`
 	Zero   bool    `json:"zero_allocs_required,omitempty"`
@@ -62,7 +65,7 @@ func main() {
 	asJSON := flag.Bool("json", false, "print a JSON array of results")
 	flag.BoolVar(&quick, "quick", false, "shorter runs (under a minute)")
 	child := flag.String("replay-child", "", "internal: replay this history and print events/s (the keys case's child process)")
-	only := flag.String("only", "", "run only the named extra: keys, flood, restore, group, intervals, drift or answers")
+	only := flag.String("only", "", "run only the cases (cases: the table of ratios) or the named extra: keys, flood, restore, group, intervals, drift or answers")
 	writeKeys := flag.String("write-keys-history", "", "write the keys case's history (2 M events, 10⁶ keys) to this file and exit")
 	ckDir := flag.String("checkpoint-dir", "", "with -replay-child: then time a checkpoint of the state written there and loaded back")
 	loadChildDir := flag.String("load-child", "", "internal: load the newest checkpoint in this directory and print the seconds it took (the keys case's child process)")
@@ -112,14 +115,22 @@ func main() {
 	case "answers":
 		fmt.Print(answerCost())
 		return
+	case "", "cases":
+	default:
+		fmt.Fprintf(os.Stderr, "bench: -only %q: want cases, keys, flood, restore, group, intervals, drift or answers\n", *only)
+		os.Exit(2)
 	}
 	bt := "1s"
 	if quick {
 		bt = "150ms"
 	}
 	flag.Set("test.benchtime", bt)
-	results := []result{knnPredict(), knnLearn(), rlsUpdate(), slidingUpdate(), replayThroughput(), httpPredict(), kafkaIntake()}
-	extras := []string{growth(), memory(), onlineVsBatch(), keysScale(), rejectFlood(), restoreSkip(), groupScale(), intervalCoverage(), driftDetectors(), answerCost()}
+	results := []result{knnPredict(), knnLearn(), rlsUpdate(), slidingUpdate(), decodeCase(), replayCase("rls:forget=0.995"), replayCase("mean:window=100"),
+		httpPredict(), kafkaIntake()}
+	var extras []string
+	if *only == "" {
+		extras = []string{growth(), memory(), onlineVsBatch(), keysScale(), rejectFlood(), restoreSkip(), groupScale(), intervalCoverage(), driftDetectors(), answerCost()}
+	}
 	ok := true
 	for i := range results {
 		r := &results[i]
@@ -135,11 +146,14 @@ func main() {
 		enc.Encode(results)
 	} else {
 		tw := tabwriter.NewWriter(os.Stdout, 0, 0, 2, ' ', tabwriter.AlignRight)
-		fmt.Fprintln(tw, "case\tours ns/op\tfloor ns/op\tratio\ttarget\tallocs/op\t\t")
+		fmt.Fprintln(tw, "case\tours ns/op\tfloor ns/op\tratio\tp10–p90\ttarget\tallocs/op\t\t")
 		for _, r := range results {
-			floor, ratio, target := "–", "–", "–"
+			floor, ratio, target, spread := "–", "–", "–", "–"
 			if r.Floor > 0 {
 				floor, ratio = fmt.Sprintf("%.0f", r.Floor), fmt.Sprintf("%.2f", r.Ratio)
+			}
+			if r.Hi > 0 {
+				spread = fmt.Sprintf("%.2f–%.2f", r.Lo, r.Hi)
 			}
 			if r.Target > 0 {
 				target = fmt.Sprintf("≤ %.1f", r.Target)
@@ -151,9 +165,15 @@ func main() {
 			if !r.Pass {
 				verdict = "MISSED"
 			}
-			fmt.Fprintf(tw, "%s\t%.0f\t%s\t%s\t%s\t%.1f\t%s\t\n", r.Case, r.Ours, floor, ratio, target, r.Allocs, verdict)
+			fmt.Fprintf(tw, "%s\t%.0f\t%s\t%s\t%s\t%s\t%.1f\t%s\t\n", r.Case, r.Ours, floor, ratio, spread, target, r.Allocs, verdict)
 		}
 		tw.Flush()
+		fmt.Println()
+		for _, r := range results {
+			if r.Note != "" {
+				fmt.Printf("  %s: %s\n", r.Case, r.Note)
+			}
+		}
 		fmt.Printf("\n%s, %d cores, %s\n\n", runtime.Version(), runtime.NumCPU(), runtime.GOARCH)
 		for _, e := range extras {
 			fmt.Println(e)
@@ -205,16 +225,27 @@ func fullKNN(w, d int) (learner.Learner, []float64, [][]float64) {
 	return m, flat, rows[w:]
 }
 
-func knnPredictNs(w, d int) (ours, floor, allocs float64) {
+// knnPredictNs times predict against two floors, each in paired rounds:
+// reading the window once in cache (the rows, summed with eight
+// accumulators: the least any exact scan must do) and a plain scan that
+// computes every squared distance and keeps the minimum.
+func knnPredictNs(w, d int) (ours pair, scan pair, allocs float64) {
 	m, flat, qs := fullKNN(w, d)
-	ours, allocs = bench(func(b *testing.B) {
-		for i := 0; i < b.N; i++ {
+	i := 0
+	predict := func(n int) {
+		for range n {
 			m.Predict(qs[i%len(qs)])
+			i++
 		}
-	})
+	}
 	var sink float64
-	floor, _ = bench(func(b *testing.B) {
-		for i := 0; i < b.N; i++ {
+	read := func(n int) {
+		for range n {
+			sink += readWindow(flat)
+		}
+	}
+	plain := func(n int) {
+		for range n {
 			q := qs[i%len(qs)]
 			best := math.Inf(1)
 			for s := 0; s+d <= len(flat); s += d {
@@ -230,14 +261,36 @@ func knnPredictNs(w, d int) (ours, floor, allocs float64) {
 			}
 			sink += best
 		}
-	})
+	}
+	per := roundsOf(float64(w*d) * 0.6)
+	ours = paired(predict, read, per, 41)
+	scan = paired(predict, plain, per, 21)
+	allocs = testing.AllocsPerRun(100, func() { m.Predict(qs[0]) })
 	_ = sink
-	return ours, floor, allocs
+	return ours, scan, allocs
+}
+
+// readWindow sums every value of the window: reading it once.
+func readWindow(x []float64) float64 {
+	var s0, s1, s2, s3, s4, s5, s6, s7 float64
+	for j := 0; j+8 <= len(x); j += 8 {
+		r := (*[8]float64)(x[j : j+8])
+		s0 += r[0]
+		s1 += r[1]
+		s2 += r[2]
+		s3 += r[3]
+		s4 += r[4]
+		s5 += r[5]
+		s6 += r[6]
+		s7 += r[7]
+	}
+	return s0 + s1 + s2 + s3 + s4 + s5 + s6 + s7
 }
 
 func knnPredict() result {
-	ours, floor, allocs := knnPredictNs(10_000, 8)
-	return result{Case: "knn-predict", Ours: ours, Floor: floor, Allocs: allocs, Target: 1.5}
+	p, scan, allocs := knnPredictNs(10_000, 8)
+	return result{Case: "knn-predict", Ours: p.ours, Floor: p.floor, Lo: p.lo, Hi: p.hi, Allocs: allocs, Target: 2.5,
+		Note: fmt.Sprintf("floor: the window read once in cache; a plain scan of every distance: %.2f× it", scan.ratio())}
 }
 
 func knnLearn() result {
@@ -250,9 +303,9 @@ func knnLearn() result {
 	return result{Case: "knn-learn", Ours: ours, Allocs: allocs, Zero: true}
 }
 
-// covarianceFloor is the textbook RLS update: k = Pu/(λ + uᵀPu),
-// θ += k·e, P = (P − k(Pu)ᵀ)/λ, for p = d + 1.
-func covarianceFloor(d int) float64 {
+// covarianceUpdate returns the textbook RLS update, k = Pu/(λ + uᵀPu),
+// θ += k·e, P = (P − k(Pu)ᵀ)/λ, for p = d + 1, as work of n updates.
+func covarianceUpdate(d int) func(n int) {
 	p := d + 1
 	P := make([]float64, p*p)
 	for i := 0; i < p; i++ {
@@ -261,9 +314,11 @@ func covarianceFloor(d int) float64 {
 	theta, pu, u := make([]float64, p), make([]float64, p), make([]float64, p)
 	rows := randRows(1024, d, 2)
 	const lambda = 0.999
-	ns, _ := bench(func(b *testing.B) {
-		for i := 0; i < b.N; i++ {
+	i := 0
+	return func(n int) {
+		for range n {
 			x := rows[i%len(rows)]
+			i++
 			u[0] = 1
 			copy(u[1:], x)
 			var den, pred float64
@@ -285,32 +340,46 @@ func covarianceFloor(d int) float64 {
 				}
 			}
 		}
-	})
-	return ns
+	}
 }
 
-func learnNs(spec string, d int) (float64, float64) {
+// learnWork returns a warmed learner's updates as work of n calls, and its
+// allocations per update.
+func learnWork(spec string, d int) (func(n int), float64) {
 	m := mustLearner(spec, d)
 	rows := randRows(1024, d, 3)
 	for i := 0; i < 2000; i++ {
 		m.Learn(rows[i%len(rows)], rows[i%len(rows)][0], 0)
 	}
-	return bench(func(b *testing.B) {
-		for i := 0; i < b.N; i++ {
+	i := 0
+	work := func(n int) {
+		for range n {
 			x := rows[i%len(rows)]
+			i++
 			m.Learn(x, x[0], 0)
 		}
-	})
+	}
+	return work, testing.AllocsPerRun(1000, func() { work(1) })
+}
+
+func learnNs(spec string, d int) (float64, float64) {
+	work, allocs := learnWork(spec, d)
+	ns, _ := bench(func(b *testing.B) { work(b.N) })
+	return ns, allocs
 }
 
 func rlsUpdate() result {
-	ours, allocs := learnNs("rls:forget=0.999", 8)
-	return result{Case: "rls-update", Ours: ours, Floor: covarianceFloor(8), Allocs: allocs, Target: 2.0, Zero: true}
+	ours, allocs := learnWork("rls:forget=0.999", 8)
+	p := paired(ours, covarianceUpdate(8), 2000, 101)
+	return result{Case: "rls-update", Ours: p.ours, Floor: p.floor, Lo: p.lo, Hi: p.hi, Allocs: allocs, Target: 2.0, Zero: true,
+		Note: "floor: the covariance-form update of the same size (no square-root form, no guard)"}
 }
 
 func slidingUpdate() result {
-	ours, allocs := learnNs("sliding-rls:window=500", 8)
-	return result{Case: "sliding-rls-update", Ours: ours, Floor: covarianceFloor(8), Allocs: allocs, Target: 4.0}
+	ours, allocs := learnWork("sliding-rls:window=500", 8)
+	p := paired(ours, covarianceUpdate(8), 1000, 101)
+	return result{Case: "sliding-rls-update", Ours: p.ours, Floor: p.floor, Lo: p.lo, Hi: p.hi, Allocs: allocs, Target: 4.0,
+		Note: "floor: one covariance-form update (ours updates and downdates)"}
 }
 
 // scenarioLines returns about n events of the demo scenario as NDJSON.
@@ -320,47 +389,81 @@ func scenarioLines(n int) []byte {
 	return buf.Bytes()
 }
 
-func replayThroughput() result {
-	n := 200_000
-	if quick {
-		n = 50_000
-	}
-	data := scenarioLines(n)
-	spec, _ := learner.ParseSpec("rls:forget=0.995")
-	var ours, allocs float64
-	for rep := 0; rep < 2; rep++ { // the better of two runs, as for the floor
-		eng, _ := learner.NewEngine(learner.Config{Learners: []learner.Spec{spec}, Features: learner.FeatureConfig{HashBuckets: 4}})
-		var ms0, ms1 runtime.MemStats
-		runtime.ReadMemStats(&ms0)
-		t0 := time.Now()
-		replay.Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(data)), eng, replay.ReplayConfig{})
-		el := time.Since(t0)
-		runtime.ReadMemStats(&ms1)
-		ns := float64(el.Nanoseconds()) / float64(eng.Applied())
-		if rep == 0 || ns < ours {
-			ours, allocs = ns, float64(ms1.Mallocs-ms0.Mallocs)/float64(eng.Applied())
+// decodeCase times decoding canonical events against reading their bytes
+// once (a sum over each line: the least a decoder must do), in paired
+// rounds; encoding/json into a struct of the same fields is a second floor.
+func decodeCase() result {
+	lines := bytes.Split(bytes.TrimSpace(scenarioLines(20_000)), []byte("\n"))
+	var ev learner.Event
+	i := 0
+	decode := func(n int) {
+		for range n {
+			learner.DecodeEvent(lines[i%len(lines)], &ev)
+			i++
 		}
 	}
-	lines := bytes.Split(bytes.TrimSpace(data), []byte("\n"))
+	var sink int
+	read := func(n int) {
+		for range n {
+			for _, c := range lines[i%len(lines)] {
+				sink += int(c)
+			}
+			i++
+		}
+	}
 	type wire struct {
 		Time     string         `json:"time"`
 		Key      string         `json:"key"`
 		Features map[string]any `json:"features"`
 		Target   float64        `json:"target"`
 	}
-	var floor float64
-	for rep := 0; rep < 2; rep++ {
-		t0 := time.Now()
-		for _, l := range lines {
+	std := func(n int) {
+		for range n {
 			var w wire
-			json.Unmarshal(l, &w)
-		}
-		ns := float64(time.Since(t0).Nanoseconds()) / float64(len(lines))
-		if rep == 0 || ns < floor {
-			floor = ns
+			json.Unmarshal(lines[i%len(lines)], &w)
+			i++
 		}
 	}
-	return result{Case: "replay-throughput", Ours: ours, Floor: floor, Allocs: allocs, Target: 3.0}
+	p := paired(decode, read, 5000, 101)
+	j := paired(decode, std, 2000, 41)
+	allocs := testing.AllocsPerRun(1000, func() { decode(1) })
+	_ = sink
+	return result{Case: "decode", Ours: p.ours, Floor: p.floor, Lo: p.lo, Hi: p.hi, Allocs: allocs, Target: 3.0,
+		Note: fmt.Sprintf("floor: reading each line's bytes once; encoding/json into a struct of the same fields: %.2f× ours", 1/j.ratio())}
+}
+
+// replayCase times replay of the demo scenario through one learner against
+// reading and decoding the same history (intake's reader, the event
+// decoder, one goroutine), in paired rounds of 20 000 events.
+func replayCase(spec string) result {
+	data := scenarioLines(20_000)
+	sp, _ := learner.ParseSpec(spec)
+	cfg := learner.Config{Learners: []learner.Spec{sp}, Features: learner.FeatureConfig{HashBuckets: 4}}
+	var events int64
+	run := func(n int) {
+		for range n {
+			eng, _ := learner.NewEngine(cfg)
+			replay.Replay(context.Background(), intake.NewHistoryReader(bytes.NewReader(data)), eng, replay.ReplayConfig{})
+			events = eng.Applied()
+		}
+	}
+	var ev learner.Event
+	readDecode := func(n int) {
+		for range n {
+			h := intake.NewHistoryReader(bytes.NewReader(data))
+			for {
+				line, _, err := h.Next()
+				if err != nil {
+					break
+				}
+				learner.DecodeEvent(line, &ev)
+			}
+		}
+	}
+	p := paired(run, readDecode, 1, 31)
+	per := float64(events)
+	return result{Case: "replay-" + strings.SplitN(spec, ":", 2)[0], Ours: p.ours / per, Floor: p.floor / per, Lo: p.lo, Hi: p.hi, Target: 1.3,
+		Note: fmt.Sprintf("per event, %s; floor: reading and decoding the same history on one goroutine (ours decodes on a second)", spec)}
 }
 
 func httpPredict() result {
@@ -494,7 +597,8 @@ func growth() string {
 	for _, w := range ws {
 		fmt.Fprintf(&b, "  %8d", w)
 		for _, d := range ds {
-			ns, _, _ := knnPredictNs(w, d)
+			p, _, _ := knnPredictNs(w, d)
+			ns := p.ours
 			grid[[2]int{w, d}] = ns
 			fmt.Fprintf(&b, " %10.0f", ns)
 		}

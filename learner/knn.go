@@ -268,14 +268,56 @@ func (sc *scan) run8(hi, lo int) {
 		r2 := (*[8]float64)(x[(s-2)*8 : (s-2)*8+8])
 		r3 := (*[8]float64)(x[(s-3)*8 : (s-3)*8+8])
 		var s0, s1, s2, s3 float64
-		for j := 0; j < 8; j++ {
-			qj, w := q[j], inv[j]
-			d0, d1, d2, d3 := r0[j]-qj, r1[j]-qj, r2[j]-qj, r3[j]-qj
-			s0 += d0 * d0 * w
-			s1 += d1 * d1 * w
-			s2 += d2 * d2 * w
-			s3 += d3 * d3 * w
-		}
+		var qj, w, d0, d1, d2, d3 float64
+		// Unrolled: feature by feature, as the loop of run.
+		qj, w = q[0], inv[0]
+		d0, d1, d2, d3 = r0[0]-qj, r1[0]-qj, r2[0]-qj, r3[0]-qj
+		s0 += d0 * d0 * w
+		s1 += d1 * d1 * w
+		s2 += d2 * d2 * w
+		s3 += d3 * d3 * w
+		qj, w = q[1], inv[1]
+		d0, d1, d2, d3 = r0[1]-qj, r1[1]-qj, r2[1]-qj, r3[1]-qj
+		s0 += d0 * d0 * w
+		s1 += d1 * d1 * w
+		s2 += d2 * d2 * w
+		s3 += d3 * d3 * w
+		qj, w = q[2], inv[2]
+		d0, d1, d2, d3 = r0[2]-qj, r1[2]-qj, r2[2]-qj, r3[2]-qj
+		s0 += d0 * d0 * w
+		s1 += d1 * d1 * w
+		s2 += d2 * d2 * w
+		s3 += d3 * d3 * w
+		qj, w = q[3], inv[3]
+		d0, d1, d2, d3 = r0[3]-qj, r1[3]-qj, r2[3]-qj, r3[3]-qj
+		s0 += d0 * d0 * w
+		s1 += d1 * d1 * w
+		s2 += d2 * d2 * w
+		s3 += d3 * d3 * w
+		qj, w = q[4], inv[4]
+		d0, d1, d2, d3 = r0[4]-qj, r1[4]-qj, r2[4]-qj, r3[4]-qj
+		s0 += d0 * d0 * w
+		s1 += d1 * d1 * w
+		s2 += d2 * d2 * w
+		s3 += d3 * d3 * w
+		qj, w = q[5], inv[5]
+		d0, d1, d2, d3 = r0[5]-qj, r1[5]-qj, r2[5]-qj, r3[5]-qj
+		s0 += d0 * d0 * w
+		s1 += d1 * d1 * w
+		s2 += d2 * d2 * w
+		s3 += d3 * d3 * w
+		qj, w = q[6], inv[6]
+		d0, d1, d2, d3 = r0[6]-qj, r1[6]-qj, r2[6]-qj, r3[6]-qj
+		s0 += d0 * d0 * w
+		s1 += d1 * d1 * w
+		s2 += d2 * d2 * w
+		s3 += d3 * d3 * w
+		qj, w = q[7], inv[7]
+		d0, d1, d2, d3 = r0[7]-qj, r1[7]-qj, r2[7]-qj, r3[7]-qj
+		s0 += d0 * d0 * w
+		s1 += d1 * d1 * w
+		s2 += d2 * d2 * w
+		s3 += d3 * d3 * w
 		if s0 < sc.worst || s1 < sc.worst || s2 < sc.worst || s3 < sc.worst || len(sc.best) < sc.k {
 			sc.offer(s0, s)
 			sc.offer(s1, s-1)
