@@ -44,7 +44,6 @@ func roundsOf(ns float64) int {
 	return max(1, int(math.Round(2e6/ns)))
 }
 
-
 func quantile(xs []float64, q float64) float64 {
 	s := slices.Clone(xs)
 	slices.Sort(s)
