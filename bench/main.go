@@ -65,7 +65,7 @@ func main() {
 	asJSON := flag.Bool("json", false, "print a JSON array of results")
 	flag.BoolVar(&quick, "quick", false, "shorter runs (under a minute)")
 	child := flag.String("replay-child", "", "internal: replay this history and print events/s (the keys case's child process)")
-	only := flag.String("only", "", "run only the cases (cases: the table of ratios) or the named extra: keys, flood, restore, group, intervals, drift or answers")
+	only := flag.String("only", "", "run only the cases (cases: the table of ratios) or the named extra: keys, flood, restore, group, intervals, drift, answers or kdtree")
 	writeKeys := flag.String("write-keys-history", "", "write the keys case's history (2 M events, 10⁶ keys) to this file and exit")
 	ckDir := flag.String("checkpoint-dir", "", "with -replay-child: then time a checkpoint of the state written there and loaded back")
 	loadChildDir := flag.String("load-child", "", "internal: load the newest checkpoint in this directory and print the seconds it took (the keys case's child process)")
@@ -115,9 +115,12 @@ func main() {
 	case "answers":
 		fmt.Print(answerCost())
 		return
+	case "kdtree":
+		fmt.Print(kdtreeCompare())
+		return
 	case "", "cases":
 	default:
-		fmt.Fprintf(os.Stderr, "bench: -only %q: want cases, keys, flood, restore, group, intervals, drift or answers\n", *only)
+		fmt.Fprintf(os.Stderr, "bench: -only %q: want cases, keys, flood, restore, group, intervals, drift, answers or kdtree\n", *only)
 		os.Exit(2)
 	}
 	bt := "1s"
@@ -129,7 +132,7 @@ func main() {
 		httpPredict(), kafkaIntake()}
 	var extras []string
 	if *only == "" {
-		extras = []string{growth(), memory(), onlineVsBatch(), keysScale(), rejectFlood(), restoreSkip(), groupScale(), intervalCoverage(), driftDetectors(), answerCost()}
+		extras = []string{growth(), memory(), onlineVsBatch(), keysScale(), rejectFlood(), restoreSkip(), groupScale(), intervalCoverage(), driftDetectors(), answerCost(), kdtreeCompare()}
 	}
 	ok := true
 	for i := range results {
