@@ -27,6 +27,7 @@ import (
 	"net"
 	"net/http"
 	"os"
+	"path/filepath"
 	"runtime"
 	"runtime/pprof"
 	"strconv"
@@ -39,8 +40,10 @@ import (
 
 	"tidemark/api"
 	"tidemark/api/intake"
+	"tidemark/api/persist"
 	"tidemark/api/replay"
 	"tidemark/bench/synth"
+	"tidemark/checkpoint"
 	"tidemark/learner"
 )
 
@@ -118,6 +121,10 @@ func main() {
 	case "kdtree":
 		fmt.Print(kdtreeCompare())
 		return
+	case "checkpoint":
+		r := checkpointCase()
+		fmt.Printf("checkpoint-write %.0f ms, floor %.0f ms: %.2f× (p10–p90 %.2f–%.2f); %s\n", r.Ours/1e6, r.Floor/1e6, r.Ours/r.Floor, r.Lo, r.Hi, r.Note)
+		return
 	case "", "cases":
 	default:
 		fmt.Fprintf(os.Stderr, "bench: -only %q: want cases, keys, flood, restore, group, intervals, drift, answers or kdtree\n", *only)
@@ -129,7 +136,7 @@ func main() {
 	}
 	flag.Set("test.benchtime", bt)
 	results := []result{knnPredict(), knnLearn(), rlsUpdate(), slidingUpdate(), decodeCase(), replayCase("rls:forget=0.995"), replayCase("mean:window=100"),
-		httpPredict(), kafkaIntake()}
+		checkpointCase(), httpPredict(), kafkaIntake()}
 	var extras []string
 	if *only == "" {
 		extras = []string{growth(), memory(), onlineVsBatch(), keysScale(), rejectFlood(), restoreSkip(), groupScale(), intervalCoverage(), driftDetectors(), answerCost(), kdtreeCompare()}
@@ -669,4 +676,93 @@ func onlineVsBatch() string {
 	batch := refit / perHour
 	return fmt.Sprintf("online against batch: rls %.0f ns per event; refitting OLS (gonum, W = %d, p = %d) once an hour costs %.0f ns per event (%.0f per refit): %.0f× the online cost, and its model is up to an hour old\n",
 		online, window, d+1, batch, refit, batch/online)
+}
+
+// checkpointCase times writing a checkpoint of 100 000 keys (rls d = 8 and
+// mean:window=100 each, three events a key) against writing and syncing
+// the same number of bytes to a plain file, in alternating rounds.
+func checkpointCase() result {
+	var specs []learner.Spec
+	for _, s := range []string{"rls:forget=0.99", "mean:window=100"} {
+		sp, _ := learner.ParseSpec(s)
+		specs = append(specs, sp)
+	}
+	eng, _ := learner.NewEngine(learner.Config{Learners: specs})
+	rng := rand.New(rand.NewPCG(1, 2))
+	ev := &learner.Event{Features: make([]learner.Feature, 8)}
+	for j := range ev.Features {
+		ev.Features[j].Name = "f" + strconv.Itoa(j)
+	}
+	keys := 100_000
+	if quick {
+		keys = 20_000
+	}
+	for i := 0; i < 3*keys; i++ {
+		ev.Key = "key-" + strconv.Itoa(i%keys)
+		for j := range ev.Features {
+			ev.Features[j].Num = math.Round(rng.NormFloat64()*100) / 100 // sensor readings: two decimals
+		}
+		ev.Target = math.Round(rng.NormFloat64()*1000) / 100
+		eng.Apply(learner.Position{Offset: int64(i)}, ev)
+	}
+	dir, err := os.MkdirTemp("", "tidemark-bench-ck-")
+	if err != nil {
+		panic(err)
+	}
+	defer os.RemoveAll(dir)
+	store, err := checkpoint.OpenStore(checkpoint.StoreConfig{Dir: filepath.Join(dir, "store"), Retain: 2})
+	if err != nil {
+		panic(err)
+	}
+	defer store.Close()
+	var info checkpoint.Info
+	save := func(n int) {
+		for range n {
+			if info, err = persist.Save(store, eng, checkpoint.Manual, 0, nil); err != nil {
+				panic(err)
+			}
+		}
+	}
+	save(1)
+	// The floor writes the checkpoint's own bytes: zeros, which some virtual
+	// disks store without writing them, would flatter it.
+	data, err := os.ReadFile(filepath.Join(store.Dir(), checkpoint.FileName(info.Version)))
+	if err != nil {
+		panic(err)
+	}
+	// Like the store, it writes a new file each time and removes the one
+	// before the last (the store keeps two).
+	round := 0
+	floor := func(n int) {
+		for range n {
+			round++
+			if err := writeSynced(filepath.Join(dir, fmt.Sprintf("floor-%d", round)), data); err != nil {
+				panic(err)
+			}
+			os.Remove(filepath.Join(dir, fmt.Sprintf("floor-%d", round-2)))
+		}
+	}
+	p := paired(save, floor, 1, 9)
+	return result{Case: "checkpoint-write", Ours: p.ours, Floor: p.floor, Lo: p.lo, Hi: p.hi, Target: 3.0,
+		Note: fmt.Sprintf("%d keys, rls + mean:window=100: %.0f MB raw, %.0f MB file; floor: writing and syncing the same bytes to a plain file",
+			keys, float64(info.RawBytes)/1e6, float64(info.Bytes)/1e6)}
+}
+
+// writeSynced writes data to a new file at path in 1 MiB writes and syncs it.
+func writeSynced(path string, data []byte) error {
+	f, err := os.Create(path)
+	if err != nil {
+		return err
+	}
+	for n := 0; n < len(data); n += 1 << 20 {
+		if _, err := f.Write(data[n:min(n+1<<20, len(data))]); err != nil {
+			f.Close()
+			return err
+		}
+	}
+	if err := f.Sync(); err != nil {
+		f.Close()
+		return err
+	}
+	return f.Close()
 }
