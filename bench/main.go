@@ -405,10 +405,11 @@ func scenarioLines(n int) []byte {
 func decodeCase() result {
 	lines := bytes.Split(bytes.TrimSpace(scenarioLines(20_000)), []byte("\n"))
 	var ev learner.Event
+	var keys learner.Keys // as a reader decodes: keys interned
 	i := 0
 	decode := func(n int) {
 		for range n {
-			learner.DecodeEvent(lines[i%len(lines)], &ev)
+			keys.Decode(lines[i%len(lines)], &ev)
 			i++
 		}
 	}
@@ -460,13 +461,14 @@ func replayCase(spec string) result {
 	var ev learner.Event
 	readDecode := func(n int) {
 		for range n {
+			var keys learner.Keys
 			h := intake.NewHistoryReader(bytes.NewReader(data))
 			for {
 				line, _, err := h.Next()
 				if err != nil {
 					break
 				}
-				learner.DecodeEvent(line, &ev)
+				keys.Decode(line, &ev)
 			}
 		}
 	}

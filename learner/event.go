@@ -75,12 +75,45 @@ func DecodeEvent(data []byte, ev *Event) error { return decodeEvent(data, ev, tr
 func DecodeRow(data []byte, ev *Event) error { return decodeEvent(data, ev, false) }
 
 func decodeEvent(data []byte, ev *Event, needTarget bool) error {
+	return decodeWith(data, ev, needTarget, nil)
+}
+
+func decodeWith(data []byte, ev *Event, needTarget bool, keys *Keys) error {
 	if len(data) <= MaxEventBytes {
-		if ok, err := decodeFast(data, ev, needTarget); ok {
+		if ok, err := decodeFast(data, ev, needTarget, keys); ok {
 			return err
 		}
 	}
 	return decodeSlow(data, ev, needTarget)
+}
+
+// Keys interns the keys of the events one reader decodes (Keys.Decode), so
+// that a key seen before costs no allocation: a stream names its keys over
+// and over. It holds at most MaxInterned keys; later new keys are decoded as
+// DecodeEvent does. Not safe for concurrent use: one per reading goroutine.
+type Keys struct {
+	m map[string]string
+}
+
+// MaxInterned bounds the keys a Keys holds.
+const MaxInterned = 1 << 16
+
+// Decode is DecodeEvent with the event's key interned.
+func (k *Keys) Decode(data []byte, ev *Event) error { return decodeWith(data, ev, true, k) }
+
+// key returns b as a string: the one held when b was seen before.
+func (k *Keys) key(b []byte) string {
+	if s, ok := k.m[string(b)]; ok {
+		return s
+	}
+	s := string(b)
+	if k.m == nil {
+		k.m = map[string]string{}
+	}
+	if len(k.m) < MaxInterned {
+		k.m[s] = s
+	}
+	return s
 }
 
 // decodeSlow is the reference decoder, built on encoding/json; decodeFast

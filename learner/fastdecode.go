@@ -16,7 +16,7 @@ import (
 // caller then runs the reference decoder, so both always agree
 // (FuzzDecodeEvent checks it). For input it accepts, its result and its
 // error are the reference decoder's.
-func decodeFast(data []byte, ev *Event, needTarget bool) (ok bool, err error) {
+func decodeFast(data []byte, ev *Event, needTarget bool, keys *Keys) (ok bool, err error) {
 	p := fastParser{b: data}
 	p.ws()
 	if !p.eat('{') {
@@ -160,8 +160,14 @@ done:
 		}
 	}
 	*ev = Event{Features: feats, Target: target}
-	if hasKey {
-		ev.Key = reuse(key, []string{oldKey})
+	switch {
+	case !hasKey:
+	case oldKey == string(key):
+		ev.Key = oldKey
+	case keys != nil:
+		ev.Key = keys.key(key)
+	default:
+		ev.Key = string(key)
 	}
 	if hasTime {
 		ev.Time, ev.HasTime = tns, true

@@ -38,7 +38,7 @@ func FuzzDecodeEvent(f *testing.F) {
 	f.Fuzz(func(t *testing.T, data []byte) {
 		for _, needTarget := range []bool{true, false} {
 			var fast, slow Event
-			ok, ferr := decodeFast(data, &fast, needTarget)
+			ok, ferr := decodeFast(data, &fast, needTarget, &fuzzKeys)
 			serr := decodeSlow(data, &slow, needTarget)
 			if !ok {
 				continue
@@ -79,10 +79,14 @@ func FuzzParseSpec(f *testing.F) {
 func TestFastDecoderTakesTheCanonicalShape(t *testing.T) {
 	var ev Event
 	line := []byte(`{"time":"2026-03-02T14:00:00Z","key":"room-b","features":{"outdoor_c":21.5,"door_min":3,"shift":"night"},"target":41.7}`)
-	if ok, err := decodeFast(line, &ev, true); !ok || err != nil {
+	if ok, err := decodeFast(line, &ev, true, nil); !ok || err != nil {
 		t.Fatalf("the canonical event took the slow path (ok %v, err %v)", ok, err)
 	}
-	if allocs := testing.AllocsPerRun(100, func() { decodeFast(line, &ev, true) }); allocs > 6 {
+	if allocs := testing.AllocsPerRun(100, func() { decodeFast(line, &ev, true, nil) }); allocs > 6 {
 		t.Errorf("%v allocations per canonical event, want at most 6 (names and the string value)", allocs)
 	}
 }
+
+// fuzzKeys interns the keys FuzzDecodeEvent's fast decodes meet, so that
+// interning is held to the reference decoder too.
+var fuzzKeys Keys

@@ -101,7 +101,8 @@ type replayer struct {
 	resume      *historySource // the checkpoint resumed from, until its prefix is verified
 	logged      int
 	rejects     int
-	waiting     []lateEvent // asked, label not yet due (LabelDelay)
+	waiting     []lateEvent  // asked, label not yet due (LabelDelay)
+	keys        learner.Keys // the reader's: keys seen, decoded without allocating again
 }
 
 // Replay runs every line of h through eng, test-then-train, in order. Each
@@ -246,7 +247,7 @@ func (r *replayer) next(h *intake.History, it *lineItem) {
 		it.kind = lineBlank
 	default:
 		it.kind = lineEvent
-		if derr := learner.DecodeEvent(line, &it.ev); derr != nil {
+		if derr := r.keys.Decode(line, &it.ev); derr != nil {
 			it.kind, it.err = lineBad, derr
 		}
 	}
