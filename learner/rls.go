@@ -30,7 +30,12 @@ import (
 // (sqrtInfo): each event multiplies R and z by √λ and adds the row (u, y)
 // with Givens rotations, then solves Rθ = z. The same recursion, stable
 // (Bierman, Factorization Methods for Discrete Sequential Estimation, 1977).
-// Cost per event O(p²) for p regressors.
+// The factor √λ is not applied to R and z: it is carried as one scalar c
+// (R and z stored are the true ones divided by c), and the row enters as
+// (u, y)/c, which is the same rotation problem scaled by 1/c; θ solves
+// Rθ = z whatever the common scale. Only when c has fallen below 2⁻¹⁰⁰ are R
+// and z multiplied by it, once, and c set back to 1. Cost per event O(p²)
+// for p regressors, of which forgetting O(p).
 //
 // It is ready to predict once it has trained on at least p events. Columns
 // that are, to working precision, combinations of earlier ones (a hashed
@@ -44,6 +49,7 @@ type RLS struct {
 	theta   []float64
 	trained int64
 	last    int64 // newest event time seen by Learn
+	c       float64 // R and z stored are the true ones divided by c (see above)
 	hasLast bool
 	rankDef int // dependent columns at the last solve
 }
@@ -57,7 +63,7 @@ func newRLSShared(cfg *RLSConfig, d int, sp **scratch) *RLS {
 	ex := expansion{d: d, intercept: !cfg.NoIntercept, degree: cfg.Degree}
 	p := ex.p()
 	qr, theta := newSqrtInfo(p, useScratch(sp, p), p)
-	m := &RLS{cfg: cfg, ex: ex, qr: qr, theta: theta}
+	m := &RLS{cfg: cfg, ex: ex, qr: qr, theta: theta, c: 1}
 	m.qr.reset(priorDiag(cfg.P0))
 	m.rankDef = p
 	return m
@@ -143,13 +149,29 @@ func (m *RLS) Learn(x []float64, y float64, t int64) {
 			m.last, m.hasLast = t, true
 		}
 	}
+	u := m.qr.s.u
 	if lambda != 1 {
-		m.qr.scale(math.Sqrt(lambda))
+		m.c *= math.Sqrt(lambda)
+		if m.c < minScale {
+			m.qr.scale(m.c)
+			m.c = 1
+		}
 	}
-	m.qr.add(m.qr.s.u, y)
+	if m.c != 1 {
+		inv := 1 / m.c
+		for i := range u {
+			u[i] *= inv
+		}
+		y *= inv
+	}
+	m.qr.add(u, y)
 	m.rankDef = m.qr.solve(m.theta)
 	m.trained++
 }
+
+// minScale is how small the carried factor c gets before it is applied to R
+// and z: stored entries then stay within 2¹⁰⁰ of the data's magnitude.
+const minScale = 0x1p-100
 
 // Deficient returns the number of regressors found linearly dependent at the
 // last update (0 when the fit is of full rank).
@@ -164,6 +186,7 @@ func (m *RLS) encode(w *encoder) {
 	w.i64(m.trained)
 	w.i64(m.last)
 	w.bool(m.hasLast)
+	w.f64(m.c)
 	m.qr.encode(w)
 }
 
@@ -171,6 +194,12 @@ func (m *RLS) decode(r *decoder) error {
 	m.trained = r.i64()
 	m.last = r.i64()
 	m.hasLast = r.bool()
+	m.c = 1
+	if r.ver >= 12 {
+		if m.c = r.f64(); !(m.c > 0 && m.c <= 1) {
+			r.fail("rls scale factor out of (0, 1]")
+		}
+	}
 	m.qr.decode(r)
 	m.rankDef = m.qr.solve(m.theta)
 	return r.err

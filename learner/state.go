@@ -50,8 +50,9 @@ const (
 	// 8 they start from nothing. 9 adds the ADWIN detector, when the
 	// configuration chooses it. 10 adds each key's leader, when the
 	// configuration keeps one. 11 adds each partition's served answers
-	// and their scores (served.go).
-	stateVersion = 11
+	// and their scores (served.go). 12 adds rls's carried scale factor
+	// (before 12 it is 1: R and z were scaled every event).
+	stateVersion = 12
 	maxNames     = MaxFeatures
 	maxSections  = 1 << 20
 )
