@@ -48,7 +48,7 @@ type RLS struct {
 	qr      sqrtInfo
 	theta   []float64
 	trained int64
-	last    int64 // newest event time seen by Learn
+	last    int64   // newest event time seen by Learn
 	c       float64 // R and z stored are the true ones divided by c (see above)
 	hasLast bool
 	rankDef int // dependent columns at the last solve
