@@ -68,7 +68,7 @@ func main() {
 	asJSON := flag.Bool("json", false, "print a JSON array of results")
 	flag.BoolVar(&quick, "quick", false, "shorter runs (under a minute)")
 	child := flag.String("replay-child", "", "internal: replay this history and print events/s (the keys case's child process)")
-	only := flag.String("only", "", "run only the cases (cases: the table of ratios) or the named extra: keys, flood, restore, group, intervals, drift, answers or kdtree")
+	only := flag.String("only", "", "run only the cases (cases: the table of ratios) or the named extra: growth, keys, flood, restore, group, intervals, drift, answers, kdtree or checkpoint")
 	writeKeys := flag.String("write-keys-history", "", "write the keys case's history (2 M events, 10⁶ keys) to this file and exit")
 	ckDir := flag.String("checkpoint-dir", "", "with -replay-child: then time a checkpoint of the state written there and loaded back")
 	loadChildDir := flag.String("load-child", "", "internal: load the newest checkpoint in this directory and print the seconds it took (the keys case's child process)")
@@ -121,13 +121,16 @@ func main() {
 	case "kdtree":
 		fmt.Print(kdtreeCompare())
 		return
+	case "growth":
+		fmt.Print(growth())
+		return
 	case "checkpoint":
 		r := checkpointCase()
 		fmt.Printf("checkpoint-write %.0f ms, floor %.0f ms: %.2f× (p10–p90 %.2f–%.2f); %s\n", r.Ours/1e6, r.Floor/1e6, r.Ours/r.Floor, r.Lo, r.Hi, r.Note)
 		return
 	case "", "cases":
 	default:
-		fmt.Fprintf(os.Stderr, "bench: -only %q: want cases, keys, flood, restore, group, intervals, drift, answers or kdtree\n", *only)
+		fmt.Fprintf(os.Stderr, "bench: -only %q: want cases, growth, keys, flood, restore, group, intervals, drift, answers, kdtree or checkpoint\n", *only)
 		os.Exit(2)
 	}
 	bt := "1s"
