@@ -10,7 +10,9 @@ import (
 	"fmt"
 	"hash"
 	"io"
+	"runtime"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"tidemark/api/intake"
@@ -103,6 +105,10 @@ type replayer struct {
 	rejects     int
 	waiting     []lateEvent  // asked, label not yet due (LabelDelay)
 	keys        learner.Keys // the reader's: keys seen, decoded without allocating again
+	engKeys     learner.Keys // the same, for lines the engine's goroutine decodes
+	// split shares the decoding of each batch between the reader and the
+	// engine's goroutine (run, without helper engines).
+	split bool
 }
 
 // Replay runs every line of h through eng, test-then-train, in order. Each
@@ -159,7 +165,17 @@ type lineItem struct {
 	err     error
 	digest  [32]byte // SHA-256 of lines 1..no
 	readErr error    // a read failure: the replay stops with it
+	raw     []byte   // the line, until it is decoded (its own copy)
+	// state says who decodes a lineEvent: undecoded, claimed (by the
+	// reader or the engine's goroutine, which then decodes it), decoded.
+	state atomic.Int32
 }
+
+const (
+	undecoded int32 = iota
+	claimed
+	decoded
+)
 
 type lineKind uint8
 
@@ -181,11 +197,31 @@ func (r *replayer) read(ctx context.Context, h *intake.History, out chan<- []lin
 	defer close(out)
 	batch := <-free
 	batch = batch[:0]
+	var events []int // the batch's event lines, for the reader's share of the decoding
 	send := func() bool {
+		sent := batch
+		if r.split {
+			events = events[:0]
+			for i := range sent {
+				if sent[i].kind == lineEvent { // read before the batch is handed over
+					events = append(events, i)
+				}
+			}
+		}
 		select {
 		case out <- batch:
 		case <-ctx.Done():
 			return false
+		}
+		if r.split {
+			// Decode the batch from its end while the engine's goroutine
+			// decodes and applies it from its start, until they meet: the
+			// two cores share the decoding as they are free to.
+			for k := len(events) - 1; k >= 0; k-- {
+				if !claim(&sent[events[k]], &r.keys) {
+					break
+				}
+			}
 		}
 		select {
 		case batch = <-free:
@@ -214,6 +250,7 @@ func (r *replayer) read(ctx context.Context, h *intake.History, out chan<- []lin
 
 // next reads, hashes and decodes the next line into it.
 func (r *replayer) next(h *intake.History, it *lineItem) {
+	it.state.Store(decoded) // but an event line left to run's goroutines
 	line, no, err := h.Next()
 	it.err, it.readErr = nil, nil
 	if err == io.EOF {
@@ -247,9 +284,44 @@ func (r *replayer) next(h *intake.History, it *lineItem) {
 		it.kind = lineBlank
 	default:
 		it.kind = lineEvent
-		if derr := r.keys.Decode(line, &it.ev); derr != nil {
-			it.kind, it.err = lineBad, derr
+		if r.split {
+			// Decoded later by whichever goroutine gets to it first (see
+			// run): the line is copied out of the reader's buffer.
+			it.raw = append(it.raw[:0], line...)
+			it.state.Store(undecoded)
+			return
 		}
+		decodeItem(it, line, &r.keys)
+	}
+}
+
+// decodeItem decodes an event line into it, with keys interned by keys.
+func decodeItem(it *lineItem, line []byte, keys *learner.Keys) {
+	if derr := keys.Decode(line, &it.ev); derr != nil {
+		it.kind, it.err = lineBad, derr
+	}
+	it.state.Store(decoded)
+}
+
+// claim decodes it on the calling goroutine when no other has claimed it,
+// and reports whether it did.
+func claim(it *lineItem, keys *learner.Keys) bool {
+	if !it.state.CompareAndSwap(undecoded, claimed) {
+		return false
+	}
+	decodeItem(it, it.raw, keys)
+	return true
+}
+
+// ready waits until it is decoded: decoding it itself when no one has begun,
+// else for the goroutine that did (a line's decoding takes well under a
+// microsecond). Lines that need no decoding are marked decoded by next.
+func ready(it *lineItem, keys *learner.Keys) {
+	if it.state.Load() == decoded || claim(it, keys) {
+		return
+	}
+	for it.state.Load() != decoded {
+		runtime.Gosched()
 	}
 }
 
@@ -268,6 +340,7 @@ func (r *replayer) run(ctx context.Context, h *intake.History) error {
 		for range out { // let the reader finish
 		}
 	}()
+	r.split = len(r.cfg.Helpers) == 0
 	go r.read(rctx, h, out, free)
 	helpers := make([]chan []lineItem, len(r.cfg.Helpers))
 	var batchDone sync.WaitGroup
@@ -294,8 +367,9 @@ func (r *replayer) run(ctx context.Context, h *intake.History) error {
 		eof := false
 		for i := range batch {
 			it := &batch[i]
+			ready(it, &r.engKeys)
 			// With many keys, the next key's state is read ahead (learner.Engine.Prefetch).
-			if j := i + learner.PrefetchAhead; j < len(batch) && batch[j].kind == lineEvent {
+			if j := i + learner.PrefetchAhead; j < len(batch) && batch[j].state.Load() == decoded && batch[j].kind == lineEvent {
 				r.eng.Prefetch(&batch[j].ev)
 			}
 			if err = r.step(it); err != nil {
