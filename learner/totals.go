@@ -94,6 +94,9 @@ func (t *Totals) Add(o Totals) error {
 	if (t.Leader == nil) != (o.Leader == nil) {
 		return fmt.Errorf("%w: totals with and without a leader cannot be added", ErrInvalidSpec)
 	}
+	if t.Served != nil && o.Served != nil && len(t.Served.Rows) != len(o.Served.Rows) {
+		return fmt.Errorf("%w: served totals of other learners cannot be added", ErrInvalidSpec)
+	}
 	t.Applied += o.Applied
 	t.Rejected += o.Rejected
 	t.Duplicates += o.Duplicates
@@ -112,8 +115,6 @@ func (t *Totals) Add(o Totals) error {
 		c := *o.Served
 		c.Rows = slices.Clone(o.Served.Rows)
 		t.Served = &c
-	case len(t.Served.Rows) != len(o.Served.Rows):
-		return fmt.Errorf("%w: served totals of other learners cannot be added", ErrInvalidSpec)
 	default:
 		t.Served.add(o.Served)
 	}
