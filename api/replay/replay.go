@@ -106,6 +106,7 @@ type replayer struct {
 	waiting     []lateEvent  // asked, label not yet due (LabelDelay)
 	keys        learner.Keys // the reader's: keys seen, decoded without allocating again
 	engKeys     learner.Keys // the same, for lines the engine's goroutine decodes
+	unit        string       // "line" or "row", in messages
 	// split shares the decoding of each batch between the reader and the
 	// engine's goroutine (run, without helper engines).
 	split bool
@@ -119,7 +120,7 @@ func Replay(ctx context.Context, h *intake.History, eng *learner.Engine, cfg Rep
 	if cfg.RejectLog == 0 {
 		cfg.RejectLog = DefaultRejectLog
 	}
-	r := &replayer{cfg: cfg, eng: eng, prefix: sha256.New()}
+	r := &replayer{cfg: cfg, eng: eng, prefix: sha256.New(), unit: h.Unit()}
 	if len(cfg.Helpers) > 0 && (cfg.Checkpoints != nil || cfg.Resume || cfg.Sequential) {
 		return errors.New("replay: helper engines cannot be combined with checkpoints, resume or a sequential run")
 	}
@@ -261,7 +262,8 @@ func (r *replayer) next(h *intake.History, it *lineItem) {
 		return
 	}
 	tooLong := errors.Is(err, intake.ErrLineTooLong)
-	if err != nil && !tooLong {
+	badRow := errors.Is(err, intake.ErrBadRow)
+	if err != nil && !tooLong && !badRow {
 		it.no, it.readErr = no, err
 		return
 	}
@@ -269,9 +271,12 @@ func (r *replayer) next(h *intake.History, it *lineItem) {
 	if r.cfg.Checkpoints != nil {
 		// Only a checkpoint records the digest of the lines it covers
 		// (and a resume checks it): without one, no line is hashed.
-		if tooLong {
+		switch {
+		case tooLong:
 			r.prefix.Write([]byte("\x00line too long\n"))
-		} else {
+		case badRow:
+			r.prefix.Write([]byte("\x00bad row\n"))
+		default:
 			r.prefix.Write(line)
 			r.prefix.Write([]byte{'\n'})
 		}
@@ -280,6 +285,8 @@ func (r *replayer) next(h *intake.History, it *lineItem) {
 	switch {
 	case tooLong:
 		it.kind, it.err = lineTooLong, err
+	case badRow:
+		it.kind, it.err = lineBad, err
 	case len(bytes.TrimSpace(line)) == 0:
 		it.kind = lineBlank
 	default:
@@ -498,10 +505,10 @@ func (r *replayer) apply(no int64, ev *learner.Event) error {
 func (r *replayer) reject(line int64, err error) error {
 	r.rejects++
 	if r.cfg.Strict {
-		return fmt.Errorf("%w: line %d: %v", ErrStrict, line, err)
+		return fmt.Errorf("%w: %s %d: %v", ErrStrict, r.unit, line, err)
 	}
 	if r.cfg.Log != nil && r.logged < r.cfg.RejectLog {
-		fmt.Fprintf(r.cfg.Log, "line %d: %v\n", line, err)
+		fmt.Fprintf(r.cfg.Log, "%s %d: %v\n", r.unit, line, err)
 		r.logged++
 	}
 	return nil

@@ -11,6 +11,7 @@ import (
 	"os/signal"
 	"path/filepath"
 	"strings"
+	"time"
 
 	"tidemark/api/intake"
 	"tidemark/api/replay"
@@ -102,7 +103,15 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 	fs := newFlagSet("replay", "replay --history FILE --learner SPEC... [--json] [--strict] [--per-key]\n        [--checkpoints DIR [--every N] [--resume]]", stderr)
 	var ef engineFlags
 	ef.register(fs)
-	history := fs.String("history", "", "history `FILE`: NDJSON events, plain, .gz or .zst")
+	history := fs.String("history", "", "history `FILE`: NDJSON events or CSV rows (FILE.csv), plain, .gz or .zst")
+	format := fs.String("format", "", "the history's format: ndjson or csv (default: from its name)")
+	timeField := fs.String("time-field", "time", "CSV: the column of the event time")
+	keyField := fs.String("key-field", "key", "CSV: the column of the key")
+	targetField := fs.String("target-field", "target", "CSV: the column of the target")
+	timeFormat := fs.String("time-format", intake.TimeRFC3339, "CSV: how times are written: rfc3339, unix_s, unix_ms, unix_us, or a layout such as '2006-01-02 15:04:05'")
+	timeZone := fs.String("time-zone", "UTC", "CSV: the zone of times written without one (an IANA name such as Europe/Oslo)")
+	var ignore multi
+	fs.Var(&ignore, "ignore", "CSV: a column that is not a feature (repeatable)")
 	asJSON := fs.Bool("json", false, "print the report as one JSON object")
 	strict := fs.Bool("strict", false, "stop at the first rejected line (exit status 2)")
 	perKey := fs.Bool("per-key", false, "include each key's metrics (JSON) or a table per key")
@@ -173,7 +182,19 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 		}
 		defer store.Close()
 	}
-	h, err := intake.OpenHistory(*history)
+	if *format == "" {
+		*format = intake.FormatOf(*history)
+	}
+	zone, err := time.LoadLocation(*timeZone)
+	if err != nil {
+		return usagef("--time-zone %q: %v", *timeZone, err)
+	}
+	fields := intake.Fields{Time: *timeField, Key: *keyField, Target: *targetField, TimeFormat: *timeFormat, Zone: zone, Ignore: ignore,
+		Categorical: splitList(ef.categorical), Numeric: splitList(ef.numeric)}
+	if err := fields.Validate(); err != nil {
+		return usageError{err}
+	}
+	h, err := intake.OpenHistoryAs(*history, *format, fields)
 	if err != nil {
 		return usageError{err}
 	}

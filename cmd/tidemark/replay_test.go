@@ -2,15 +2,21 @@ package main
 
 import (
 	"bytes"
+	"compress/gzip"
+	"encoding/csv"
 	"encoding/json"
 	"fmt"
+	"io"
 	"math"
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"slices"
 	"sort"
+	"strconv"
 	"strings"
 	"testing"
+	"time"
 
 	"gonum.org/v1/gonum/mat"
 )
@@ -298,4 +304,73 @@ func TestReplaySweep(t *testing.T) {
 		}
 	}
 	t.Error("knn:k=3,window=200 is not among the sweep's learners")
+}
+
+// TestReplayFormatsAgree: the demo scenario written as NDJSON, as CSV, as
+// gzip-compressed CSV, and as CSV with its times in epoch milliseconds
+// under another column name gives the same `replay --json` report, to the
+// byte; a CSV's bad rows are named by row number.
+func TestReplayFormatsAgree(t *testing.T) {
+	dir := t.TempDir()
+	nd, csvPath := filepath.Join(dir, "w.ndjson"), filepath.Join(dir, "w.csv")
+	for _, out := range []string{nd, csvPath} {
+		if code := run([]string{"synth", "--out", out, "--days", "3"}, io.Discard, io.Discard); code != 0 {
+			t.Fatalf("synth %s: exit %d", out, code)
+		}
+	}
+	// The same rows with the time as epoch milliseconds in a column "ts".
+	raw, err := os.ReadFile(csvPath)
+	if err != nil {
+		t.Fatal(err)
+	}
+	r := csv.NewReader(bytes.NewReader(raw))
+	r.FieldsPerRecord = -1
+	recs, err := r.ReadAll()
+	if err != nil {
+		t.Fatal(err)
+	}
+	var ms bytes.Buffer
+	w := csv.NewWriter(&ms)
+	for i, rec := range recs {
+		rec = slices.Clone(rec)
+		switch {
+		case i == 0:
+			rec[0] = "ts"
+		case len(rec) == len(recs[0]):
+			tm, err := time.Parse(time.RFC3339, rec[0])
+			if err != nil {
+				t.Fatal(err)
+			}
+			rec[0] = strconv.FormatInt(tm.UnixMilli(), 10)
+		}
+		w.Write(rec)
+	}
+	w.Flush()
+	msPath := filepath.Join(dir, "w-ms.csv")
+	gzPath := filepath.Join(dir, "w.csv.gz")
+	var gz bytes.Buffer
+	zw := gzip.NewWriter(&gz)
+	zw.Write(raw)
+	zw.Close()
+	if os.WriteFile(msPath, ms.Bytes(), 0o600) != nil || os.WriteFile(gzPath, gz.Bytes(), 0o600) != nil {
+		t.Fatal("write")
+	}
+	replayJSON := func(args ...string) (string, string) {
+		var out, errOut bytes.Buffer
+		args = append([]string{"replay", "--json", "--quiet", "--learner", "rls:forget=0.995", "--learner", "knn:k=5,window=500", "--learner", "mean:window=100"}, args...)
+		if code := run(args, &out, &errOut); code != 0 {
+			t.Fatalf("%v: exit %d: %s", args, code, errOut.String())
+		}
+		return out.String(), errOut.String()
+	}
+	want, _ := replayJSON("--history", nd)
+	for _, args := range [][]string{{"--history", csvPath}, {"--history", gzPath}, {"--history", msPath, "--time-field", "ts", "--time-format", "unix_ms"}} {
+		got, log := replayJSON(args...)
+		if got != want {
+			t.Errorf("%v: the report differs from the NDJSON one:\n%.400s\nwant\n%.400s", args, got, want)
+		}
+		if !strings.Contains(log, "row 436: bad row: wrong number of fields (line 437 of the file)") {
+			t.Errorf("%v: the bad row is not named by its row: %s", args, log)
+		}
+	}
 }

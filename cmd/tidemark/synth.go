@@ -6,17 +6,19 @@ import (
 	"io"
 	"os"
 
+	"tidemark/api/intake"
 	"tidemark/bench/synth"
 )
 
 func runSynth(args []string, stdout, stderr io.Writer) error {
-	fs := newFlagSet("synth", "synth --out FILE [--days N] [--seed S] [--rooms N]", stderr)
+	fs := newFlagSet("synth", "synth --out FILE [--days N] [--seed S] [--rooms N] [--format ndjson|csv]", stderr)
 	out := fs.String("out", "", "write the history to `FILE` (- for standard output)")
 	days := fs.Int("days", 14, "days of readings, every five minutes per room")
 	seed := fs.Uint64("seed", 1, "random seed; the same seed gives the same bytes")
 	rooms := fs.Int("rooms", 3, "rooms (keys); past three they repeat the first three's profiles")
+	format := fs.String("format", "", "ndjson or csv (default: from the name, csv for FILE.csv, else ndjson)")
 	fs.Usage = func() {
-		fmt.Fprintln(stderr, "Usage: tidemark synth --out FILE [--days N] [--seed S] [--rooms N]")
+		fmt.Fprintln(stderr, "Usage: tidemark synth --out FILE [--days N] [--seed S] [--rooms N] [--format ndjson|csv]")
 		fmt.Fprintln(stderr, "\nWrites the demo scenario, invented data of a fictional cold-storage warehouse:")
 		fmt.Fprint(stderr, synthHelp+"\n")
 		fmt.Fprintln(stderr, "Flags:")
@@ -43,8 +45,19 @@ func runSynth(args []string, stdout, stderr io.Writer) error {
 		}
 		w = f
 	}
+	if *format == "" {
+		*format = intake.FormatOf(*out)
+	}
+	write := synth.Write
+	switch *format {
+	case intake.FormatNDJSON:
+	case intake.FormatCSV:
+		write = synth.WriteCSV
+	default:
+		return usagef("--format %q: want ndjson or csv", *format)
+	}
 	bw := bufio.NewWriter(w)
-	n, err := synth.Write(bw, synth.Config{Days: *days, Seed: *seed, Rooms: *rooms})
+	n, err := write(bw, synth.Config{Days: *days, Seed: *seed, Rooms: *rooms})
 	if err == nil {
 		err = bw.Flush()
 	}

@@ -1,0 +1,384 @@
+package intake
+
+import (
+	"encoding/csv"
+	"errors"
+	"fmt"
+	"io"
+	"slices"
+	"strconv"
+	"strings"
+	"time"
+	"unicode/utf8"
+)
+
+// Histories in CSV (RFC 4180, a header row): each data row becomes one
+// event in the canonical shape (DESIGN.md, "Event") that the event decoder
+// reads, so that a CSV history replays exactly as the same events in NDJSON
+// do. The row's position is its number among the data rows, from 1 (the
+// header is not counted): a scenario written in both formats has the same
+// positions. A row that cannot become an event (a wrong number of fields, a
+// time that does not parse, bad quoting) is reported by History.Next, at
+// its row number, with an error wrapping ErrBadRow that names the file's line.
+
+// ErrBadRow marks a history row that cannot become an event.
+var ErrBadRow = errors.New("bad row")
+
+// Fields says which fields of a history's rows are an event's time, key and
+// target, how the time is written, and how the other fields are taken:
+// every one a feature, but those ignored; a field named in Categorical is a
+// string however it looks, one in Numeric must be a number.
+type Fields struct {
+	Time, Key, Target string // default "time", "key", "target"
+	TimeFormat        string // TimeRFC3339 (default), TimeUnixS, TimeUnixMS, TimeUnixUS, or a Go layout
+	Zone              *time.Location
+	Ignore            []string
+	Categorical       []string
+	Numeric           []string
+}
+
+// Time formats.
+const (
+	TimeRFC3339 = "rfc3339"
+	TimeUnixS   = "unix_s"
+	TimeUnixMS  = "unix_ms"
+	TimeUnixUS  = "unix_us"
+)
+
+func (f Fields) withDefaults() Fields {
+	if f.Time == "" {
+		f.Time = "time"
+	}
+	if f.Key == "" {
+		f.Key = "key"
+	}
+	if f.Target == "" {
+		f.Target = "target"
+	}
+	if f.TimeFormat == "" {
+		f.TimeFormat = TimeRFC3339
+	}
+	if f.Zone == nil {
+		f.Zone = time.UTC
+	}
+	return f
+}
+
+// Validate lists every problem of f.
+func (f Fields) Validate() error {
+	f = f.withDefaults()
+	var errs []error
+	if f.Time == f.Key || f.Time == f.Target || f.Key == f.Target {
+		errs = append(errs, fmt.Errorf("the time, key and target fields must differ (%q, %q, %q)", f.Time, f.Key, f.Target))
+	}
+	switch f.TimeFormat {
+	case TimeRFC3339, TimeUnixS, TimeUnixMS, TimeUnixUS:
+	default:
+		if !strings.ContainsAny(f.TimeFormat, "0123456789") {
+			errs = append(errs, fmt.Errorf("time format %q: want rfc3339, unix_s, unix_ms, unix_us or a layout such as \"2006-01-02 15:04:05\"", f.TimeFormat))
+		}
+	}
+	for _, c := range f.Categorical {
+		if slices.Contains(f.Numeric, c) {
+			errs = append(errs, fmt.Errorf("field %q is declared both categorical and numeric", c))
+		}
+	}
+	return errors.Join(errs...)
+}
+
+// csvRows reads a CSV history.
+type csvRows struct {
+	r      *csv.Reader
+	f      Fields
+	names  []string
+	role   []role
+	row    int64
+	out    []byte
+	header int // the header's line in the file
+}
+
+type role uint8
+
+const (
+	roleFeature role = iota
+	roleTime
+	roleKey
+	roleTarget
+	roleIgnore
+	roleCategorical
+	roleNumeric
+)
+
+// newCSVRows reads the header of a CSV history from r.
+func newCSVRows(r io.Reader, f Fields) (*csvRows, error) {
+	if err := f.Validate(); err != nil {
+		return nil, err
+	}
+	c := &csvRows{r: csv.NewReader(r), f: f.withDefaults()}
+	c.r.ReuseRecord = true
+	head, err := c.r.Read()
+	if err != nil {
+		if err == io.EOF {
+			return nil, errors.New("intake: the CSV history is empty: it needs a header row naming its columns")
+		}
+		return nil, fmt.Errorf("intake: CSV header: %w", err)
+	}
+	c.header, _ = c.r.FieldPos(0)
+	seen := map[string]bool{}
+	for i, name := range head {
+		if i == 0 {
+			name = strings.TrimPrefix(name, "\ufeff") // a byte order mark some writers put first
+		}
+		if name == "" || seen[name] || !utf8.ValidString(name) {
+			return nil, fmt.Errorf("intake: CSV header: column %d is named %q, empty, repeated or not UTF-8", i+1, name)
+		}
+		seen[name] = true
+		c.names = append(c.names, name)
+		ro := roleFeature
+		switch {
+		case name == c.f.Time:
+			ro = roleTime
+		case name == c.f.Key:
+			ro = roleKey
+		case name == c.f.Target:
+			ro = roleTarget
+		case slices.Contains(c.f.Ignore, name):
+			ro = roleIgnore
+		case slices.Contains(c.f.Categorical, name):
+			ro = roleCategorical
+		case slices.Contains(c.f.Numeric, name):
+			ro = roleNumeric
+		}
+		c.role = append(c.role, ro)
+	}
+	if !seen[c.f.Target] {
+		return nil, fmt.Errorf("intake: CSV header: no %q column for the target (columns: %s); name it with --target-field", c.f.Target, strings.Join(c.names, ", "))
+	}
+	return c, nil
+}
+
+// next returns the next row as a canonical event, its number, or an error:
+// io.EOF at the end, one wrapping ErrBadRow for a row that is not an event.
+func (c *csvRows) next() ([]byte, int64, error) {
+	rec, err := c.r.Read()
+	if err == io.EOF {
+		return nil, c.row, io.EOF
+	}
+	c.row++
+	var pe *csv.ParseError
+	if errors.As(err, &pe) {
+		return nil, c.row, fmt.Errorf("%w: %v (line %d of the file)", ErrBadRow, pe.Err, pe.StartLine)
+	}
+	if err != nil {
+		return nil, c.row, err
+	}
+	line, _ := c.r.FieldPos(0)
+	out, err := c.event(rec)
+	if err != nil {
+		return nil, c.row, fmt.Errorf("%w: %v (line %d of the file)", ErrBadRow, err, line)
+	}
+	return out, c.row, nil
+}
+
+// event writes rec as a canonical JSON event.
+func (c *csvRows) event(rec []string) ([]byte, error) {
+	b := append(c.out[:0], '{')
+	first := true
+	sep := func() {
+		if !first {
+			b = append(b, ',')
+		}
+		first = false
+	}
+	var target string
+	hasTarget := false
+	for i, v := range rec {
+		switch c.role[i] {
+		case roleTime:
+			if v == "" {
+				continue
+			}
+			t, err := parseTime(v, c.f.TimeFormat, c.f.Zone)
+			if err != nil {
+				return nil, err
+			}
+			sep()
+			b = append(b, `"time":"`...)
+			b = t.AppendFormat(b, time.RFC3339Nano)
+			b = append(b, '"')
+		case roleKey:
+			sep()
+			b = append(b, `"key":`...)
+			b = appendJSONString(b, v)
+		case roleTarget:
+			target, hasTarget = v, v != ""
+		}
+	}
+	sep()
+	b = append(b, `"features":{`...)
+	n := 0
+	for i, v := range rec {
+		ro := c.role[i]
+		if ro != roleFeature && ro != roleCategorical && ro != roleNumeric || v == "" {
+			continue // an empty cell is a feature the row does not have
+		}
+		if n > 0 {
+			b = append(b, ',')
+		}
+		n++
+		b = appendJSONString(b, c.names[i])
+		b = append(b, ':')
+		switch {
+		case ro == roleCategorical:
+			b = appendJSONString(b, v)
+		case isJSONNumber(v):
+			b = append(b, v...)
+		case ro == roleNumeric:
+			return nil, fmt.Errorf("%s: %q is not a number", c.names[i], v)
+		default:
+			b = appendJSONString(b, v)
+		}
+	}
+	b = append(b, '}')
+	if hasTarget {
+		b = append(b, `,"target":`...)
+		if isJSONNumber(target) {
+			b = append(b, target...)
+		} else {
+			b = appendJSONString(b, target) // refused by the decoder as not a number, with its reason
+		}
+	}
+	b = append(b, '}')
+	c.out = b
+	return b, nil
+}
+
+// parseTime reads a time written in format (see Fields.TimeFormat); times
+// written without a zone are in zone.
+func parseTime(v, format string, zone *time.Location) (time.Time, error) {
+	unit := int64(0)
+	switch format {
+	case TimeRFC3339:
+		t, err := time.Parse(time.RFC3339Nano, v)
+		if err != nil {
+			return t, fmt.Errorf("time %q is not RFC 3339", v)
+		}
+		return t, nil
+	case TimeUnixS:
+		unit = 1e9
+	case TimeUnixMS:
+		unit = 1e6
+	case TimeUnixUS:
+		unit = 1e3
+	default:
+		t, err := time.ParseInLocation(format, v, zone)
+		if err != nil {
+			return t, fmt.Errorf("time %q does not match the layout %q", v, format)
+		}
+		return t, nil
+	}
+	// Epoch times as integers or exact decimals (a fraction down to the
+	// nanosecond).
+	digits := map[int64]int{1e9: 9, 1e6: 6, 1e3: 3}[unit]
+	what := map[string]string{TimeUnixS: "seconds", TimeUnixMS: "milliseconds", TimeUnixUS: "microseconds"}[format]
+	whole, frac, _ := strings.Cut(v, ".")
+	n, err := strconv.ParseInt(whole, 10, 64)
+	if err != nil || len(frac) > digits || strings.HasPrefix(whole, "+") {
+		return time.Time{}, fmt.Errorf("time %q is not a number of %s since 1970 (to the nanosecond at most)", v, what)
+	}
+	var f int64
+	if frac != "" {
+		if f, err = strconv.ParseInt(frac+strings.Repeat("0", digits-len(frac)), 10, 64); err != nil || f < 0 {
+			return time.Time{}, fmt.Errorf("time %q is not a number of %s since 1970", v, what)
+		}
+	}
+	if n > (1<<62)/unit || n < -(1<<62)/unit {
+		return time.Time{}, fmt.Errorf("time %q is out of range", v)
+	}
+	ns := n * unit
+	if strings.HasPrefix(whole, "-") {
+		ns -= f
+	} else {
+		ns += f
+	}
+	return time.Unix(0, ns).UTC(), nil
+}
+
+// isJSONNumber reports whether v is a number in JSON's grammar.
+func isJSONNumber(v string) bool {
+	i := 0
+	if i < len(v) && v[i] == '-' {
+		i++
+	}
+	switch {
+	case i < len(v) && v[i] == '0':
+		i++
+	case i < len(v) && v[i] >= '1' && v[i] <= '9':
+		for i < len(v) && v[i] >= '0' && v[i] <= '9' {
+			i++
+		}
+	default:
+		return false
+	}
+	if i < len(v) && v[i] == '.' {
+		i++
+		d := i
+		for i < len(v) && v[i] >= '0' && v[i] <= '9' {
+			i++
+		}
+		if i == d {
+			return false
+		}
+	}
+	if i < len(v) && (v[i] == 'e' || v[i] == 'E') {
+		i++
+		if i < len(v) && (v[i] == '+' || v[i] == '-') {
+			i++
+		}
+		d := i
+		for i < len(v) && v[i] >= '0' && v[i] <= '9' {
+			i++
+		}
+		if i == d {
+			return false
+		}
+	}
+	return i == len(v)
+}
+
+// appendJSONString appends s as a JSON string.
+func appendJSONString(b []byte, s string) []byte {
+	b = append(b, '"')
+	for i := 0; i < len(s); {
+		c := s[i]
+		if c >= 0x20 && c != '"' && c != '\\' && c < 0x80 {
+			b = append(b, c)
+			i++
+			continue
+		}
+		if c < 0x80 {
+			switch c {
+			case '"', '\\':
+				b = append(b, '\\', c)
+			case '\n':
+				b = append(b, '\\', 'n')
+			case '\r':
+				b = append(b, '\\', 'r')
+			case '\t':
+				b = append(b, '\\', 't')
+			default:
+				b = append(b, fmt.Sprintf(`\u%04x`, c)...)
+			}
+			i++
+			continue
+		}
+		r, n := utf8.DecodeRuneInString(s[i:])
+		if r == utf8.RuneError && n == 1 {
+			b = append(b, `\ufffd`...) // refused by the decoder, as any U+FFFD
+		} else {
+			b = append(b, s[i:i+n]...)
+		}
+		i += n
+	}
+	return append(b, '"')
+}
