@@ -88,13 +88,67 @@ func (f Fields) Validate() error {
 
 // csvRows reads a CSV history.
 type csvRows struct {
-	r      *csv.Reader
-	f      Fields
-	names  []string
-	role   []role
-	row    int64
-	out    []byte
-	header int // the header's line in the file
+	r *csv.Reader
+	shape
+	row int64
+}
+
+// shape is what the columns of a tabular history are, by name, and the
+// canonical event a row of cells makes (event).
+type shape struct {
+	f     Fields
+	names []string
+	role  []role
+	out   []byte
+}
+
+// newShape names the columns and gives each its role; strings marks the
+// columns whose values are text however they look (a Parquet string
+// column), which are features as categorical.
+func newShape(names []string, f Fields, strings []bool) (shape, error) {
+	sh := shape{f: f.withDefaults()}
+	seen := map[string]bool{}
+	for i, name := range names {
+		if name == "" || seen[name] || !utf8.ValidString(name) {
+			return sh, fmt.Errorf("column %d is named %q, empty, repeated or not UTF-8", i+1, name)
+		}
+		seen[name] = true
+		sh.names = append(sh.names, name)
+		ro := roleFeature
+		switch {
+		case name == sh.f.Time:
+			ro = roleTime
+		case name == sh.f.Key:
+			ro = roleKey
+		case name == sh.f.Target:
+			ro = roleTarget
+		case slices.Contains(sh.f.Ignore, name):
+			ro = roleIgnore
+		case slices.Contains(sh.f.Categorical, name) || strings != nil && strings[i]:
+			ro = roleCategorical
+		case slices.Contains(sh.f.Numeric, name):
+			ro = roleNumeric
+		}
+		sh.role = append(sh.role, ro)
+	}
+	if !seen[sh.f.Target] {
+		return sh, fmt.Errorf("no %q column for the target (columns: %s); name it with --target-field", sh.f.Target, joinNames(sh.names))
+	}
+	return sh, nil
+}
+
+func joinNames(names []string) string {
+	if len(names) > 20 {
+		return fmt.Sprintf("%s and %d more", joinNames(names[:20]), len(names)-20)
+	}
+	out := ""
+	for i, n := range names {
+		if i > 0 {
+			out += ", "
+		}
+		out += n
+	}
+	return out
 }
 
 type role uint8
@@ -114,7 +168,7 @@ func newCSVRows(r io.Reader, f Fields) (*csvRows, error) {
 	if err := f.Validate(); err != nil {
 		return nil, err
 	}
-	c := &csvRows{r: csv.NewReader(r), f: f.withDefaults()}
+	c := &csvRows{r: csv.NewReader(r)}
 	c.r.ReuseRecord = true
 	head, err := c.r.Read()
 	if err != nil {
@@ -123,36 +177,12 @@ func newCSVRows(r io.Reader, f Fields) (*csvRows, error) {
 		}
 		return nil, fmt.Errorf("intake: CSV header: %w", err)
 	}
-	c.header, _ = c.r.FieldPos(0)
-	seen := map[string]bool{}
-	for i, name := range head {
-		if i == 0 {
-			name = strings.TrimPrefix(name, "\ufeff") // a byte order mark some writers put first
-		}
-		if name == "" || seen[name] || !utf8.ValidString(name) {
-			return nil, fmt.Errorf("intake: CSV header: column %d is named %q, empty, repeated or not UTF-8", i+1, name)
-		}
-		seen[name] = true
-		c.names = append(c.names, name)
-		ro := roleFeature
-		switch {
-		case name == c.f.Time:
-			ro = roleTime
-		case name == c.f.Key:
-			ro = roleKey
-		case name == c.f.Target:
-			ro = roleTarget
-		case slices.Contains(c.f.Ignore, name):
-			ro = roleIgnore
-		case slices.Contains(c.f.Categorical, name):
-			ro = roleCategorical
-		case slices.Contains(c.f.Numeric, name):
-			ro = roleNumeric
-		}
-		c.role = append(c.role, ro)
+	names := slices.Clone(head)
+	if len(names) > 0 {
+		names[0] = strings.TrimPrefix(names[0], "\ufeff") // a byte order mark some writers put first
 	}
-	if !seen[c.f.Target] {
-		return nil, fmt.Errorf("intake: CSV header: no %q column for the target (columns: %s); name it with --target-field", c.f.Target, strings.Join(c.names, ", "))
+	if c.shape, err = newShape(names, f, nil); err != nil {
+		return nil, fmt.Errorf("intake: CSV header: %w", err)
 	}
 	return c, nil
 }
@@ -180,8 +210,8 @@ func (c *csvRows) next() ([]byte, int64, error) {
 	return out, c.row, nil
 }
 
-// event writes rec as a canonical JSON event.
-func (c *csvRows) event(rec []string) ([]byte, error) {
+// event writes rec, a row of cells ("" for none), as a canonical JSON event.
+func (c *shape) event(rec []string) ([]byte, error) {
 	b := append(c.out[:0], '{')
 	first := true
 	sep := func() {

@@ -25,7 +25,8 @@ var ErrLineTooLong = errors.New("intake: line too long")
 //
 // Not safe for concurrent use.
 type History struct {
-	rows *csvRows // a CSV history's rows, as canonical events; nil for NDJSON
+	rows *csvRows     // a CSV history's rows, as canonical events; nil for NDJSON
+	pq   *parquetRows // a Parquet history's
 	f    *os.File
 	dec  io.Closer
 	r    *bufio.Reader
@@ -53,11 +54,14 @@ const (
 )
 
 // FormatOf returns the format a history's name says: csv for .csv (also
-// .csv.gz, .csv.zst), else ndjson.
+// .csv.gz, .csv.zst), parquet for .parquet, else ndjson.
 func FormatOf(path string) string {
-	p := strings.TrimSuffix(strings.TrimSuffix(path, ".gz"), ".zst")
-	if strings.HasSuffix(strings.ToLower(p), ".csv") {
+	p := strings.ToLower(strings.TrimSuffix(strings.TrimSuffix(path, ".gz"), ".zst"))
+	switch {
+	case strings.HasSuffix(p, ".csv"):
 		return FormatCSV
+	case strings.HasSuffix(p, ".parquet"):
+		return FormatParquet
 	}
 	return FormatNDJSON
 }
@@ -72,8 +76,20 @@ func OpenHistory(path string) (*History, error) {
 // FormatCSV); fields names a CSV history's time, key and target columns and
 // says how its time is written.
 func OpenHistoryAs(path, format string, fields Fields) (*History, error) {
-	if format != FormatNDJSON && format != FormatCSV {
-		return nil, fmt.Errorf("intake: history format %q: want ndjson or csv", format)
+	switch format {
+	case FormatNDJSON, FormatCSV:
+	case FormatParquet:
+		pq, err := openParquet(path, fields)
+		if err != nil {
+			return nil, err
+		}
+		h := &History{pq: pq, cnt: &countingReader{}}
+		if st, err := os.Stat(path); err == nil {
+			h.size = st.Size()
+		}
+		return h, nil
+	default:
+		return nil, fmt.Errorf("intake: history format %q: want ndjson, csv or parquet", format)
 	}
 	f, err := os.Open(path)
 	if err != nil {
@@ -143,6 +159,9 @@ func (h *History) Next() ([]byte, int64, error) {
 	if h.rows != nil {
 		return h.rows.next()
 	}
+	if h.pq != nil {
+		return h.pq.next()
+	}
 	h.buf = h.buf[:0]
 	tooLong := false
 	for {
@@ -182,7 +201,7 @@ func trimNewline(b []byte) []byte {
 
 // Unit names a position of the history in messages: "row" for CSV, else "line".
 func (h *History) Unit() string {
-	if h.rows != nil {
+	if h.rows != nil || h.pq != nil {
 		return "row"
 	}
 	return "line"
@@ -197,6 +216,9 @@ func (h *History) Size() int64 { return h.size }
 
 // Close closes the file.
 func (h *History) Close() error {
+	if h.pq != nil {
+		return h.pq.close()
+	}
 	if h.dec != nil {
 		h.dec.Close()
 	}

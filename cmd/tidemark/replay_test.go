@@ -307,13 +307,13 @@ func TestReplaySweep(t *testing.T) {
 }
 
 // TestReplayFormatsAgree: the demo scenario written as NDJSON, as CSV, as
-// gzip-compressed CSV, and as CSV with its times in epoch milliseconds
-// under another column name gives the same `replay --json` report, to the
-// byte; a CSV's bad rows are named by row number.
+// gzip-compressed CSV, as CSV with its times in epoch milliseconds under
+// another column name, and as Parquet gives the same `replay --json`
+// report, to the byte; bad rows are named by row number.
 func TestReplayFormatsAgree(t *testing.T) {
 	dir := t.TempDir()
-	nd, csvPath := filepath.Join(dir, "w.ndjson"), filepath.Join(dir, "w.csv")
-	for _, out := range []string{nd, csvPath} {
+	nd, csvPath, pqPath := filepath.Join(dir, "w.ndjson"), filepath.Join(dir, "w.csv"), filepath.Join(dir, "w.parquet")
+	for _, out := range []string{nd, csvPath, pqPath} {
 		if code := run([]string{"synth", "--out", out, "--days", "3"}, io.Discard, io.Discard); code != 0 {
 			t.Fatalf("synth %s: exit %d", out, code)
 		}
@@ -372,5 +372,10 @@ func TestReplayFormatsAgree(t *testing.T) {
 		if !strings.Contains(log, "row 436: bad row: wrong number of fields (line 437 of the file)") {
 			t.Errorf("%v: the bad row is not named by its row: %s", args, log)
 		}
+	}
+	if got, log := replayJSON("--history", pqPath); got != want {
+		t.Errorf("Parquet: the report differs from the NDJSON one:\n%.400s\nwant\n%.400s", got, want)
+	} else if !strings.Contains(log, "row 436: invalid event: target is missing") {
+		t.Errorf("Parquet: the broken row is not named by its row: %s", log)
 	}
 }

@@ -11,14 +11,14 @@ import (
 )
 
 func runSynth(args []string, stdout, stderr io.Writer) error {
-	fs := newFlagSet("synth", "synth --out FILE [--days N] [--seed S] [--rooms N] [--format ndjson|csv]", stderr)
+	fs := newFlagSet("synth", "synth --out FILE [--days N] [--seed S] [--rooms N] [--format ndjson|csv|parquet]", stderr)
 	out := fs.String("out", "", "write the history to `FILE` (- for standard output)")
 	days := fs.Int("days", 14, "days of readings, every five minutes per room")
 	seed := fs.Uint64("seed", 1, "random seed; the same seed gives the same bytes")
 	rooms := fs.Int("rooms", 3, "rooms (keys); past three they repeat the first three's profiles")
-	format := fs.String("format", "", "ndjson or csv (default: from the name, csv for FILE.csv, else ndjson)")
+	format := fs.String("format", "", "ndjson, csv or parquet (default: from the name: FILE.csv, FILE.parquet, else ndjson)")
 	fs.Usage = func() {
-		fmt.Fprintln(stderr, "Usage: tidemark synth --out FILE [--days N] [--seed S] [--rooms N] [--format ndjson|csv]")
+		fmt.Fprintln(stderr, "Usage: tidemark synth --out FILE [--days N] [--seed S] [--rooms N] [--format ndjson|csv|parquet]")
 		fmt.Fprintln(stderr, "\nWrites the demo scenario, invented data of a fictional cold-storage warehouse:")
 		fmt.Fprint(stderr, synthHelp+"\n")
 		fmt.Fprintln(stderr, "Flags:")
@@ -53,8 +53,10 @@ func runSynth(args []string, stdout, stderr io.Writer) error {
 	case intake.FormatNDJSON:
 	case intake.FormatCSV:
 		write = synth.WriteCSV
+	case intake.FormatParquet:
+		write = synth.WriteParquet
 	default:
-		return usagef("--format %q: want ndjson or csv", *format)
+		return usagef("--format %q: want ndjson, csv or parquet", *format)
 	}
 	bw := bufio.NewWriter(w)
 	n, err := write(bw, synth.Config{Days: *days, Seed: *seed, Rooms: *rooms})
