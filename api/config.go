@@ -121,6 +121,11 @@ type Config struct {
 	// group (a predict for a key it owns, its part of a group-wide view).
 	// Default: DefaultForwardTimeout.
 	ForwardTimeout time.Duration
+	// Fields maps the fields of the events of every source — history files,
+	// the journal, Kafka messages — onto an event's (intake.Fields): other
+	// names, nested paths, objects of features, time formats. Default: the
+	// events are in tidemark's own shape.
+	Fields intake.Fields
 	// NoAnswerLog turns served scoring off: predict answers carry no
 	// answer_id and nothing is written per answer. Default: false (every
 	// answer is registered and logged before it is returned).
@@ -149,6 +154,9 @@ type Config struct {
 // Validate reports every problem with c. It changes nothing.
 func (c *Config) Validate() error {
 	var errs []error
+	if err := c.Fields.Validate(); err != nil {
+		errs = append(errs, fmt.Errorf("field mapping: %w", err))
+	}
 	if c.DataDir == "" {
 		errs = append(errs, errors.New("data directory: required (--data DIR)"))
 	}

@@ -20,6 +20,7 @@ import (
 	"github.com/labstack/echo/v4"
 	"github.com/labstack/echo/v4/middleware"
 
+	"tidemark/api/intake"
 	"tidemark/checkpoint"
 	"tidemark/learner"
 )
@@ -433,8 +434,21 @@ func (s *Service) handleEvents(c echo.Context) error {
 	held := s.holdState()
 	defer held.state.eng.Release()
 	v := held.state.eng.NewValidator()
+	var mapper *intake.Mapper
+	if s.cfg.Fields.Mapped() {
+		mapper, _ = intake.NewMapper(s.cfg.Fields) // validated with the configuration
+	}
 	for i, l := range lines {
-		err := learner.DecodeEvent(l.data, &ev)
+		data := l.data
+		var err error
+		if mapper != nil {
+			if data, err = mapper.Canonical(l.data); err != nil {
+				err = fmt.Errorf("%w: %v", learner.ErrInvalidEvent, err)
+			}
+		}
+		if err == nil {
+			err = learner.DecodeEvent(data, &ev)
+		}
 		if err == nil {
 			err = v.Check(&ev)
 		}

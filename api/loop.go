@@ -94,14 +94,27 @@ type cmdResult struct {
 	err  error
 }
 
-func decodeItem(it *item) {
+func decodeItem(it *item) { decodeMapped(it, nil) }
+
+// decodeMapped decodes it, its payload first rewritten by m when m is set
+// (a source whose events are in another shape: Config.Fields).
+func decodeMapped(it *item, m *intake.Mapper) {
 	if it.data == nil {
 		it.decErr = fmt.Errorf("%w: the source could not read the event at %v (a history line longer than %d bytes)",
 			learner.ErrInvalidEvent, it.pos, intake.MaxLineBytes)
 		return
 	}
+	data := it.data
+	if m != nil {
+		out, err := m.Canonical(data)
+		if err != nil {
+			it.decErr = fmt.Errorf("%w: %v", learner.ErrInvalidEvent, err)
+			return
+		}
+		data = out
+	}
 	ev := eventPool.Get().(*learner.Event)
-	if err := learner.DecodeEvent(it.data, ev); err != nil {
+	if err := learner.DecodeEvent(data, ev); err != nil {
 		eventPool.Put(ev)
 		it.decErr = err
 		return
@@ -199,11 +212,12 @@ func (l *loop) startSource() {
 	l.sourceStop, l.sourceDone = cancel, done
 	l.sourceMu.Unlock()
 	items := l.items
+	mapper := l.mapper()
 	go func() {
 		defer close(done)
 		err := l.src.Run(ctx, l.eng.Positions(), func(pos learner.Position, value []byte) bool {
 			it := item{gen: gen, pos: pos, data: value}
-			decodeItem(&it)
+			decodeMapped(&it, mapper)
 			select {
 			case items <- it:
 				return true
@@ -225,6 +239,20 @@ func (l *loop) startSource() {
 			l.setFault(&fault{kind: faultSource, message: fmt.Sprintf("intake from %v stopped: %v; restart the service once the cause is fixed", l.src, err)})
 		}
 	}()
+}
+
+// mapper returns a mapper of the configured fields for a source goroutine,
+// or nil when events need none: without a mapping, and for a history file,
+// which maps its own lines (intake.History).
+func (l *loop) mapper() *intake.Mapper {
+	if !l.cfg.Fields.Mapped() {
+		return nil
+	}
+	if _, ok := l.src.(*intake.HistorySource); ok {
+		return nil
+	}
+	m, _ := intake.NewMapper(l.cfg.Fields) // validated with the configuration
+	return m
 }
 
 func (l *loop) stopSource() {

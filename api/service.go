@@ -140,7 +140,7 @@ func openSource(cfg Config) (intake.Source, error) {
 		}
 		return k, nil
 	case cfg.History != "":
-		return intake.OpenHistorySource(cfg.History)
+		return intake.OpenHistorySource(cfg.History, cfg.Fields)
 	}
 	return intake.OpenJournal(intake.JournalConfig{Dir: filepath.Join(cfg.DataDir, "journal"),
 		SegmentBytes: cfg.JournalSegmentBytes, Log: logWriter{cfg.Log}, File: cfg.JournalFile})

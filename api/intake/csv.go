@@ -29,12 +29,16 @@ var ErrBadRow = errors.New("bad row")
 // every one a feature, but those ignored; a field named in Categorical is a
 // string however it looks, one in Numeric must be a number.
 type Fields struct {
-	Time, Key, Target string // default "time", "key", "target"
+	Time, Key, Target string // default "time", "key", "target"; in JSON, dotted paths into nested objects
 	TimeFormat        string // TimeRFC3339 (default), TimeUnixS, TimeUnixMS, TimeUnixUS, or a Go layout
 	Zone              *time.Location
 	Ignore            []string
 	Categorical       []string
 	Numeric           []string
+	// JSON sources only (mapping.go): objects whose members are features,
+	// and features renamed (source name → feature name).
+	FeaturesFrom []string
+	Rename       map[string]string
 }
 
 // Time formats.
@@ -83,6 +87,7 @@ func (f Fields) Validate() error {
 			errs = append(errs, fmt.Errorf("field %q is declared both categorical and numeric", c))
 		}
 	}
+	errs = append(errs, f.validateMapping()...)
 	return errors.Join(errs...)
 }
 

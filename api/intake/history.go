@@ -2,6 +2,7 @@ package intake
 
 import (
 	"bufio"
+	"bytes"
 	"compress/gzip"
 	"errors"
 	"fmt"
@@ -27,6 +28,7 @@ var ErrLineTooLong = errors.New("intake: line too long")
 type History struct {
 	rows *csvRows     // a CSV history's rows, as canonical events; nil for NDJSON
 	pq   *parquetRows // a Parquet history's
+	jm   *Mapper      // an NDJSON history's mapping, when it has one
 	f    *os.File
 	dec  io.Closer
 	r    *bufio.Reader
@@ -126,6 +128,11 @@ func OpenHistoryAs(path, format string, fields Fields) (*History, error) {
 			return nil, fmt.Errorf("%s: %w", path, err)
 		}
 		h.rows = rows
+	} else if fields.Mapped() {
+		if h.jm, err = NewMapper(fields); err != nil {
+			h.Close()
+			return nil, err
+		}
 	}
 	return h, nil
 }
@@ -185,7 +192,15 @@ func (h *History) Next() ([]byte, int64, error) {
 		if tooLong {
 			return nil, h.line, fmt.Errorf("%w: line %d is longer than %d bytes", ErrLineTooLong, h.line, MaxLineBytes)
 		}
-		return trimNewline(h.buf), h.line, nil
+		line := trimNewline(h.buf)
+		if h.jm != nil && len(bytes.TrimSpace(line)) > 0 {
+			out, err := h.jm.Canonical(line)
+			if err != nil {
+				return nil, h.line, fmt.Errorf("%w: %v", ErrBadRow, err)
+			}
+			return out, h.line, nil
+		}
+		return line, h.line, nil
 	}
 }
 

@@ -146,14 +146,15 @@ func (k *Kafka) Health() error {
 // (0, line number). Its events are all available from the start; there is
 // nothing to commit or trim.
 type HistorySource struct {
-	path  string
-	lines int64
+	path   string
+	fields Fields
+	lines  int64
 }
 
-// OpenHistorySource checks that path reads as a history file and counts
-// its lines.
-func OpenHistorySource(path string) (*HistorySource, error) {
-	h, err := OpenHistory(path)
+// OpenHistorySource checks that path reads as a history file (in the format
+// its name says, its fields mapped by fields) and counts its lines.
+func OpenHistorySource(path string, fields Fields) (*HistorySource, error) {
+	h, err := OpenHistoryAs(path, FormatOf(path), fields)
 	if err != nil {
 		return nil, err
 	}
@@ -161,7 +162,7 @@ func OpenHistorySource(path string) (*HistorySource, error) {
 	var n int64
 	for {
 		_, line, err := h.Next()
-		if errors.Is(err, ErrLineTooLong) {
+		if errors.Is(err, ErrLineTooLong) || errors.Is(err, ErrBadRow) {
 			n = line
 			continue
 		}
@@ -173,11 +174,15 @@ func OpenHistorySource(path string) (*HistorySource, error) {
 		}
 		n = line
 	}
-	return &HistorySource{path: path, lines: n}, nil
+	return &HistorySource{path: path, fields: fields, lines: n}, nil
 }
 
 // Run implements Source. A line past MaxLineBytes is delivered as a nil
-// payload (the service rejects it by position, saying why).
+// payload (the service rejects it by position, saying why); a row that is
+// not an event (ErrBadRow) as the text of its error, which the service
+// refuses, keeping it in the dead letters. Rows of CSV and Parquet
+// histories, and lines of a mapped NDJSON history, are delivered as
+// canonical events.
 func (h *HistorySource) Run(ctx context.Context, covered []learner.Position, deliver func(learner.Position, []byte) bool) error {
 	skip := int64(0)
 	for _, p := range covered {
@@ -185,7 +190,7 @@ func (h *HistorySource) Run(ctx context.Context, covered []learner.Position, del
 			skip = p.Offset
 		}
 	}
-	f, err := OpenHistory(h.path)
+	f, err := OpenHistoryAs(h.path, FormatOf(h.path), h.fields)
 	if err != nil {
 		return err
 	}
@@ -198,6 +203,9 @@ func (h *HistorySource) Run(ctx context.Context, covered []learner.Position, del
 		tooLong := errors.Is(err, ErrLineTooLong)
 		if tooLong {
 			err = nil
+		}
+		if errors.Is(err, ErrBadRow) {
+			b, err = []byte(err.Error()), nil
 		}
 		if err != nil {
 			if errors.Is(err, io.EOF) {

@@ -11,7 +11,6 @@ import (
 	"os/signal"
 	"path/filepath"
 	"strings"
-	"time"
 
 	"tidemark/api/intake"
 	"tidemark/api/replay"
@@ -105,13 +104,8 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 	ef.register(fs)
 	history := fs.String("history", "", "history `FILE`: NDJSON events, CSV rows (FILE.csv; plain, .gz or .zst alike) or Parquet rows (FILE.parquet)")
 	format := fs.String("format", "", "the history's format: ndjson, csv or parquet (default: from its name)")
-	timeField := fs.String("time-field", "time", "CSV, Parquet: the column of the event time")
-	keyField := fs.String("key-field", "key", "CSV, Parquet: the column of the key")
-	targetField := fs.String("target-field", "target", "CSV, Parquet: the column of the target")
-	timeFormat := fs.String("time-format", intake.TimeRFC3339, "CSV, Parquet: how times are written: rfc3339, unix_s, unix_ms, unix_us, or a layout such as '2006-01-02 15:04:05'")
-	timeZone := fs.String("time-zone", "UTC", "CSV, Parquet: the zone of times written without one (an IANA name such as Europe/Oslo)")
-	var ignore multi
-	fs.Var(&ignore, "ignore", "CSV, Parquet: a column that is not a feature (repeatable)")
+	var ff fieldFlags
+	ff.register(fs)
 	asJSON := fs.Bool("json", false, "print the report as one JSON object")
 	strict := fs.Bool("strict", false, "stop at the first rejected line (exit status 2)")
 	perKey := fs.Bool("per-key", false, "include each key's metrics (JSON) or a table per key")
@@ -185,13 +179,10 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 	if *format == "" {
 		*format = intake.FormatOf(*history)
 	}
-	zone, err := time.LoadLocation(*timeZone)
+	set := map[string]bool{}
+	fs.Visit(func(f *flag.Flag) { set[f.Name] = true })
+	fields, err := ff.fields(set, fieldsFile{}, splitList(ef.categorical), splitList(ef.numeric))
 	if err != nil {
-		return usagef("--time-zone %q: %v", *timeZone, err)
-	}
-	fields := intake.Fields{Time: *timeField, Key: *keyField, Target: *targetField, TimeFormat: *timeFormat, Zone: zone, Ignore: ignore,
-		Categorical: splitList(ef.categorical), Numeric: splitList(ef.numeric)}
-	if err := fields.Validate(); err != nil {
 		return usageError{err}
 	}
 	h, err := intake.OpenHistoryAs(*history, *format, fields)

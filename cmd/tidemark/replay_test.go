@@ -308,8 +308,9 @@ func TestReplaySweep(t *testing.T) {
 
 // TestReplayFormatsAgree: the demo scenario written as NDJSON, as CSV, as
 // gzip-compressed CSV, as CSV with its times in epoch milliseconds under
-// another column name, and as Parquet gives the same `replay --json`
-// report, to the byte; bad rows are named by row number.
+// another column name, as Parquet, and as NDJSON renamed and nested (read
+// through a field mapping, epoch-millisecond times) gives the same `replay
+// --json` report, to the byte; bad rows are named by row number.
 func TestReplayFormatsAgree(t *testing.T) {
 	dir := t.TempDir()
 	nd, csvPath, pqPath := filepath.Join(dir, "w.ndjson"), filepath.Join(dir, "w.csv"), filepath.Join(dir, "w.parquet")
@@ -373,9 +374,50 @@ func TestReplayFormatsAgree(t *testing.T) {
 			t.Errorf("%v: the bad row is not named by its row: %s", args, log)
 		}
 	}
+	// The NDJSON renamed and nested: {"ts": epoch ms, "device_id", "kwh",
+	// "readings": {features}}, read through a mapping.
+	lines := bytes.Split(bytes.TrimSpace(mustRead(t, nd)), []byte("\n"))
+	var mapped bytes.Buffer
+	for _, l := range lines {
+		var ev struct {
+			Time     string                     `json:"time"`
+			Key      string                     `json:"key"`
+			Features map[string]json.RawMessage `json:"features"`
+			Target   json.RawMessage            `json:"target"`
+		}
+		if json.Unmarshal(l, &ev) != nil || ev.Time == "" {
+			mapped.Write(l) // the scenario's broken lines stay broken
+			mapped.WriteByte('\n')
+			continue
+		}
+		tm, _ := time.Parse(time.RFC3339, ev.Time)
+		feats, _ := json.Marshal(ev.Features)
+		fmt.Fprintf(&mapped, `{"device_id":%q,"readings":%s,"ts":%d`, ev.Key, feats, tm.UnixMilli())
+		if ev.Target != nil {
+			fmt.Fprintf(&mapped, `,"kwh":%s`, ev.Target)
+		}
+		mapped.WriteString("}\n")
+	}
+	mappedPath := filepath.Join(dir, "w-mapped.ndjson")
+	if err := os.WriteFile(mappedPath, mapped.Bytes(), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	if got, log := replayJSON("--history", mappedPath, "--time-field", "ts", "--time-format", "unix_ms", "--key-field", "device_id",
+		"--target-field", "kwh", "--features-from", "readings"); got != want {
+		t.Errorf("NDJSON through a mapping: the report differs from the NDJSON one:\n%.400s\nwant\n%.400s\n%s", got, want, log)
+	}
 	if got, log := replayJSON("--history", pqPath); got != want {
 		t.Errorf("Parquet: the report differs from the NDJSON one:\n%.400s\nwant\n%.400s", got, want)
 	} else if !strings.Contains(log, "row 436: invalid event: target is missing") {
 		t.Errorf("Parquet: the broken row is not named by its row: %s", log)
 	}
+}
+
+func mustRead(t *testing.T, path string) []byte {
+	t.Helper()
+	b, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return b
 }

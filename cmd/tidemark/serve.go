@@ -23,29 +23,30 @@ import (
 // fileConfig is the YAML configuration file of `tidemark serve --config`.
 // Every key is optional; flags given on the command line override it.
 type fileConfig struct {
-	Listen             string   `yaml:"listen"`
-	Data               string   `yaml:"data"`
-	Token              string   `yaml:"token"`
-	TokenFile          string   `yaml:"token_file"`
-	TokenForReads      bool     `yaml:"token_for_reads"`
-	AllowedHosts       []string `yaml:"allowed_hosts"`
-	AllowedOrigins     []string `yaml:"allowed_origins"`
-	InsecureOpenNet    bool     `yaml:"insecure_open_network"`
-	ReadyMaxLag        int64    `yaml:"ready_max_lag"`
-	Learners           []string `yaml:"learners"`
-	DefaultLearner     string   `yaml:"default_learner"`
-	Units              string   `yaml:"units"`
-	Interval           string   `yaml:"interval"`
-	Drift              string   `yaml:"drift"`
-	Leader             bool     `yaml:"leader"`
-	CheckpointEvery    int64    `yaml:"checkpoint_every"`
-	CheckpointInterval string   `yaml:"checkpoint_interval"`
-	Retain             int      `yaml:"retain"`
-	MinScored          int64    `yaml:"min_scored"`
-	BodyLimit          int64    `yaml:"body_limit"`
-	MaxRows            int      `yaml:"max_rows"`
-	MaxKeys            int      `yaml:"max_keys"`
-	MemoryBudget       string   `yaml:"memory_budget"`
+	Listen             string     `yaml:"listen"`
+	Data               string     `yaml:"data"`
+	Token              string     `yaml:"token"`
+	TokenFile          string     `yaml:"token_file"`
+	TokenForReads      bool       `yaml:"token_for_reads"`
+	AllowedHosts       []string   `yaml:"allowed_hosts"`
+	AllowedOrigins     []string   `yaml:"allowed_origins"`
+	InsecureOpenNet    bool       `yaml:"insecure_open_network"`
+	ReadyMaxLag        int64      `yaml:"ready_max_lag"`
+	Learners           []string   `yaml:"learners"`
+	DefaultLearner     string     `yaml:"default_learner"`
+	Units              string     `yaml:"units"`
+	Interval           string     `yaml:"interval"`
+	Drift              string     `yaml:"drift"`
+	Leader             bool       `yaml:"leader"`
+	CheckpointEvery    int64      `yaml:"checkpoint_every"`
+	CheckpointInterval string     `yaml:"checkpoint_interval"`
+	Retain             int        `yaml:"retain"`
+	MinScored          int64      `yaml:"min_scored"`
+	BodyLimit          int64      `yaml:"body_limit"`
+	MaxRows            int        `yaml:"max_rows"`
+	MaxKeys            int        `yaml:"max_keys"`
+	MemoryBudget       string     `yaml:"memory_budget"`
+	Fields             fieldsFile `yaml:"fields"`
 	Answers            struct {
 		Log     *bool  `yaml:"log"`
 		Pending int    `yaml:"pending"`
@@ -138,6 +139,8 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 	answerTTL := fs.Duration("answer-ttl", learner.DefaultServedTTL, "how long an answer waits for its label, in event time; then it is dropped")
 	var ef engineFlags
 	ef.register(fs)
+	var ff fieldFlags
+	ff.register(fs)
 	pos, err := parse(fs, args)
 	if err != nil {
 		return api.Config{}, err
@@ -278,6 +281,9 @@ func serveConfig(args []string, stderr io.Writer) (api.Config, error) {
 		problems = append(problems, err)
 	}
 	cfg.Engine = eng
+	if cfg.Fields, err = ff.fields(set, fc.Fields, splitList(ef.categorical), splitList(ef.numeric)); err != nil {
+		problems = append(problems, err)
+	}
 
 	cfg.History = pick("history", *history, fc.History)
 	cfg.CheckpointDir = pick("checkpoint-dir", *ckDir, fc.CheckpointDir)
