@@ -68,17 +68,22 @@ func main() {
 	asJSON := flag.Bool("json", false, "print a JSON array of results")
 	flag.BoolVar(&quick, "quick", false, "shorter runs (under a minute)")
 	child := flag.String("replay-child", "", "internal: replay this history and print events/s (the keys case's child process)")
-	only := flag.String("only", "", "run only the cases (cases: the table of ratios) or the named extra: growth, keys, flood, restore, group, intervals, drift, answers, kdtree or checkpoint")
+	only := flag.String("only", "", "run only the cases (cases: the table of ratios) or the named extra: growth, formats, keys, flood, restore, group, intervals, drift, answers, kdtree or checkpoint")
 	writeKeys := flag.String("write-keys-history", "", "write the keys case's history (2 M events, 10⁶ keys) to this file and exit")
 	ckDir := flag.String("checkpoint-dir", "", "with -replay-child: then time a checkpoint of the state written there and loaded back")
 	loadChildDir := flag.String("load-child", "", "internal: load the newest checkpoint in this directory and print the seconds it took (the keys case's child process)")
 	cpuprofile := flag.String("cpuprofile", "", "with -replay-child: write a CPU profile here")
+	formatChildPath := flag.String("format-child", "", "internal: replay this history and print rows/s (the formats case's child process)")
 	flag.Parse()
 	if *writeKeys != "" {
 		if err := writeKeysHistory(*writeKeys, 2_000_000, 1_000_000); err != nil {
 			fmt.Fprintln(os.Stderr, err)
 			os.Exit(1)
 		}
+		return
+	}
+	if *formatChildPath != "" {
+		formatChild(*formatChildPath)
 		return
 	}
 	if *child != "" || *loadChildDir != "" {
@@ -124,13 +129,16 @@ func main() {
 	case "growth":
 		fmt.Print(growth())
 		return
+	case "formats":
+		fmt.Print(formatsCase())
+		return
 	case "checkpoint":
 		r := checkpointCase()
 		fmt.Printf("checkpoint-write %.0f ms, floor %.0f ms: %.2f× (p10–p90 %.2f–%.2f); %s\n", r.Ours/1e6, r.Floor/1e6, r.Ours/r.Floor, r.Lo, r.Hi, r.Note)
 		return
 	case "", "cases":
 	default:
-		fmt.Fprintf(os.Stderr, "bench: -only %q: want cases, growth, keys, flood, restore, group, intervals, drift, answers, kdtree or checkpoint\n", *only)
+		fmt.Fprintf(os.Stderr, "bench: -only %q: want cases, growth, formats, keys, flood, restore, group, intervals, drift, answers, kdtree or checkpoint\n", *only)
 		os.Exit(2)
 	}
 	bt := "1s"
