@@ -632,6 +632,42 @@ func TestServeFromHistoryFile(t *testing.T) {
 	r.waitStatus(t, "/readyz", 200)
 }
 
+// TestServeFromCSVAndParquetHistories: the service learns from the demo
+// scenario written as CSV and as Parquet exactly as replay does from the
+// same scenario in NDJSON, its broken rows refused at their positions and
+// kept in the dead letters.
+func TestServeFromCSVAndParquetHistories(t *testing.T) {
+	dir := t.TempDir()
+	var nd bytes.Buffer
+	synth.Write(&nd, synth.Config{Days: 2, Seed: 9})
+	lines := bytes.Split(bytes.TrimSuffix(nd.Bytes(), []byte("\n")), []byte("\n"))
+	want := replayReport(t, engineConfig(t, serviceSpecs...), lines)
+	for _, c := range []struct {
+		name  string
+		write func(io.Writer, synth.Config) (int, error)
+	}{{"h.csv", synth.WriteCSV}, {"h.parquet", synth.WriteParquet}} {
+		var b bytes.Buffer
+		if _, err := c.write(&b, synth.Config{Days: 2, Seed: 9}); err != nil {
+			t.Fatal(err)
+		}
+		path := filepath.Join(dir, c.name)
+		os.WriteFile(path, b.Bytes(), 0o600)
+		cfg := testConfig(t, t.TempDir())
+		cfg.History = path
+		r := start(t, cfg)
+		got := r.waitCovered(t, int64(len(lines)))
+		sameJSON(t, "service from "+c.name+" and replay of the NDJSON", got, want)
+		if got.Rejected == 0 {
+			t.Errorf("%s: the scenario's broken rows were not refused", c.name)
+		}
+		r.stop()
+		dead, _ := os.ReadFile(filepath.Join(cfg.DataDir, "deadletters.ndjson"))
+		if bytes.Count(dead, []byte("\n")) != int(got.Rejected) {
+			t.Errorf("%s: %d dead letters for %d refused rows", c.name, bytes.Count(dead, []byte("\n")), got.Rejected)
+		}
+	}
+}
+
 // TestServeFromHistoryRejectsLongLineByPosition: a history line past the
 // line limit is rejected at its line, with a reason that says so, and the
 // lines after it are learned.

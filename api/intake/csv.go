@@ -102,7 +102,8 @@ type csvRows struct {
 // canonical event a row of cells makes (event).
 type shape struct {
 	f     Fields
-	names []string
+	names []string // the columns'
+	feat  []string // the features' names: the columns', renamed (Fields.Rename)
 	role  []role
 	out   []byte
 }
@@ -119,6 +120,11 @@ func newShape(names []string, f Fields, strings []bool) (shape, error) {
 		}
 		seen[name] = true
 		sh.names = append(sh.names, name)
+		feat := name
+		if to, ok := sh.f.Rename[name]; ok {
+			feat = to
+		}
+		sh.feat = append(sh.feat, feat)
 		ro := roleFeature
 		switch {
 		case name == sh.f.Time:
@@ -129,12 +135,21 @@ func newShape(names []string, f Fields, strings []bool) (shape, error) {
 			ro = roleTarget
 		case slices.Contains(sh.f.Ignore, name):
 			ro = roleIgnore
-		case slices.Contains(sh.f.Categorical, name) || strings != nil && strings[i]:
+		case slices.Contains(sh.f.Categorical, feat) || strings != nil && strings[i]:
 			ro = roleCategorical
-		case slices.Contains(sh.f.Numeric, name):
+		case slices.Contains(sh.f.Numeric, feat):
 			ro = roleNumeric
 		}
 		sh.role = append(sh.role, ro)
+	}
+	renamed := map[string]bool{}
+	for i, ro := range sh.role {
+		if ro == roleFeature || ro == roleCategorical || ro == roleNumeric {
+			if renamed[sh.feat[i]] {
+				return sh, fmt.Errorf("two columns become the feature %q", sh.feat[i])
+			}
+			renamed[sh.feat[i]] = true
+		}
 	}
 	if !seen[sh.f.Target] {
 		return sh, fmt.Errorf("no %q column for the target (columns: %s); name it with --target-field", sh.f.Target, joinNames(sh.names))
@@ -261,7 +276,7 @@ func (c *shape) event(rec []string) ([]byte, error) {
 			b = append(b, ',')
 		}
 		n++
-		b = appendJSONString(b, c.names[i])
+		b = appendJSONString(b, c.feat[i])
 		b = append(b, ':')
 		switch {
 		case ro == roleCategorical:
@@ -269,7 +284,7 @@ func (c *shape) event(rec []string) ([]byte, error) {
 		case isJSONNumber(v):
 			b = append(b, v...)
 		case ro == roleNumeric:
-			return nil, fmt.Errorf("%s: %q is not a number", c.names[i], v)
+			return nil, fmt.Errorf("%s: %q is not a number", c.feat[i], v)
 		default:
 			b = appendJSONString(b, v)
 		}

@@ -170,3 +170,22 @@ func FuzzCSVHistory(f *testing.F) {
 		}
 	})
 }
+
+// TestCSVRenameAndDeclare: a column renamed becomes the feature of its new
+// name, and declarations name features after renaming.
+func TestCSVRenameAndDeclare(t *testing.T) {
+	h, err := NewCSVHistoryReader(strings.NewReader("temp,zone,target\n21.5,12,1\n"), Fields{Rename: map[string]string{"temp": "outdoor_c"}, Categorical: []string{"zone"}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	evs, bad := readRows(t, h)
+	want := learner.Event{Target: 1, Features: []learner.Feature{{Name: "outdoor_c", Num: 21.5}, {Name: "zone", Str: "12", IsStr: true}}}
+	g, _ := json.Marshal(evs[1])
+	w, _ := json.Marshal(want)
+	if string(g) != string(w) {
+		t.Errorf("got %s (%v), want %s", g, bad[1], w)
+	}
+	if _, err := NewCSVHistoryReader(strings.NewReader("a,b,target\n"), Fields{Rename: map[string]string{"a": "b"}}); err == nil {
+		t.Error("two columns that become one feature were taken")
+	}
+}
