@@ -24,7 +24,7 @@ func (f *fieldFlags) register(fs *flag.FlagSet) {
 	f.timeZone = fs.String("time-zone", "UTC", "the zone of times written without one (an IANA name such as Europe/Oslo)")
 	fs.Var(&f.ignore, "ignore", "a column (CSV, Parquet) or field (JSON) that is not a feature (repeatable)")
 	fs.Var(&f.featuresFrom, "features-from", "JSON: an object (a dotted path) whose members are features (repeatable; default: \"features\")")
-	fs.Var(&f.rename, "rename", "JSON: `SOURCE=FEATURE` renames a field (repeatable)")
+	fs.Var(&f.rename, "rename", "`SOURCE=FEATURE` renames a column or field (repeatable)")
 }
 
 // fieldsFile is the configuration file's fields: section.
