@@ -374,39 +374,9 @@ func (j *Journal) Append(payloads [][]byte) (first, last int64, err error) {
 	if err := j.usable(); err != nil {
 		return 0, 0, err
 	}
-	if j.size >= j.segmentBytes {
-		if err := j.f.Sync(); err != nil {
-			return 0, 0, j.fail(fmt.Errorf("intake: journal: %w", err))
-		}
-		j.f.Close()
-		if err := j.createSegment(j.next); err != nil {
-			return 0, 0, j.fail(err)
-		}
+	if first, last, err = j.writeLocked(payloads); err != nil {
+		return 0, 0, err
 	}
-	first = j.next
-	j.buf = j.buf[:0]
-	for i, p := range payloads {
-		if len(p) > MaxRecordBytes {
-			return 0, 0, fmt.Errorf("intake: journal: record of %d bytes, more than %d", len(p), MaxRecordBytes)
-		}
-		off := first + int64(i)
-		j.buf = binary.LittleEndian.AppendUint32(j.buf, uint32(len(p)))
-		j.buf = binary.LittleEndian.AppendUint32(j.buf, recordCRC(off, p))
-		j.buf = binary.LittleEndian.AppendUint64(j.buf, uint64(off))
-		j.buf = append(j.buf, p...)
-	}
-	if _, werr := j.f.Write(j.buf); werr != nil {
-		if terr := j.f.Truncate(j.size); terr != nil {
-			return 0, 0, j.fail(fmt.Errorf("intake: journal: write failed (%v) and could not be undone: %w", werr, terr))
-		}
-		if _, serr := j.f.Seek(j.size, io.SeekStart); serr != nil {
-			return 0, 0, j.fail(fmt.Errorf("intake: journal: %w", serr))
-		}
-		return 0, 0, fmt.Errorf("intake: journal: write: %w", werr)
-	}
-	j.size += int64(len(j.buf))
-	j.next += int64(len(payloads))
-	last = j.next - 1
 	if err := j.syncTo(last); err != nil {
 		return 0, 0, err
 	}
@@ -461,6 +431,13 @@ func (j *Journal) Write(payloads [][]byte) (first, last int64, err error) {
 	if err := j.usable(); err != nil {
 		return 0, 0, err
 	}
+	return j.writeLocked(payloads)
+}
+
+// writeLocked writes payloads as records after the last, rolling over to a
+// new segment first when the open one is full (after any sync in flight of
+// the old file). j.mu is held.
+func (j *Journal) writeLocked(payloads [][]byte) (first, last int64, err error) {
 	if j.size >= j.segmentBytes {
 		for j.syncing { // a rollover must not race a sync of the old file
 			j.cond.Wait()
