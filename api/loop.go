@@ -241,8 +241,8 @@ func (l *loop) startSource() {
 	}()
 }
 
-// mapper returns a mapper of the configured fields for a source goroutine,
-// or nil when events need none: without a mapping, and for a history file,
+// mapper returns a mapper of the configured fields for the source's
+// goroutines, or nil when events need none: without a mapping, and for a history file,
 // which maps its own lines (intake.History).
 func (l *loop) mapper() *intake.Mapper {
 	if !l.cfg.Fields.Mapped() {

@@ -57,11 +57,11 @@ func (f Fields) validateMapping() []error {
 	return errs
 }
 
-// Mapper rewrites JSON events by a mapping (Fields). Not safe for concurrent
-// use: one per reading goroutine.
+// Mapper rewrites JSON events by a mapping (Fields). It is safe for
+// concurrent use (a Kafka source reads its partitions on goroutines of
+// their own): it keeps nothing between calls.
 type Mapper struct {
-	f   Fields
-	out []byte
+	f Fields
 }
 
 // NewMapper returns a mapper for f, or the problems of f, every one.
@@ -72,8 +72,8 @@ func NewMapper(f Fields) (*Mapper, error) {
 	return &Mapper{f: f.withDefaults()}, nil
 }
 
-// Canonical rewrites the JSON event src as the canonical event. The result
-// is valid until the next call. An event the mapping cannot read (not a JSON
+// Canonical rewrites the JSON event src as the canonical event, in a new
+// slice. An event the mapping cannot read (not a JSON
 // object, a time that does not parse, a field of the wrong kind) is an error
 // that says why.
 func (m *Mapper) Canonical(src []byte) ([]byte, error) {
@@ -87,7 +87,8 @@ func (m *Mapper) Canonical(src []byte) ([]byte, error) {
 		return nil, errors.New("data after the JSON object")
 	}
 	f := &m.f
-	b := append(m.out[:0], '{')
+	b := make([]byte, 1, len(src)+32)
+	b[0] = '{'
 	if v, ok := lookup(obj, f.Time); ok && v != nil {
 		text, err := timeText(v)
 		if err != nil {
@@ -212,7 +213,6 @@ func (m *Mapper) Canonical(src []byte) ([]byte, error) {
 		}
 	}
 	b = append(b, '}')
-	m.out = b
 	return b, nil
 }
 
