@@ -72,7 +72,11 @@ func runSynth(args []string, stdout, stderr io.Writer) error {
 		return err
 	}
 	if *out != "-" {
-		fmt.Fprintf(stderr, "wrote %d lines to %s\n", n, *out)
+		unit := "lines"
+		if *format != intake.FormatNDJSON {
+			unit = "rows"
+		}
+		fmt.Fprintf(stderr, "wrote %d %s to %s\n", n, unit, *out)
 	}
 	return nil
 }
