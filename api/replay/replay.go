@@ -208,6 +208,15 @@ func (r *replayer) read(ctx context.Context, h *intake.History, out chan<- []lin
 					events = append(events, i)
 				}
 			}
+			if len(out) > 0 {
+				// The engine has batches waiting: it is the slower side
+				// (many keys, costly learners), so the reader decodes the
+				// whole batch before handing it over.
+				for _, i := range events {
+					claim(&sent[i], &r.keys)
+				}
+				events = events[:0]
+			}
 		}
 		select {
 		case out <- batch:
