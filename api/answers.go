@@ -157,10 +157,9 @@ func (l *loop) serveAnswers(as []learner.Answer) ([]written, error) {
 		b, _ := json.Marshal(rec)
 		_, seq, err := log.j.Write([][]byte{b})
 		if err != nil {
-			// Answers of earlier rows are in their logs but not
-			// registered: a restart would register them. Close the logs
-			// so that they are not: a log that failed is not read again
-			// past what the state holds (see replayAnswers).
+			// The rows before this one are registered and logged; the
+			// request fails, so their ids are never returned: they wait
+			// unlabelled until they expire, counted as such.
 			return nil, err
 		}
 		a.Log, a.Seq = log.name, seq

@@ -3,7 +3,6 @@ package main
 import (
 	"bytes"
 	"fmt"
-	"io"
 	"net/http"
 	"slices"
 	"sync"
@@ -32,19 +31,7 @@ func answerCost() string {
 	time.Sleep(500 * time.Millisecond) // the snapshots publish
 	row := []byte(`{"key":"room-b","features":{"outdoor_c":14.2,"door_min":2,"shift":"day"}}`)
 	client := &http.Client{Transport: &http.Transport{MaxIdleConnsPerHost: 16}}
-	ask := func(svc *api.Service) time.Duration {
-		t0 := time.Now()
-		resp, err := client.Post("http://"+svc.Addr()+"/v1/predict", "application/json", bytes.NewReader(row))
-		if err != nil {
-			panic(err)
-		}
-		io.Copy(io.Discard, resp.Body)
-		resp.Body.Close()
-		if resp.StatusCode != 200 {
-			panic(fmt.Sprintf("predict: %s", resp.Status))
-		}
-		return time.Since(t0)
-	}
+	ask := func(svc *api.Service) time.Duration { return timedPredict(client, "http://"+svc.Addr(), row) }
 	rounds := 2000
 	if quick {
 		rounds = 500

@@ -198,19 +198,7 @@ func forwardLatency(svcs []*api.Service) string {
 	}
 	row := []byte(`{"key":"` + ownerKey + `","time":"2026-03-05T12:00:00Z","features":{"outdoor_c":14.2,"door_min":2,"shift":"day"}}`)
 	client := &http.Client{}
-	ask := func(base string) time.Duration {
-		t0 := time.Now()
-		resp, err := client.Post(base+"/v1/predict", "application/json", bytes.NewReader(row))
-		if err != nil {
-			panic(err)
-		}
-		io.Copy(io.Discard, resp.Body)
-		resp.Body.Close()
-		if resp.StatusCode != 200 {
-			panic(fmt.Sprintf("predict: %s", resp.Status))
-		}
-		return time.Since(t0)
-	}
+	ask := func(base string) time.Duration { return timedPredict(client, base, row) }
 	rounds := 4000
 	if quick {
 		rounds = 1000
@@ -237,4 +225,20 @@ func cpuTime() time.Duration {
 	var ru syscall.Rusage
 	syscall.Getrusage(syscall.RUSAGE_SELF, &ru)
 	return time.Duration(ru.Utime.Nano() + ru.Stime.Nano())
+}
+
+// timedPredict times one POST /v1/predict of row to the service at base
+// (scheme and host), which must answer 200.
+func timedPredict(client *http.Client, base string, row []byte) time.Duration {
+	t0 := time.Now()
+	resp, err := client.Post(base+"/v1/predict", "application/json", bytes.NewReader(row))
+	if err != nil {
+		panic(err)
+	}
+	io.Copy(io.Discard, resp.Body)
+	resp.Body.Close()
+	if resp.StatusCode != 200 {
+		panic(fmt.Sprintf("predict: %s", resp.Status))
+	}
+	return time.Since(t0)
 }

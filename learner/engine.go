@@ -295,7 +295,7 @@ func (e *Engine) at(pos Position) *part {
 		p = newPart(len(e.cfg.Learners))
 		e.parts[pos.Partition] = p
 		p.hwm = pos.Offset - 1 // answers kept for it register before or after this event
-		e.adoptWaiting(pos.Partition, p)
+		e.adoptWaiting(pos.Partition)
 	}
 	p.hwm = pos.Offset
 	return p
@@ -350,7 +350,7 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 	e.beforeEvent(p, pos.Offset)
 	if ev.LabelOnly {
 		e.book(p).labelOnly++
-		e.servedEvent(p, ev, true)
+		e.servedEvent(p, ev)
 		return true, nil
 	}
 	schema := e.schema
@@ -448,7 +448,7 @@ func (e *Engine) Apply(pos Position, ev *Event) (bool, error) {
 		p.times.add(ev.Time)
 	}
 	if p.served != nil || ev.AnswerID != "" {
-		e.servedEvent(p, ev, true)
+		e.servedEvent(p, ev)
 	}
 	return true, nil
 }

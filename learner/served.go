@@ -116,7 +116,7 @@ func newBook(rows int) *servedBook {
 	return &servedBook{pending: map[string]*Answer{}, logs: map[string]int64{}, stats: make([]servedStats, rows)}
 }
 
-// served returns p's book, made when new.
+// book returns p's served book, made when new.
 func (e *Engine) book(p *part) *servedBook {
 	if p.served == nil {
 		p.served = newBook(len(e.cfg.Learners) + 1)
@@ -352,13 +352,13 @@ func (e *Engine) label(p *part, id string, y float64) {
 // servedEvent does the served work of an event at p's high-water mark:
 // scheduled answers before it wait, its label (if any) is scored, old
 // answers expire.
-func (e *Engine) servedEvent(p *part, ev *Event, labelled bool) {
+func (e *Engine) servedEvent(p *part, ev *Event) {
 	b := p.served
 	if b == nil && ev.AnswerID == "" {
 		return
 	}
 	b = e.book(p)
-	if labelled && ev.AnswerID != "" {
+	if ev.AnswerID != "" {
 		e.label(p, ev.AnswerID, ev.Target)
 	}
 	e.expire(b, p)
@@ -389,7 +389,7 @@ func (e *Engine) Label(partition int32, id string, y float64, now int64) {
 
 // adoptWaiting moves the answers kept for partition n, which the state now
 // holds, into its book.
-func (e *Engine) adoptWaiting(n int32, _ *part) {
+func (e *Engine) adoptWaiting(n int32) {
 	w := e.waiting[n]
 	if len(w) == 0 {
 		return
@@ -497,33 +497,30 @@ type ServedRowTotals struct {
 func (e *Engine) servedTotals() *ServedTotals {
 	var t *ServedTotals
 	for _, p := range e.parts {
-		b := p.served
-		if b == nil {
+		if p.served == nil {
 			continue
 		}
+		pt := p.served.totals()
 		if t == nil {
-			t = &ServedTotals{Rows: make([]ServedRowTotals, len(e.cfg.Learners)+1)}
+			t = pt
+		} else {
+			t.add(pt)
 		}
-		t.Counts[0] += int64(b.due + len(b.sched))
-		t.Counts[1] += b.expired
-		t.Counts[2] += b.evicted
-		t.Counts[3] += b.unmatched
-		t.Counts[4] += b.labelOnly
-		for i := range b.stats {
-			s, r := &b.stats[i], &t.Rows[i]
-			r.Answers += s.answers
-			r.Labelled += s.labelled
-			r.Intervals += s.intervals
-			r.Covered += s.covered
-			r.DelayN += s.delayN
-			for j, v := range [8]float64{s.sumAbs, s.sumSq, s.sumErr, s.width, s.fadAbs, s.fadSq, s.fadW, s.delaySum} {
-				r.Sums[j].Add(v)
-			}
-			r.DelayMax = math.Max(r.DelayMax, s.delayMax)
-			for j, n := range s.buckets {
-				r.Buckets[j] += n
-			}
+	}
+	return t
+}
+
+// totals are the book's figures as ServedTotals (its float sums exact).
+func (b *servedBook) totals() *ServedTotals {
+	t := &ServedTotals{Rows: make([]ServedRowTotals, len(b.stats)),
+		Counts: [5]int64{int64(b.due + len(b.sched)), b.expired, b.evicted, b.unmatched, b.labelOnly}}
+	for i := range b.stats {
+		s, r := &b.stats[i], &t.Rows[i]
+		r.Answers, r.Labelled, r.Intervals, r.Covered, r.DelayN = s.answers, s.labelled, s.intervals, s.covered, s.delayN
+		for j, v := range [8]float64{s.sumAbs, s.sumSq, s.sumErr, s.width, s.fadAbs, s.fadSq, s.fadW, s.delaySum} {
+			r.Sums[j].Add(v)
 		}
+		r.DelayMax, r.Buckets = s.delayMax, s.buckets
 	}
 	return t
 }
@@ -644,18 +641,21 @@ func (b *servedBook) encode(w *encoder) {
 	}
 }
 
-func (e *Engine) decodeBook(r *decoder) *servedBook {
+func (e *Engine) decodeBook(r *decoder, partition int32) *servedBook {
 	b := newBook(len(e.cfg.Learners) + 1)
 	n := r.count(1<<30, 40)
 	for i := 0; i < n && r.err == nil; i++ {
 		a := decodeAnswer(r)
+		a.Partition = partition
 		b.pending[a.ID] = a
 		b.queue = append(b.queue, a)
 	}
 	b.due = len(b.queue)
 	n = r.count(1<<30, 40)
 	for i := 0; i < n && r.err == nil; i++ {
-		b.sched = append(b.sched, decodeAnswer(r))
+		a := decodeAnswer(r)
+		a.Partition = partition
+		b.sched = append(b.sched, a)
 	}
 	if r.err == nil && len(b.pending) != b.due {
 		r.fail("served answers repeated")

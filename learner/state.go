@@ -464,7 +464,7 @@ func (e *Engine) decodePartition(sp int32, r *decoder) error {
 		}
 	}
 	if r.ver >= 11 && r.bool() {
-		pt.served = e.decodeBook(r)
+		pt.served = e.decodeBook(r, part)
 	}
 	nk := r.count(e.cfg.MaxKeys-e.keys.len(), 8)
 	if nk > 0 && e.schema == nil {

@@ -106,7 +106,9 @@ w.writerow(["2026-03-01T00:15:00Z", "room-c", "3", "late"])
 // TestCSVTimeFormats: epoch seconds, milliseconds and microseconds (integers
 // or decimals) and a layout in a zone give the instants worked out here.
 func TestCSVTimeFormats(t *testing.T) {
-	want := time.Date(2026, 3, 2, 14, 0, 0, 0, time.UTC) // 1772460000 s since 1970
+	// 1772460000 s since 1970, by hand: 20 514 days × 86 400 s + 14 h × 3 600 s
+	// (20 514 days from 1970-01-01 is 2026-03-02; `date -u -d @1772460000` agrees).
+	want := time.Date(2026, 3, 2, 14, 0, 0, 0, time.UTC)
 	oslo, err := time.LoadLocation("Europe/Oslo")
 	if err != nil {
 		t.Skip("no time zone database")
